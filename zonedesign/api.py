@@ -1,0 +1,454 @@
+"""The Python face of zonedesign: design(), audit(), redraw(), sweep().
+
+Each function reads its inputs, runs the job and writes an output folder atomically; it
+returns a plain `RunResult` (summary dict, exit code, output folder).
+"""
+
+from __future__ import annotations
+
+import platform
+import time
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from zonedesign import __version__
+from zonedesign.errors import InputError
+from zonedesign.records import Areas, Graph
+from zonedesign.rules import Rules, load_rules
+
+CAUTION = (
+    "Thresholds must follow your own statistical-disclosure-control rules. These results "
+    "inform official statistics and need review by the responsible statistician before "
+    "publication."
+)
+
+Progress = Callable[[str], None]
+
+
+@dataclass
+class Prepared:
+    """Inputs read, validated and turned into arrays and a graph."""
+
+    rules: Rules
+    areas: Areas
+    geometry: Any  # GeoSeries in the projected CRS, row order of `areas`
+    graph: Graph  # rook/queen edges plus declared links, across fences too
+    notes: list[str]
+    islands: list[dict]
+    links: int
+    inputs: list[Path]
+    seconds: dict[str, float] = field(default_factory=dict)
+
+
+@dataclass
+class RunResult:
+    out: Path | None
+    summary: dict
+    exit_code: int
+    lookup: dict[str, np.ndarray] = field(default_factory=dict)
+
+
+def _say(progress: Progress | None, text: str) -> None:
+    if progress is not None:
+        progress(text)
+
+
+def versions() -> dict[str, str]:
+    import geopandas
+    import numba
+    import ortools
+    import shapely
+
+    return {
+        "zonedesign": __version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "pandas": pd.__version__,
+        "shapely": shapely.__version__,
+        "geopandas": geopandas.__version__,
+        "numba": numba.__version__,
+        "ortools": ortools.__version__,
+    }
+
+
+def prepare(
+    areas_path: str | Path,
+    rules: str | Path | Rules,
+    *,
+    layer: str | None = None,
+    crs: str | None = None,
+    progress: Progress | None = None,
+) -> Prepared:
+    """Read the rules and the areas, build the graph, add links, find islands."""
+    from zonedesign.graph.build import build_graph
+    from zonedesign.graph.components import islands as find_islands
+    from zonedesign.graph.links import add_links, read_links
+    from zonedesign.io.read import read_areas, read_table_columns
+    from zonedesign.rules import check_rules_against
+
+    seconds: dict[str, float] = {}
+    inputs = [Path(areas_path)]
+    if not isinstance(rules, Rules):
+        inputs.append(Path(rules))
+        rules = load_rules(rules)
+    t0 = time.perf_counter()
+    _say(progress, f"reading {areas_path}")
+    layer = layer or rules.areas.layer
+    columns = read_table_columns(areas_path, layer=layer)[0]
+    check_rules_against(rules, columns, str(areas_path))
+    file = read_areas(areas_path, rules.areas, layer=layer, crs=crs)
+    seconds["read"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    _say(progress, f"building the {rules.graph.contiguity} graph of {file.areas.n} areas")
+    graph = build_graph(file.geometry, rules.graph)
+    n_links = 0
+    if rules.graph.links is not None:
+        inputs.append(Path(rules.graph.links))
+        li, lj = read_links(rules.graph.links, file.areas.ids)
+        graph = add_links(graph, li, lj)
+        n_links = int(li.shape[0])
+    found = find_islands(graph, file.areas.fence, file.geometry, file.areas.ids)
+    seconds["graph"] = time.perf_counter() - t0
+    return Prepared(
+        rules=rules,
+        areas=file.areas,
+        geometry=file.geometry,
+        graph=graph,
+        notes=list(file.notes),
+        islands=[_island_dict(x) for x in found],
+        links=n_links,
+        inputs=inputs,
+        seconds=seconds,
+    )
+
+
+def _island_dict(island: Any) -> dict:
+    d = dict(island.__dict__) if hasattr(island, "__dict__") else dict(island)
+    out = {}
+    for k, v in d.items():
+        if isinstance(v, np.ndarray):
+            v = v.tolist()
+        elif isinstance(v, tuple):
+            v = list(v)
+        elif isinstance(v, np.generic):
+            v = v.item()
+        out[k] = v
+    return out
+
+
+# ---------------------------------------------------------------- design
+
+
+def design(
+    areas_path: str | Path,
+    rules: str | Path | Rules,
+    out: str | Path | None,
+    *,
+    layer: str | None = None,
+    crs: str | None = None,
+    overwrite: bool = False,
+    executor: str = "local",
+    workers: int = 1,
+    scheduler: str | None = None,
+    certify: bool = True,
+    report: bool = True,
+    progress: Progress | None = None,
+    extra_files: Mapping[str, Path] | None = None,
+) -> RunResult:
+    """Design every tier of a nested hierarchy and write it to `out`."""
+    from zonedesign.executors import make_executor
+    from zonedesign.hierarchy import build_hierarchy
+
+    t_start = time.perf_counter()
+    run = make_executor(executor, workers, scheduler)
+    if out is not None:
+        _check_out(Path(out), overwrite)
+    prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
+    if out is not None:
+        _check_out(Path(out), overwrite, prep.inputs)
+
+    def on_tier(name: str, i: int, n: int) -> None:
+        _say(progress, f"tier {i}/{n} '{name}' designed")
+
+    _say(progress, f"designing {len(prep.rules.tiers)} tiers over {len(set(prep.areas.fence))} fences")
+    result = build_hierarchy(prep.areas, prep.graph, prep.rules, executor=run, on_tier=on_tier)
+    lookup = result.lookup()
+    seconds = dict(prep.seconds)
+    seconds.update(result.seconds)
+    summary = base_summary(prep, "design")
+    summary["search"] = {
+        "method": prep.rules.search.method,
+        "seed": prep.rules.search.seed,
+        "executor": executor,
+        "workers": workers,
+    }
+    summary["fences"] = fence_figures(result)
+    failures = [
+        {"fence": f.fence, "tier": f.tier, "error": f.error} for f in result.failures
+    ]
+    summary["fence_failures"] = failures
+    return finish(
+        prep,
+        lookup,
+        summary,
+        out,
+        overwrite=overwrite,
+        seconds=seconds,
+        t_start=t_start,
+        certify=certify,
+        report=report,
+        progress=progress,
+        extra_files=extra_files,
+        failed=bool(failures),
+    )
+
+
+def fence_figures(result: Any) -> list[dict]:
+    rows = []
+    for tier in result.tiers:
+        for f in tier.fences:
+            rows.append(
+                {
+                    "tier": tier.name,
+                    "fence": f.fence,
+                    "zones": int(np.unique(f.labels).shape[0]) if f.labels.size else 0,
+                    "units": int(f.labels.shape[0]),
+                    "breaks": f.breaks,
+                    "objective": f.total,
+                    "terms": f.terms,
+                    "seconds": round(f.seconds, 3),
+                    "error": f.error,
+                    "info": {k: v for k, v in f.info.items() if k != "traceback"},
+                }
+            )
+    return rows
+
+
+def base_summary(prep: Prepared, command: str) -> dict:
+    return {
+        "command": command,
+        "caution": CAUTION,
+        "zonedesign": __version__,
+        "versions": versions(),
+        "inputs": [str(p) for p in prep.inputs],
+        "areas": {
+            "count": prep.areas.n,
+            "crs": prep.areas.crs,
+            "fences": len(set(prep.areas.fence.tolist())),
+            "repaired_polygons": list(prep.areas.repaired),
+            "notes": prep.notes,
+        },
+        "graph": {
+            "contiguity": prep.rules.graph.contiguity,
+            "edges": prep.graph.n_edges,
+            "links": prep.links,
+            "islands": prep.islands,
+        },
+        "rules": prep.rules.text,
+        "objective": {
+            t.name: {"homogeneity": t.homogeneity, "compactness": t.compactness, "weights": dict(t.weights)}
+            for t in prep.rules.tiers
+        },
+    }
+
+
+def finish(
+    prep: Prepared,
+    lookup: dict[str, np.ndarray],
+    summary: dict,
+    out: str | Path | None,
+    *,
+    overwrite: bool,
+    seconds: dict[str, float],
+    t_start: float,
+    certify: bool,
+    report: bool,
+    progress: Progress | None,
+    extra_files: Mapping[str, Path] | None = None,
+    extra_tables: Mapping[str, pd.DataFrame] | None = None,
+    failed: bool = False,
+) -> RunResult:
+    """Audit the hierarchy independently, then write every output into `out` atomically."""
+    from zonedesign.verify.checks import audit as run_audit
+    from zonedesign.zonetables import all_tables, tier_figures
+
+    t0 = time.perf_counter()
+    _say(progress, "auditing the result independently")
+    tiers = list(prep.rules.tiers)
+    checked = run_audit(prep.areas, prep.graph, lookup, tiers)
+    summary["audit"] = {
+        "ok": bool(checked.ok),
+        "violations": [_jsonable(v) for v in _violations(checked)],
+    }
+    if certify:
+        from zonedesign.verify.certificate import certify as run_certify
+
+        certs = run_certify(prep.areas, prep.graph, lookup, tiers)
+        summary["certificate"] = [_jsonable(c) for c in certs]
+    seconds["audit"] = time.perf_counter() - t0
+
+    tables = all_tables(prep.areas, prep.graph, lookup, tiers)
+    summary["tiers"] = {
+        t.name: tier_figures(tables[t.name], t, prep.areas.count_names) for t in tiers
+    }
+    breaks = []
+    for t in tiers:
+        df = tables[t.name]
+        for _, row in df[df["bound_break"]].iterrows():
+            breaks.append({"tier": t.name, "zone": row["zone"], "fence": row["fence"], "breaks": row["breaks"]})
+    summary["bound_breaks"] = breaks
+    summary["proofs"] = explain_breaks(prep, lookup, breaks)
+    summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
+    rc = 1 if (breaks or not checked.ok or failed) else 0
+    summary["exit_code"] = rc
+    if out is not None:
+        write_outputs(
+            prep,
+            lookup,
+            tables,
+            summary,
+            Path(out),
+            overwrite=overwrite,
+            seconds=seconds,
+            t_start=t_start,
+            report=report,
+            progress=progress,
+            extra_files=extra_files,
+            extra_tables=extra_tables,
+            audit_result=checked,
+        )
+    return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=rc, lookup=lookup)
+
+
+def explain_breaks(prep: Prepared, lookup: Mapping[str, np.ndarray], breaks: list[dict]) -> list[dict]:
+    """A plain-words proof for each fence whose breaks no zoning could avoid."""
+    from zonedesign.verify.proofs import prove_infeasible
+    from zonedesign.zonetables import bounds_of
+
+    out = []
+    seen = set()
+    for b in breaks:
+        key = (b["tier"], b["fence"])
+        if key in seen:
+            continue
+        seen.add(key)
+        tier = prep.rules.tier(b["tier"])
+        problem = fence_units_problem(prep, lookup, b["tier"], b["fence"], bounds_of(tier, prep.areas.count_names), tier)
+        proof = prove_infeasible(problem, b["fence"], b["tier"], time_limit=10.0)
+        if proof is None:
+            out.append({"tier": b["tier"], "fence": b["fence"], "status": "no proof",
+                        "text": "the search did not meet every bound here, and no proof says it is impossible"})
+        else:
+            out.append(_jsonable(proof))
+    return out
+
+
+def fence_units_problem(prep, lookup, tier_name, fence, bounds, tier):
+    """The free problem of one fence of one tier, over that tier's units."""
+    from zonedesign.graph.collapse import collapse
+    from zonedesign.measures import compact_labels, zone_perimeter, zone_sums
+    from zonedesign.records import Problem
+
+    names = [t.name for t in prep.rules.tiers]
+    t = names.index(tier_name)
+    mask = prep.areas.fence == fence
+    idx = np.flatnonzero(mask)
+    g = prep.graph.subgraph(idx)
+    if t == 0:
+        codes, k = np.arange(idx.shape[0]), idx.shape[0]
+    else:
+        codes, k = compact_labels(np.asarray(lookup[names[t - 1]], dtype=object)[idx])
+    counts = zone_sums(codes, k, prep.areas.counts[idx])
+    return Problem(
+        graph=collapse(g, codes, k),
+        counts=counts,
+        bounds=bounds,
+        attrs=np.zeros((k, 0)),
+        weight=np.ones(k),
+        area=zone_sums(codes, k, prep.areas.area[idx]),
+        perimeter=zone_perimeter(g, codes, k, prep.areas.perimeter[idx]),
+        term_weights=dict(tier.weights),
+    )
+
+
+def _violations(checked: Any) -> list:
+    return list(getattr(checked, "violations", []))
+
+
+def _jsonable(obj: Any) -> Any:
+    if hasattr(obj, "to_json"):
+        return obj.to_json()
+    if hasattr(obj, "__dataclass_fields__"):
+        return {k: _jsonable(getattr(obj, k)) for k in obj.__dataclass_fields__}
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [_jsonable(v) for v in obj.tolist()]
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, Path):
+        return str(obj)
+    return obj
+
+
+def _check_out(out: Path, overwrite: bool, inputs: list[Path] | None = None) -> None:
+    out = out.resolve()
+    if out.exists() and not overwrite:
+        raise InputError(f"output folder exists: {out} (use --overwrite to replace it)")
+    for p in inputs or []:
+        p = Path(p).resolve()
+        if p == out or out in p.parents:
+            raise InputError(f"output folder {out} holds the input {p}; choose another --out")
+
+
+def write_outputs(
+    prep: Prepared,
+    lookup: dict[str, np.ndarray],
+    tables: dict[str, pd.DataFrame],
+    summary: dict,
+    out: Path,
+    *,
+    overwrite: bool,
+    seconds: dict[str, float],
+    t_start: float,
+    report: bool,
+    progress: Progress | None,
+    extra_files: Mapping[str, Path] | None,
+    extra_tables: Mapping[str, pd.DataFrame] | None,
+    audit_result: Any,
+) -> None:
+    from zonedesign.dissolve import zone_layers
+    from zonedesign.io.lookup import write_lookup
+    from zonedesign.io.output import atomic_output, write_json, write_layers_gpkg
+
+    with atomic_output(out, overwrite=overwrite, inputs=prep.inputs) as tmp:
+        t0 = time.perf_counter()
+        _say(progress, f"writing {out}")
+        write_lookup(tmp / "lookup.csv", prep.areas.ids, lookup)
+        layers = zone_layers(prep.geometry, lookup, tables)
+        write_layers_gpkg(tmp / "zones.gpkg", layers)
+        for name, df in (extra_tables or {}).items():
+            df.to_csv(tmp / name, index=False, lineterminator="\n")
+        if audit_result is not None and hasattr(audit_result, "violations_frame"):
+            audit_result.violations_frame().to_csv(tmp / "violations.csv", index=False, lineterminator="\n")
+        for name, src in (extra_files or {}).items():
+            dst = tmp / name
+            dst.parent.mkdir(parents=True, exist_ok=True)
+            dst.write_bytes(Path(src).read_bytes())
+        seconds["write"] = time.perf_counter() - t0
+        if report:
+            t0 = time.perf_counter()
+            from zonedesign.report.html import write_report
+
+            write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers, graph=None)
+            seconds["report"] = time.perf_counter() - t0
+        seconds["total"] = time.perf_counter() - t_start
+        summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
+        write_json(tmp / "summary.json", summary)

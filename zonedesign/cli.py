@@ -1,0 +1,297 @@
+"""Command line: argument parsing, progress and exit codes; the work is in api.py.
+
+Exit codes: 0 ok; 1 ran but a rule is broken; 2 bad input or usage (one line on stderr).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+from zonedesign import __version__
+from zonedesign.errors import InputError
+
+EXAMPLES = {
+    "design": """\
+        example (on the demo region):
+          zonedesign demo --out demo-out
+          zonedesign design demo-out/input/areas.gpkg --rules demo-out/input/rules.toml --out my-zones
+        """,
+    "redraw": """\
+        example (on the demo region ten years on):
+          zonedesign demo --scenario later --out later-out
+          zonedesign redraw later-out/input/areas.later.gpkg --previous later-out/design/lookup.csv \\
+              --rules later-out/input/rules.toml --out redrawn
+        """,
+    "audit": """\
+        example (on the demo region):
+          zonedesign demo --out demo-out
+          zonedesign audit demo-out/input/areas.gpkg --lookup demo-out/lookup.csv \\
+              --rules demo-out/input/rules.toml --out demo-audit
+          zonedesign audit demo-out/input/areas.gpkg --tiers-from demo-out/zones.gpkg \\
+              --rules demo-out/input/rules.toml --out demo-audit2
+        """,
+    "sweep": """\
+        keys: tier.<N|name>.min.<count>, tier.<N|name>.max.<count>, tier.<N|name>.target.<count>,
+              tier.<N|name>.weights.<size|homogeneity|compactness|stability>,
+              tier.<N|name>.homogeneity, tier.<N|name>.compactness, search.<field>, graph.<field>
+              (N counts tiers from 1 at the bottom)
+        example (on the demo region):
+          zonedesign demo --out demo-out
+          zonedesign sweep demo-out/input/areas.gpkg --rules demo-out/input/rules.toml \\
+              --vary tier.1.min.households=30,40,50 --vary tier.1.target.households=100,125 --out sweep-out
+        """,
+    "demo": """\
+        example:
+          zonedesign demo --out demo-out            # design the invented demo region
+          zonedesign demo --scenario later --out later-out   # design, redraw ten years on, audit
+        """,
+    "rules": """\
+        example:
+          zonedesign rules init demo-out/input/areas.gpkg > rules.toml
+          zonedesign rules check demo-out/input/rules.toml demo-out/input/areas.gpkg
+        """,
+    "show": """\
+        example:
+          zonedesign show demo-out
+        """,
+}
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="zonedesign",
+        description="Design, redraw and audit nested statistical-geography zones.",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog=textwrap.dedent(
+            """\
+            commands: design, redraw, audit, sweep, demo, rules, show
+            exit codes: 0 ok, 1 ran but rules are broken, 2 bad input or usage
+
+            Thresholds must follow your own statistical-disclosure-control rules; results
+            need review by the responsible statistician before publication.
+            """
+        )
+        + "\n"
+        + textwrap.dedent(EXAMPLES["demo"]),
+    )
+    p.add_argument("--version", action="version", version=f"zonedesign {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    def common(sp: argparse.ArgumentParser, out_required: bool = True) -> None:
+        sp.add_argument("--out", required=out_required, type=Path, help="output folder (written atomically)")
+        sp.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+        sp.add_argument("--quiet", action="store_true", help="no progress lines")
+        sp.add_argument("--debug", action="store_true", help="show tracebacks")
+        sp.add_argument("--no-report", action="store_true", help="skip report.html")
+
+    def inputs(sp: argparse.ArgumentParser) -> None:
+        sp.add_argument("areas", type=Path, help="areas file (GeoPackage, GeoJSON, Shapefile, GeoParquet)")
+        sp.add_argument("--rules", required=True, type=Path, help="rules file (TOML)")
+        sp.add_argument("--layer", help="layer name in a GeoPackage")
+        sp.add_argument("--crs", help="CRS of a file that carries none, e.g. EPSG:27700")
+
+    def executor(sp: argparse.ArgumentParser) -> None:
+        sp.add_argument("--executor", choices=["local", "dask"], default="local")
+        sp.add_argument("--workers", type=int, default=1, help="worker processes (default 1)")
+        sp.add_argument("--scheduler", help="address of a running dask scheduler")
+        sp.add_argument("--max-memory", help="stop cleanly past this resident size, e.g. 4GB")
+
+    def sp_(name: str, help_: str) -> argparse.ArgumentParser:
+        return sub.add_parser(
+            name,
+            help=help_,
+            description=help_,
+            epilog=textwrap.dedent(EXAMPLES.get(name, "")),
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+
+    d = sp_("design", "design every tier of a nested hierarchy from base areas")
+    inputs(d)
+    common(d)
+    executor(d)
+    d.add_argument("--no-certificate", action="store_true", help="skip the CP-SAT certificate")
+
+    r = sp_("redraw", "redraw a published hierarchy after new counts, changing as little as possible")
+    inputs(r)
+    r.add_argument("--previous", required=True, type=Path, help="previous lookup (CSV or Parquet)")
+    r.add_argument("--mend", action="store_true", help="mend a previous lookup that does not nest")
+    common(r)
+    executor(r)
+
+    a = sp_("audit", "check any hierarchy against the rules with the independent checker")
+    inputs(a)
+    src = a.add_mutually_exclusive_group(required=True)
+    src.add_argument("--lookup", type=Path, help="lookup CSV: area id, then one column per tier")
+    src.add_argument("--tiers-from", type=Path, help="GeoPackage with one polygon layer per tier")
+    a.add_argument("--tolerance", type=float, default=0.01, help="share of an area allowed in another zone (--tiers-from)")
+    a.add_argument("--repair", action="store_true", help="find the fewest area moves that mend every break")
+    a.add_argument("--no-certificate", action="store_true", help="skip the CP-SAT certificate")
+    common(a)
+
+    s = sp_("sweep", "compare threshold rules: design (or redraw) for every combination of values")
+    inputs(s)
+    s.add_argument("--vary", action="append", required=True, metavar="KEY=V1,V2,...")
+    s.add_argument("--previous", type=Path, help="redraw against this lookup instead of designing")
+    common(s)
+    executor(s)
+
+    m = sp_("demo", "run the main job on the built-in invented demo region")
+    m.add_argument("--scenario", choices=["base", "later"], default="base")
+    m.add_argument("--seed", type=int, default=7, help="seed of the demo region")
+    m.add_argument("--areas", type=int, default=5000, help="number of base areas (default 5000)")
+    common(m)
+    executor(m)
+
+    rl = sp_("rules", "write or check a rules file")
+    rsub = rl.add_subparsers(dest="rules_command", metavar="ACTION")
+    ri = rsub.add_parser("init", help="print a commented starter rules file for a data file")
+    ri.add_argument("areas", type=Path)
+    ri.add_argument("--layer")
+    rc = rsub.add_parser("check", help="validate a rules file (against a data file when given)")
+    rc.add_argument("rules", type=Path)
+    rc.add_argument("areas", type=Path, nargs="?")
+    rc.add_argument("--layer")
+    for x in (ri, rc):
+        x.add_argument("--debug", action="store_true")
+
+    sh = sp_("show", "print a terminal summary of an output folder")
+    sh.add_argument("folder", type=Path)
+    sh.add_argument("--debug", action="store_true")
+    return p
+
+
+def _progress(quiet: bool):
+    t0 = time.perf_counter()
+
+    def say(text: str) -> None:
+        if not quiet:
+            print(f"[{time.perf_counter() - t0:7.1f}s] {text}", file=sys.stderr, flush=True)
+
+    return say
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if not args.command:
+        parser.print_help()
+        return 2
+    debug = getattr(args, "debug", False)
+    try:
+        from zonedesign.memory import memory_guard
+
+        with memory_guard(getattr(args, "max_memory", None)):
+            return _run(args)
+    except InputError as exc:
+        if debug:
+            raise
+        print(f"zonedesign: error: {str(exc).splitlines()[0]}", file=sys.stderr)
+        for line in exc.problems[1:20]:
+            print(f"  {line}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("zonedesign: interrupted; no output was written", file=sys.stderr)
+        return 130
+    except MemoryError as exc:
+        print(f"zonedesign: error: {exc}", file=sys.stderr)
+        return 2
+
+
+def _run(args: argparse.Namespace) -> int:
+    from zonedesign import api
+
+    say = _progress(getattr(args, "quiet", False))
+    cmd = args.command
+    if cmd == "design":
+        res = api.design(
+            args.areas, args.rules, args.out, layer=args.layer, crs=args.crs,
+            overwrite=args.overwrite, executor=args.executor, workers=args.workers,
+            scheduler=args.scheduler, certify=not args.no_certificate,
+            report=not args.no_report, progress=say,
+        )
+        return _done(res, say)
+    if cmd == "demo":
+        from zonedesign.demo import run_demo
+
+        res = run_demo(
+            args.out, scenario=args.scenario, seed=args.seed, n=args.areas,
+            overwrite=args.overwrite, executor=args.executor, workers=args.workers,
+            scheduler=args.scheduler, report=not args.no_report, progress=say,
+        )
+        return _done(res, say)
+    if cmd == "audit":
+        res = api.audit(
+            args.areas, args.rules, args.out, lookup=args.lookup, tiers_from=args.tiers_from,
+            tolerance=args.tolerance, repair=args.repair, layer=args.layer, crs=args.crs,
+            overwrite=args.overwrite, certify=not args.no_certificate,
+            report=not args.no_report, progress=say,
+        )
+        return _done(res, say)
+    if cmd == "redraw":
+        res = api.redraw(
+            args.areas, args.rules, args.previous, args.out, layer=args.layer, crs=args.crs,
+            overwrite=args.overwrite, mend=args.mend, executor=args.executor,
+            workers=args.workers, scheduler=args.scheduler, report=not args.no_report,
+            progress=say,
+        )
+        return _done(res, say)
+    if cmd == "sweep":
+        res = api.sweep(
+            args.areas, args.rules, args.vary, args.out, previous=args.previous,
+            layer=args.layer, crs=args.crs, overwrite=args.overwrite, executor=args.executor,
+            workers=args.workers, scheduler=args.scheduler, report=not args.no_report,
+            progress=say,
+        )
+        return _done(res, say)
+    if cmd == "rules":
+        return _rules(args)
+    if cmd == "show":
+        from zonedesign.show import show
+
+        print(show(args.folder))
+        return 0
+    raise InputError(f"unknown command {cmd!r}")
+
+
+def _rules(args: argparse.Namespace) -> int:
+    from zonedesign.io.read import read_table_columns
+    from zonedesign.rules import check_rules_against, load_rules, starter_rules
+
+    if args.rules_command == "init":
+        columns, dtypes, _, _ = read_table_columns(args.areas, layer=args.layer)
+        import pyogrio
+
+        sample = pyogrio.read_dataframe(args.areas, layer=args.layer, read_geometry=False, max_features=1000)
+        sys.stdout.write(starter_rules(columns, dtypes, sample))
+        return 0
+    if args.rules_command == "check":
+        rules = load_rules(args.rules)
+        if args.areas is not None:
+            columns = read_table_columns(args.areas, layer=args.layer or rules.areas.layer)[0]
+            check_rules_against(rules, columns, str(args.areas))
+        tiers = ", ".join(t.name for t in rules.tiers)
+        print(f"{args.rules}: ok ({len(rules.tiers)} tiers: {tiers})")
+        return 0
+    raise InputError("rules needs an action: init or check")
+
+
+def _done(res, say) -> int:
+    s = res.summary
+    if res.out is not None:
+        say(f"wrote {res.out}")
+    brk = len(s.get("bound_breaks", []))
+    viol = len(s.get("audit", {}).get("violations", []))
+    fails = len(s.get("fence_failures", []))
+    if brk or viol or fails:
+        say(f"finished with {brk} bound break(s), {viol} audit violation(s), {fails} failed fence(s): exit 1")
+    else:
+        say("finished: every rule holds")
+    return int(res.exit_code)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

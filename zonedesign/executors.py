@@ -1,0 +1,110 @@
+"""Where fence tasks run: in this process, in local worker processes, or on a dask cluster.
+
+Every task carries only its own fence's arrays and its own seed, so the result of a run does
+not depend on the executor or on the number of workers.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor
+from typing import Any
+
+from zonedesign.errors import InputError
+
+EXECUTORS = ("local", "dask")
+
+
+def _largest_first(tasks: list[Any]) -> list[int]:
+    # the largest fence decides the wall time, so it starts first
+    def size(t: Any) -> int:
+        problem = getattr(t, "problem", None)
+        return -(problem.n if problem is not None else 0)
+
+    return sorted(range(len(tasks)), key=lambda i: (size(tasks[i]), i))
+
+
+def make_executor(
+    kind: str = "local",
+    workers: int = 1,
+    scheduler: str | None = None,
+    on_done: Callable[[Any], None] | None = None,
+) -> Callable[[list[Any]], list[Any]]:
+    """An executor: a function from a task list to the result list, in task order."""
+    if kind not in EXECUTORS:
+        raise InputError(f"--executor must be one of {', '.join(EXECUTORS)}, not {kind!r}")
+    if workers < 1:
+        raise InputError(f"--workers must be at least 1, not {workers}")
+    if kind == "dask":
+        return _dask_executor(workers, scheduler, on_done)
+    return _local_executor(workers, on_done)
+
+
+def _local_executor(workers: int, on_done: Callable[[Any], None] | None):
+    from zonedesign.hierarchy import run_task
+
+    def run(tasks: list[Any], fn: Callable[[Any], Any] = run_task) -> list[Any]:
+        if workers == 1 or len(tasks) <= 1:
+            out = []
+            for t in tasks:
+                r = fn(t)
+                if on_done:
+                    on_done(r)
+                out.append(r)
+            return out
+        order = _largest_first(tasks)
+        results: list[Any] = [None] * len(tasks)
+        n = min(workers, len(tasks), os.cpu_count() or 1)
+        with ProcessPoolExecutor(max_workers=n) as pool:
+            futures = {pool.submit(fn, tasks[i]): i for i in order}
+            for fut in _as_completed(futures):
+                r = fut.result()
+                results[futures[fut]] = r
+                if on_done:
+                    on_done(r)
+        return results
+
+    return run
+
+
+def _as_completed(futures):
+    from concurrent.futures import as_completed
+
+    return as_completed(futures)
+
+
+def _dask_executor(workers: int, scheduler: str | None, on_done: Callable[[Any], None] | None):
+    try:
+        from dask.distributed import Client, LocalCluster, as_completed
+    except ImportError as exc:  # pragma: no cover - depends on the install
+        raise InputError("--executor dask needs the dask extra: pip install 'zonedesign[dask]'") from exc
+    from zonedesign.hierarchy import run_task
+
+    def run(tasks: list[Any], fn: Callable[[Any], Any] = run_task) -> list[Any]:
+        if scheduler:
+            client = Client(scheduler)
+            cluster = None
+        else:
+            cluster = LocalCluster(
+                n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
+            )
+            client = Client(cluster)
+        try:
+            order = _largest_first(tasks)
+            # each task is scattered on its own: a worker receives one fence's arrays only
+            futures = [client.submit(fn, tasks[i], pure=False, key=f"fence-{i}") for i in order]
+            where = {f.key: i for f, i in zip(futures, order)}
+            results: list[Any] = [None] * len(tasks)
+            for fut in as_completed(futures):
+                r = fut.result()
+                results[where[fut.key]] = r
+                if on_done:
+                    on_done(r)
+            return results
+        finally:
+            client.close()
+            if cluster is not None:
+                cluster.close()
+
+    return run

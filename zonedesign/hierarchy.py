@@ -1,0 +1,357 @@
+"""Tiers bottom-up, fence by fence, through an executor.
+
+Tier 1 is designed from areas inside each fence; tier k from the tier-(k-1) zones inside
+each fence, so nesting holds by construction. Each (fence, tier) is an independent task
+whose inputs are the arrays of that fence only, so tasks can run in local processes or on a
+dask cluster and give the same answer for the same seed.
+"""
+
+from __future__ import annotations
+
+import time
+import traceback
+import zlib
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from zonedesign.graph.collapse import collapse
+from zonedesign.measures import (
+    bound_breaks,
+    compact_labels,
+    score,
+    standardise,
+    zone_perimeter,
+    zone_sums,
+)
+from zonedesign.records import Areas, Graph, Problem
+from zonedesign.rules import Rules, SearchRules, TierRules
+from zonedesign.zonetables import bounds_of as tier_bounds
+
+
+@dataclass(frozen=True)
+class Units:
+    """The units of one tier: areas on tier 1, the zones of the tier below above it."""
+
+    graph: Graph  # edges inside fences only (plus declared links inside fences)
+    counts: np.ndarray
+    attrs: np.ndarray  # standardised, weight-averaged over member areas
+    weight: np.ndarray
+    area: np.ndarray
+    perimeter: np.ndarray
+    fence: np.ndarray  # fence code per unit
+    of_area: np.ndarray  # unit index of every base area
+    previous: np.ndarray | None = None  # previous zone index per unit (redraw)
+
+
+@dataclass(frozen=True)
+class FenceTask:
+    fence: str
+    tier: str
+    tier_index: int
+    units: np.ndarray  # unit indices of this fence, ascending
+    problem: Problem
+    search: SearchRules
+    seed: int
+    start: np.ndarray | None = None
+    anchors: np.ndarray | None = None
+
+
+@dataclass
+class FenceResult:
+    fence: str
+    tier: str
+    labels: np.ndarray  # 0..k-1 per unit of the fence
+    breaks: float
+    total: float
+    terms: dict[str, float]
+    seconds: float
+    info: dict = field(default_factory=dict)
+    error: str = ""
+
+
+@dataclass
+class TierResult:
+    name: str
+    zone_of_unit: np.ndarray  # global zone index per unit of this tier
+    zone_ids: np.ndarray  # readable zone id per global zone index
+    zone_fence: np.ndarray
+    fences: list[FenceResult]
+    seconds: float
+
+    def labels_of_areas(self, of_area: np.ndarray) -> np.ndarray:
+        return self.zone_ids[self.zone_of_unit[of_area]]
+
+
+@dataclass
+class HierarchyResult:
+    tiers: list[TierResult]
+    units: list[Units]  # units of each tier (units[0] are the areas)
+    seconds: dict[str, float]
+
+    def lookup(self) -> dict[str, np.ndarray]:
+        """Zone id of every base area, per tier (bottom first)."""
+        out = {}
+        for tier, units in zip(self.tiers, self.units):
+            out[tier.name] = tier.labels_of_areas(units.of_area)
+        return out
+
+    @property
+    def failures(self) -> list[FenceResult]:
+        return [f for t in self.tiers for f in t.fences if f.error]
+
+
+# ---------------------------------------------------------------- units
+
+
+def fence_graph(graph: Graph, fence: np.ndarray) -> Graph:
+    """Drop every edge between units of different fences."""
+    i, j, w = graph.edges()
+    keep = fence[i] == fence[j]
+    return Graph.from_edges(graph.n, i[keep], j[keep], w[keep])
+
+
+def base_units(areas: Areas, graph: Graph) -> Units:
+    """Tier-1 units: the areas, with attributes standardised over the whole input."""
+    weight = areas.weight.astype(np.float64)
+    mean_w = weight.mean() if weight.size and weight.mean() > 0 else 1.0
+    weight = weight / mean_w  # mean weight 1 keeps the homogeneity scale file-independent
+    return Units(
+        graph=fence_graph(graph, areas.fence),
+        counts=areas.counts.astype(np.float64),
+        attrs=standardise(areas.attrs, weight),
+        weight=weight,
+        area=areas.area.astype(np.float64),
+        perimeter=areas.perimeter.astype(np.float64),
+        fence=areas.fence,
+        of_area=np.arange(areas.n, dtype=np.int64),
+    )
+
+
+def next_units(units: Units, zone_of_unit: np.ndarray, zone_fence: np.ndarray) -> Units:
+    """Collapse one tier's zones into the units of the next tier."""
+    k = int(zone_fence.shape[0])
+    w = zone_sums(zone_of_unit, k, units.weight)
+    wx = zone_sums(zone_of_unit, k, units.weight[:, None] * units.attrs)
+    plain = zone_sums(zone_of_unit, k, units.attrs) / np.maximum(
+        np.bincount(zone_of_unit, minlength=k), 1
+    )[:, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        attrs = np.where(w[:, None] > 0, wx / np.where(w > 0, w, 1.0)[:, None], plain)
+    return Units(
+        graph=collapse(units.graph, zone_of_unit, k),
+        counts=zone_sums(zone_of_unit, k, units.counts),
+        attrs=attrs,
+        weight=w,
+        area=zone_sums(zone_of_unit, k, units.area),
+        perimeter=zone_perimeter(units.graph, zone_of_unit, k, units.perimeter),
+        fence=zone_fence,
+        of_area=zone_of_unit[units.of_area],
+    )
+
+
+def task_seed(seed: int, fence: str, tier_index: int) -> int:
+    """A seed per task that does not depend on task order or on Python's hash salt."""
+    return int(zlib.crc32(f"{seed}|{fence}|{tier_index}".encode()) & 0x7FFFFFFF)
+
+
+def fence_problem(
+    units: Units,
+    index: np.ndarray,
+    tier: TierRules,
+    count_names: Sequence[str],
+    previous: np.ndarray | None = None,
+) -> Problem:
+    return Problem(
+        graph=units.graph.subgraph(index),
+        counts=units.counts[index],
+        bounds=tier_bounds(tier, count_names),
+        attrs=units.attrs[index],
+        weight=units.weight[index],
+        area=units.area[index],
+        perimeter=units.perimeter[index],
+        term_weights=dict(tier.weights),
+        homogeneity=tier.homogeneity,
+        compactness=tier.compactness,
+        previous=None if previous is None else previous[index],
+    )
+
+
+def fence_order(fence: np.ndarray) -> list[str]:
+    """Fence codes in a fixed order (sorted) so zone ids never depend on file order."""
+    return sorted({str(f) for f in fence})
+
+
+# ---------------------------------------------------------------- tasks
+
+
+def run_task(task: FenceTask) -> FenceResult:
+    """Solve one fence of one tier; an exception becomes a failed result, never a lost run."""
+    from zonedesign.search.engine import solve
+
+    t0 = time.perf_counter()
+    try:
+        sol = solve(
+            task.problem,
+            search_rules=task.search,
+            seed=task.seed,
+            time_limit=task.search.time_limit_fence,
+            start=task.start,
+            anchors=task.anchors,
+        )
+        return FenceResult(
+            fence=task.fence,
+            tier=task.tier,
+            labels=np.asarray(sol.labels, dtype=np.int64),
+            breaks=float(sol.score.breaks),
+            total=float(sol.score.total),
+            terms=dict(sol.score.terms),
+            seconds=time.perf_counter() - t0,
+            info=_plain(sol.info),
+        )
+    except Exception as exc:  # noqa: BLE001 - one fence's failure must not lose the others
+        labels = fallback_labels(task.problem)
+        s = score(task.problem, labels)
+        return FenceResult(
+            fence=task.fence,
+            tier=task.tier,
+            labels=labels,
+            breaks=s.breaks,
+            total=s.total,
+            terms=s.terms,
+            seconds=time.perf_counter() - t0,
+            error=f"{type(exc).__name__}: {exc}",
+            info={"traceback": traceback.format_exc(limit=5)},
+        )
+
+
+def fallback_labels(problem: Problem) -> np.ndarray:
+    """One zone per connected component: keeps nesting valid when a fence fails."""
+    from scipy.sparse import csr_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    g = problem.graph
+    m = csr_matrix((np.ones(g.indices.shape[0]), g.indices, g.indptr), shape=(g.n, g.n))
+    _, lab = connected_components(m, directed=False)
+    return compact_labels(lab)[0]
+
+
+def _plain(obj):
+    if isinstance(obj, dict):
+        return {str(k): _plain(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_plain(v) for v in obj]
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, np.floating):
+        return float(obj)
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    return obj
+
+
+Executor = Callable[[list[FenceTask]], list[FenceResult]]
+
+
+def serial_executor(tasks: list[FenceTask]) -> list[FenceResult]:
+    return [run_task(t) for t in tasks]
+
+
+# ---------------------------------------------------------------- tiers
+
+
+def zone_id(fence: str, tier: str, number: int) -> str:
+    return f"{fence}-{tier}-{number:04d}"
+
+
+def assemble_tier(
+    tier: TierRules, units: Units, fences: list[str], results: list[FenceResult], seconds: float
+) -> TierResult:
+    zone_of_unit = np.full(units.counts.shape[0], -1, dtype=np.int64)
+    ids: list[str] = []
+    zfence: list[str] = []
+    for fence, res in zip(fences, results):
+        index = np.flatnonzero(units.fence == fence)
+        labels, k = compact_labels(res.labels)
+        zone_of_unit[index] = labels + len(ids)
+        ids.extend(zone_id(fence, tier.name, z + 1) for z in range(k))
+        zfence.extend([fence] * k)
+    return TierResult(
+        name=tier.name,
+        zone_of_unit=zone_of_unit,
+        zone_ids=np.array(ids, dtype=object),
+        zone_fence=np.array(zfence, dtype=object),
+        fences=results,
+        seconds=seconds,
+    )
+
+
+def build_hierarchy(
+    areas: Areas,
+    graph: Graph,
+    rules: Rules,
+    *,
+    executor: Executor | None = None,
+    on_tier: Callable[[str, int, int], None] | None = None,
+) -> HierarchyResult:
+    """Design every tier bottom-up; `graph` holds rook edges plus declared links."""
+    run = executor or serial_executor
+    units = base_units(areas, graph)
+    fences = fence_order(areas.fence)
+    tiers: list[TierResult] = []
+    all_units: list[Units] = []
+    seconds: dict[str, float] = {}
+    for t, tier in enumerate(rules.tiers):
+        t0 = time.perf_counter()
+        tasks = []
+        for fence in fences:
+            index = np.flatnonzero(units.fence == fence)
+            tasks.append(
+                FenceTask(
+                    fence=fence,
+                    tier=tier.name,
+                    tier_index=t,
+                    units=index,
+                    problem=fence_problem(units, index, tier, areas.count_names),
+                    search=rules.search,
+                    seed=task_seed(rules.search.seed, fence, t),
+                )
+            )
+        results = run(tasks)
+        result = assemble_tier(tier, units, fences, results, time.perf_counter() - t0)
+        seconds[f"tier {tier.name}"] = result.seconds
+        tiers.append(result)
+        all_units.append(units)
+        if on_tier is not None:
+            on_tier(tier.name, t + 1, len(rules.tiers))
+        if t + 1 < len(rules.tiers):
+            units = next_units(units, result.zone_of_unit, result.zone_fence)
+    return HierarchyResult(tiers=tiers, units=all_units, seconds=seconds)
+
+
+def tier_breaks(result: TierResult, units: Units, tier: TierRules, count_names: Sequence[str]) -> list[dict]:
+    """Every zone of a tier that breaks a bound, with its figures."""
+    k = result.zone_ids.shape[0]
+    sums = zone_sums(result.zone_of_unit, k, units.counts)
+    b = tier_bounds(tier, count_names)
+    amount = bound_breaks(sums, b)
+    out = []
+    for z in np.flatnonzero(amount > 0):
+        figures = {}
+        for c, name in enumerate(count_names):
+            if sums[z, c] < b.lo[c] or sums[z, c] > b.hi[c]:
+                figures[name] = {
+                    "count": float(sums[z, c]),
+                    "min": None if not np.isfinite(b.lo[c]) else float(b.lo[c]),
+                    "max": None if not np.isfinite(b.hi[c]) else float(b.hi[c]),
+                }
+        out.append(
+            {
+                "tier": result.name,
+                "zone": str(result.zone_ids[z]),
+                "fence": str(result.zone_fence[z]),
+                "figures": figures,
+            }
+        )
+    return out
