@@ -452,3 +452,186 @@ def write_outputs(
         seconds["total"] = time.perf_counter() - t_start
         summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
         write_json(tmp / "summary.json", summary)
+
+
+# ---------------------------------------------------------------- redraw
+
+
+def read_previous(
+    path: str | Path, prep: Prepared, *, mend: bool
+) -> tuple[dict[str, np.ndarray], dict[str, list[str]]]:
+    """The previous lookup aligned to the areas ("" for areas it lacks).
+
+    Unknown ids (gone areas), missing ids (new areas) and tiers that do not nest stop the
+    run unless `mend` is set; then gone areas are dropped, new areas join a neighbouring
+    zone, and each lower zone goes to the upper zone most of its areas were in.
+    """
+    from zonedesign.io.lookup import read_lookup
+
+    names = [t.name for t in prep.rules.tiers]
+    frame = read_lookup(path, None, names)
+    first = frame.columns[0] if frame.index.name is None else None
+    ids = frame[first].astype(str).to_numpy() if first is not None else frame.index.astype(str).to_numpy()
+    known = set(prep.areas.ids.tolist())
+    pos = {a: i for i, a in enumerate(prep.areas.ids.tolist())}
+    gone = [a for a in ids if a not in known]
+    have = set(ids.tolist())
+    new = [a for a in prep.areas.ids.tolist() if a not in have]
+    prev: dict[str, np.ndarray] = {}
+    for name in names:
+        col = np.full(prep.areas.n, "", dtype=object)
+        vals = frame[name].astype(str).to_numpy()
+        for a, v in zip(ids, vals):
+            i = pos.get(a)
+            if i is not None:
+                col[i] = v
+        prev[name] = col
+    not_nested = []
+    for lo, hi in zip(names[:-1], names[1:]):
+        pairs = pd.DataFrame({"z": prev[lo], "p": prev[hi]})
+        pairs = pairs[pairs["z"] != ""].drop_duplicates()
+        multi = pairs.groupby("z")["p"].nunique()
+        not_nested += [f"{lo} zone {z} lies in several {hi} zones" for z in multi[multi > 1].index[:5]]
+    problems = {"gone_areas": gone, "new_areas": new, "not_nested": not_nested}
+    if (gone or new or not_nested) and not mend:
+        parts = []
+        if gone:
+            parts.append(f"{len(gone)} area id(s) not in the areas file (first: {', '.join(gone[:5])})")
+        if new:
+            parts.append(f"{len(new)} area(s) missing from it (first: {', '.join(new[:5])})")
+        if not_nested:
+            parts.append(not_nested[0])
+        raise InputError(f"{path}: previous lookup does not match: {'; '.join(parts)} (use --mend to mend it first)")
+    if not_nested:
+        for lo, hi in zip(names[:-1], names[1:]):
+            frame2 = pd.DataFrame({"z": prev[lo], "p": prev[hi]})
+            top = (
+                frame2[frame2["z"] != ""].groupby(["z", "p"]).size().reset_index(name="c")
+                .sort_values(["z", "c", "p"], ascending=[True, False, True]).drop_duplicates("z")
+            )
+            to_parent = dict(zip(top["z"], top["p"]))
+            prev[hi] = np.array([to_parent.get(z, p) if z != "" else p for z, p in zip(prev[lo], prev[hi])], dtype=object)
+    return prev, problems
+
+
+def redraw(
+    areas_path: str | Path,
+    rules: str | Path | Rules,
+    previous: str | Path,
+    out: str | Path | None,
+    *,
+    layer: str | None = None,
+    crs: str | None = None,
+    overwrite: bool = False,
+    mend: bool = False,
+    executor: str = "local",
+    workers: int = 1,
+    scheduler: str | None = None,
+    certify: bool = True,
+    report: bool = True,
+    progress: Progress | None = None,
+    extra_files: Mapping[str, Path] | None = None,
+) -> RunResult:
+    """Redraw a published hierarchy on new counts, changing as little as possible."""
+    from zonedesign.executors import make_executor
+    from zonedesign.redraw import change_shares, redraw_hierarchy
+
+    t_start = time.perf_counter()
+    run = make_executor(executor, workers, scheduler)
+    if out is not None:
+        _check_out(Path(out), overwrite)
+    prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
+    prep.inputs.append(Path(previous))
+    if out is not None:
+        _check_out(Path(out), overwrite, prep.inputs)
+    prev, problems = read_previous(previous, prep, mend=mend)
+    _say(progress, f"redrawing {len(prep.rules.tiers)} tiers against {previous}")
+    result = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, executor=run)
+    lookup = result.lookup()
+    changes = result.changes()
+    seconds = dict(prep.seconds)
+    seconds.update(result.seconds)
+    summary = base_summary(prep, "redraw")
+    summary["search"] = {"method": prep.rules.search.method, "seed": prep.rules.search.seed,
+                         "executor": executor, "workers": workers}
+    summary["previous"] = {"lookup": str(previous), **problems}
+    summary["changes"] = change_shares(changes, [t.name for t in prep.rules.tiers], lookup, prev)
+    failures = [{"fence": f.fence, "tier": t.name, "error": f.error} for t in result.tiers for f in t.fences if f.error]
+    summary["fence_failures"] = failures
+    return finish(
+        prep, lookup, summary, out, overwrite=overwrite, seconds=seconds, t_start=t_start,
+        certify=certify, report=report, progress=progress, extra_files=extra_files,
+        extra_tables={"changes.csv": changes}, failed=bool(failures),
+    )
+
+
+# ---------------------------------------------------------------- sweep
+
+
+def sweep(
+    areas_path: str | Path,
+    rules: str | Path | Rules,
+    vary: list[str],
+    out: str | Path | None,
+    *,
+    previous: str | Path | None = None,
+    layer: str | None = None,
+    crs: str | None = None,
+    overwrite: bool = False,
+    executor: str = "local",
+    workers: int = 1,
+    scheduler: str | None = None,
+    report: bool = True,
+    progress: Progress | None = None,
+) -> RunResult:
+    """One design (or redraw) per combination of varied rule values, measured side by side."""
+    from zonedesign.executors import make_executor
+    from zonedesign.io.lookup import write_lookup
+    from zonedesign.io.output import atomic_output, write_json
+    from zonedesign.sweep import VariantTask, charts, parse_vary, run_variant, variants
+
+    t_start = time.perf_counter()
+    done = {"n": 0}
+
+    def on_done(_row: Any) -> None:
+        done["n"] += 1
+        _say(progress, f"variant {done['n']} done")
+
+    run = make_executor(executor, workers, scheduler, on_done=on_done)
+    if out is not None:
+        _check_out(Path(out), overwrite)
+    prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
+    keys = parse_vary(vary, prep.rules)
+    prev = None
+    if previous is not None:
+        prep.inputs.append(Path(previous))
+        prev, _ = read_previous(previous, prep, mend=False)
+    if out is not None:
+        _check_out(Path(out), overwrite, prep.inputs)
+    vs = variants(prep.rules, keys)
+    _say(progress, f"sweeping {len(vs)} variant(s)")
+    tasks = [VariantTask(variant=v, areas=prep.areas, graph=prep.graph, previous=prev) for v in vs]
+    rows = run(tasks, run_variant)
+    lookups = [r.pop("_lookup") for r in rows]
+    table = pd.DataFrame(rows)
+    summary = base_summary(prep, "sweep")
+    summary["sweep"] = {"vary": {k: v for k, v in keys}, "variants": _jsonable(table.to_dict("records"))}
+    summary["seconds"] = {"total": round(time.perf_counter() - t_start, 3)}
+    failed = int(table["bound_breaks"].sum()) > 0 or not bool(table["audit_ok"].all())
+    summary["exit_code"] = 1 if failed else 0
+    pngs = charts(table, [k for k, _ in keys])
+    if out is not None:
+        with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
+            table.to_csv(tmp / "sweep.csv", index=False, lineterminator="\n")
+            for name, data in pngs.items():
+                (tmp / name).write_bytes(data)
+            for v, lk in zip(vs, lookups):
+                folder = tmp / "variants" / f"{v.number:03d}"
+                folder.mkdir(parents=True)
+                write_lookup(folder / "lookup.csv", prep.areas.ids, lk)
+            write_json(tmp / "summary.json", summary)
+            if report:
+                from zonedesign.report.html import write_report
+
+                write_report(tmp / "report.html", summary=summary, tables={}, layers={}, sweep=table, sweep_charts=pngs)
+    return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=summary["exit_code"])

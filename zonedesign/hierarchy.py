@@ -251,11 +251,13 @@ def _plain(obj):
     return obj
 
 
-Executor = Callable[[list[FenceTask]], list[FenceResult]]
+Executor = Callable[..., list[FenceResult]]
 
 
-def serial_executor(tasks: list[FenceTask]) -> list[FenceResult]:
-    return [run_task(t) for t in tasks]
+def serial_executor(tasks: list[FenceTask], fn: Callable[[FenceTask], FenceResult] | None = None) -> list[FenceResult]:
+    """Run tasks one after another in this process (fn defaults to `run_task`)."""
+    fn = fn or run_task
+    return [fn(t) for t in tasks]
 
 
 # ---------------------------------------------------------------- tiers

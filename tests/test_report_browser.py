@@ -1,0 +1,285 @@
+"""The report in a real browser: headless Chromium driven over the DevTools protocol.
+
+Chromium is started with `--remote-debugging-pipe` (protocol messages are NUL-terminated
+JSON on file descriptors 3 and 4), so no websocket library is needed. Any fetch would
+fail twice over: all traffic goes to a proxy on a closed port and every host name fails
+to resolve; the protocol's Network events show what the page tried to load.
+
+With CI=true a missing Chromium fails these tests (install it with .ci/install-browser);
+elsewhere it skips them.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import os
+import select
+import shutil
+import signal
+import subprocess
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from report_synthetic import grid_run
+
+from zonedesign.report.colouring import PALETTE, WARNING
+from zonedesign.report.html import write_report
+from zonedesign.report.svgmap import element_id
+
+pytestmark = pytest.mark.browser
+
+VIEW_W, VIEW_H = 1100, 1300
+PAGE_BACKGROUND = (0xFB, 0xFA, 0xF7)
+
+
+def chromium_path() -> str:
+    found = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None)
+    if found is None:
+        message = "headless Chromium not found (run .ci/install-browser)"
+        if os.environ.get("CI") == "true":
+            pytest.fail(message)
+        pytest.skip(message)
+    return found
+
+
+class Browser:
+    """One headless Chromium, spoken to over the DevTools pipe; always killed on close."""
+
+    def __init__(self, exe: str, workdir: Path) -> None:
+        ours_in, theirs_out = os.pipe()  # Chromium writes fd 4 -> we read
+        theirs_in, ours_out = os.pipe()  # we write -> Chromium reads fd 3
+
+        def wire() -> None:
+            a, b = os.dup(theirs_in), os.dup(theirs_out)
+            os.dup2(a, 3)
+            os.dup2(b, 4)
+
+        profile = workdir / "profile"
+        profile.mkdir()
+        self.log = open(workdir / "chromium.log", "wb")  # noqa: SIM115 - closed in close()
+        self.proc = subprocess.Popen(
+            [
+                exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                "--disable-dev-shm-usage", "--hide-scrollbars", "--mute-audio", "--force-color-profile=srgb",
+                "--proxy-server=http://127.0.0.1:9", "--host-resolver-rules=MAP * ~NOTFOUND",
+                f"--user-data-dir={profile}", "--remote-debugging-pipe", "about:blank",
+            ],
+            stdin=subprocess.DEVNULL, stdout=self.log, stderr=self.log,
+            preexec_fn=wire, pass_fds=(3, 4), start_new_session=True,
+        )
+        os.close(theirs_in)
+        os.close(theirs_out)
+        self.rfd, self.wfd = ours_in, ours_out
+        self.buf = b""
+        self.next_id = 0
+        self.events: list[dict] = []
+
+    def close(self) -> None:
+        try:
+            os.killpg(self.proc.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+        self.proc.wait(timeout=10)
+        for fd in (self.rfd, self.wfd):
+            os.close(fd)
+        self.log.close()
+
+    def _read(self, deadline: float) -> dict:
+        while b"\0" not in self.buf:
+            left = deadline - time.monotonic()
+            ready, _, _ = select.select([self.rfd], [], [], max(left, 0))
+            if not ready:
+                raise TimeoutError("no answer from Chromium")
+            chunk = os.read(self.rfd, 1 << 20)
+            if not chunk:
+                raise ConnectionError("Chromium closed the pipe")
+            self.buf += chunk
+        raw, self.buf = self.buf.split(b"\0", 1)
+        return json.loads(raw)
+
+    def send(self, method: str, params: dict | None = None, session: str | None = None, timeout: float = 15) -> dict:
+        self.next_id += 1
+        msg = {"id": self.next_id, "method": method, "params": params or {}}
+        if session:
+            msg["sessionId"] = session
+        os.write(self.wfd, json.dumps(msg).encode() + b"\0")
+        deadline = time.monotonic() + timeout
+        while True:
+            m = self._read(deadline)
+            if m.get("id") == self.next_id:
+                if "error" in m:
+                    raise RuntimeError(f"{method}: {m['error']}")
+                return m.get("result", {})
+            if "method" in m:
+                self.events.append(m)
+
+    def wait_for(self, method: str, session: str, timeout: float = 20) -> dict:
+        deadline = time.monotonic() + timeout
+        for e in self.events:
+            if e["method"] == method and e.get("sessionId") == session:
+                return e
+        while True:
+            m = self._read(deadline)
+            if "method" in m:
+                self.events.append(m)
+                if m["method"] == method and m.get("sessionId") == session:
+                    return m
+
+    def open(self, url: str) -> str:
+        """A new tab showing `url`, loaded; returns its session id."""
+        target = self.send("Target.createTarget", {"url": "about:blank"})["targetId"]
+        sid = self.send("Target.attachToTarget", {"targetId": target, "flatten": True})["sessionId"]
+        for m in ("Page.enable", "Network.enable", "Runtime.enable", "Log.enable"):
+            self.send(m, session=sid)
+        self.send("Emulation.setDeviceMetricsOverride",
+                  {"width": VIEW_W, "height": VIEW_H, "deviceScaleFactor": 1, "mobile": False}, sid)
+        self.send("Page.navigate", {"url": url}, sid)
+        self.wait_for("Page.loadEventFired", sid)
+        self.eval(sid, "1")  # let queued console and network events arrive
+        return sid
+
+    def eval(self, session: str, expression: str):
+        r = self.send("Runtime.evaluate", {"expression": expression, "returnByValue": True, "awaitPromise": True}, session)
+        if "exceptionDetails" in r:
+            raise RuntimeError(f"script failed: {r['exceptionDetails']}")
+        return r["result"].get("value")
+
+    def of(self, session: str, *methods: str) -> list[dict]:
+        return [e for e in self.events if e.get("sessionId") == session and e["method"] in methods]
+
+
+def console_errors(b: Browser, sid: str) -> list[str]:
+    out = []
+    for e in b.of(sid, "Runtime.exceptionThrown", "Runtime.consoleAPICalled", "Log.entryAdded"):
+        p = e["params"]
+        if e["method"] == "Runtime.exceptionThrown":
+            out.append(json.dumps(p["exceptionDetails"])[:300])
+        elif e["method"] == "Runtime.consoleAPICalled" and p.get("type") in ("error", "assert"):
+            out.append(json.dumps(p.get("args"))[:300])
+        elif e["method"] == "Log.entryAdded" and p["entry"].get("level") == "error":
+            out.append(p["entry"].get("text", "")[:300])
+    return out
+
+
+def fetched(b: Browser, sid: str, page_url: str) -> list[str]:
+    """URLs the page asked for beyond itself and inline data: URIs."""
+    urls = [e["params"]["request"]["url"] for e in b.of(sid, "Network.requestWillBeSent")]
+    return [u for u in urls if u != page_url and not u.startswith("data:")]
+
+
+@pytest.fixture(scope="module")
+def browser(tmp_path_factory):
+    exe = chromium_path()
+    b = Browser(exe, tmp_path_factory.mktemp("chromium"))
+    try:
+        yield b
+    finally:
+        b.close()
+
+
+@pytest.fixture(scope="module")
+def design(tmp_path_factory, browser):
+    run = grid_run(8, parents=(4,), fence_side=4)
+    path = tmp_path_factory.mktemp("report") / "report.html"
+    write_report(path, **run)
+    url = path.resolve().as_uri()
+    return {"run": run, "url": url, "sid": browser.open(url)}
+
+
+def test_the_harness_sees_a_page_that_fetches(browser, tmp_path):
+    # the no-fetch check below has teeth only if a fetch is seen when one happens
+    page = tmp_path / "fetching.html"
+    page.write_text('<!DOCTYPE html><html lang="en"><body><img src="http://tiles.invalid/a.png" alt=""></body></html>')
+    sid = browser.open(page.as_uri())
+    assert any("tiles.invalid" in u for u in fetched(browser, sid, page.as_uri()))
+
+
+def test_report_opens_offline_with_no_console_error_and_no_fetch(browser, design):
+    sid = design["sid"]
+    assert console_errors(browser, sid) == []
+    assert fetched(browser, sid, design["url"]) == []
+    assert browser.of(sid, "Network.loadingFailed") == []
+    caution = browser.eval(sid, "document.querySelector('header .caution').innerText")
+    assert "statistical-disclosure-control" in caution
+
+
+def test_map_has_one_path_per_zone_and_is_painted(browser, design):
+    sid = design["sid"]
+    run = design["run"]
+    for tier, table in run["tables"].items():
+        ids = browser.eval(sid, f"Array.from(document.querySelectorAll('#map-{tier} path.zone')).map(p => p.id)")
+        assert sorted(ids) == sorted(element_id("zone", tier, z) for z in table["zone"])
+    box = browser.eval(
+        sid,
+        "(() => { const s = document.getElementById('map-block'); s.scrollIntoView({block: 'start'});"
+        " const r = s.getBoundingClientRect(); return [r.left, r.top, r.width, r.height]; })()",
+    )
+    shot = browser.send("Page.captureScreenshot", {"format": "png"}, sid)["data"]
+    from base64 import b64decode
+
+    from PIL import Image
+
+    img = np.asarray(Image.open(io.BytesIO(b64decode(shot))).convert("RGB")).astype(int)
+    left, top, width, height = (int(round(v)) for v in box)
+    inside = img[max(top, 0) : min(top + height, VIEW_H), max(left, 0) : min(left + width, VIEW_W)]
+    assert inside.size > 0
+    background = np.all(np.abs(inside - PAGE_BACKGROUND) <= 2, axis=2) | np.all(inside >= 253, axis=2)
+    assert (~background).mean() > 0.6  # the zones fill the map's box
+
+    def present(hex_colour: str) -> bool:
+        rgb = np.array([int(hex_colour[i : i + 2], 16) for i in (1, 3, 5)])
+        return bool(np.any(np.all(np.abs(inside - rgb) <= 3, axis=2)))
+
+    # squares meeting at corners need four fills (common practice: four-colour maps)
+    assert sum(present(c) for c in PALETTE) >= 4
+    assert present(WARNING)  # the rule-breaking zone's outline is painted
+
+
+def test_hovering_a_zone_shows_its_figures(browser, design):
+    sid = design["sid"]
+    table = design["run"]["tables"]["block"]
+    broken = table[table["bound_break"]].iloc[0]
+    fine = table[~table["bound_break"]].iloc[5]
+    for row in (fine, broken):
+        zid = element_id("zone", "block", row["zone"])
+        x, y = browser.eval(
+            sid,
+            f"(() => {{ const p = document.getElementById('{zid}'); p.scrollIntoView({{block: 'center'}});"
+            " const r = p.getBoundingClientRect(); return [r.left + r.width / 2, r.top + r.height / 2]; })()",
+        )
+        assert browser.eval(sid, f"document.elementFromPoint({x}, {y}).id") == zid
+        browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": x, "y": y}, sid)
+        tip = browser.eval(
+            sid,
+            "(() => { const t = document.getElementById('tip'); const s = getComputedStyle(t);"
+            " return {hidden: t.hidden, display: s.display, text: t.textContent}; })()",
+        )
+        assert tip["hidden"] is False and tip["display"] != "none"
+        assert f"zone {row['zone']}" in tip["text"]
+        assert f"households {int(row['households']):,}" in tip["text"]
+        assert "Polsby-Popper" in tip["text"] and "homogeneity" in tip["text"]
+        assert ("breaks a rule" in tip["text"]) == bool(row["bound_break"])
+        browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": 2, "y": 2}, sid)
+        assert browser.eval(sid, "document.getElementById('tip').hidden") is True
+        # the native tooltip text is back in place once the pointer has left
+        assert browser.eval(sid, f"document.getElementById('{zid}').querySelector('title') !== null")
+    assert console_errors(browser, sid) == []
+
+
+def test_violation_links_reach_their_zone(browser, design):
+    sid = design["sid"]
+    missing = browser.eval(
+        sid,
+        "Array.from(document.querySelectorAll('tr.violation a[href^=\"#\"]'))"
+        ".map(a => a.getAttribute('href').slice(1)).filter(id => !document.getElementById(id))",
+    )
+    assert missing == []
+    table = design["run"]["tables"]["block"]
+    zid = element_id("zone", "block", table[table["bound_break"]]["zone"].iloc[0])
+    browser.eval(sid, f"document.querySelector('tr.violation a[href=\"#{zid}\"]').click()")
+    assert browser.eval(sid, "location.hash") == f"#{zid}"
+    assert browser.eval(sid, f"document.querySelector(':target') === document.getElementById('{zid}')")

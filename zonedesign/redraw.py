@@ -1,0 +1,482 @@
+"""Redraw a published hierarchy after new counts with the fewest changes.
+
+Census maintenance practice (Cockings, Harfoot, Martin & Hornby 2011): keep every zone that
+still meets the rules, merge zones that fell below a floor, split zones that grew above a
+ceiling, mend zones that are not contiguous, and change as little as possible.
+
+Per tier (bottom-up) and fence:
+1. start from the previous zones; a previous zone split by a fence or no longer contiguous
+   keeps its largest part, and the other parts (and areas new since the previous lookup) join
+   the neighbouring zone they share most boundary with, or stand alone when they meet the
+   floors on their own;
+2. zones that now break a bound are the broken zones; only they and their neighbouring zones
+   are handed to the search, which starts from the current labelling with a heavy stability
+   weight (every unit leaving its previous zone costs), and may merge, split and move units;
+   the ring widens when the breaks cannot be mended inside it;
+3. every other zone is kept whole with its id.
+An upper-tier zone keeps its id when its members are unchanged; nesting holds after every tier
+because tier k is redrawn from the tier-(k-1) zones.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy.sparse import csr_matrix
+from scipy.sparse.csgraph import connected_components
+
+from zonedesign.hierarchy import (
+    Executor,
+    FenceResult,
+    FenceTask,
+    Units,
+    base_units,
+    fence_order,
+    fence_problem,
+    next_units,
+    serial_executor,
+    task_seed,
+)
+from zonedesign.measures import bound_breaks, compact_labels, zone_sums
+from zonedesign.records import Areas, Graph
+from zonedesign.rules import Rules, TierRules
+from zonedesign.zonetables import bounds_of
+
+STABILITY_DEFAULT = 20.0  # heavy by default: moving a unit must buy a lot of objective
+
+
+@dataclass
+class RedrawTier:
+    name: str
+    zone_of_unit: np.ndarray
+    zone_ids: np.ndarray
+    zone_fence: np.ndarray
+    changes: pd.DataFrame
+    seconds: float
+    fences: list[FenceResult] = field(default_factory=list)
+
+
+@dataclass
+class RedrawResult:
+    tiers: list[RedrawTier]
+    units: list[Units]
+    new_areas: list[str]
+    gone_areas: list[str]
+    seconds: dict[str, float]
+
+    def lookup(self) -> dict[str, np.ndarray]:
+        return {t.name: t.zone_ids[t.zone_of_unit[u.of_area]] for t, u in zip(self.tiers, self.units)}
+
+    def changes(self) -> pd.DataFrame:
+        frames = [t.changes for t in self.tiers]
+        return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+
+
+# ---------------------------------------------------------------- start labelling
+
+
+def _components(graph: Graph, members: np.ndarray) -> np.ndarray:
+    """Component label of each unit in `members` on the induced subgraph."""
+    sub = graph.subgraph(members)
+    m = csr_matrix((np.ones(sub.indices.shape[0]), sub.indices, sub.indptr), shape=(sub.n, sub.n))
+    return connected_components(m, directed=False)[1]
+
+
+def start_labels(
+    graph: Graph, prev: np.ndarray, counts: np.ndarray, lo: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """A contiguous labelling that keeps previous zones wherever they are still whole.
+
+    prev: previous zone code per unit (-1 for units new since the previous lookup).
+    Returns (labels 0..k-1, anchor previous code per zone, -1 for a new zone).
+    """
+    n = prev.shape[0]
+    labels = np.full(n, -1, dtype=np.int64)
+    anchors: list[int] = []
+    loose: list[np.ndarray] = []
+    for code in np.unique(prev[prev >= 0]):
+        members = np.flatnonzero(prev == code)
+        comp = _components(graph, members)
+        sizes = np.bincount(comp)
+        # the part with most units keeps the zone; ties go to the part of the smallest unit
+        keep = int(np.argmax(sizes))
+        labels[members[comp == keep]] = len(anchors)
+        anchors.append(int(code))
+        for c in range(sizes.shape[0]):
+            if c != keep:
+                loose.append(members[comp == c])
+    new = np.flatnonzero(prev < 0)
+    if new.size:
+        comp = _components(graph, new)
+        for c in range(int(comp.max()) + 1):
+            loose.append(new[comp == c])
+    # parts that meet every floor alone become zones; the rest join a neighbour
+    pending = []
+    for part in loose:
+        if np.all(counts[part].sum(axis=0) >= np.where(np.isfinite(lo), lo, 0.0)):
+            labels[part] = len(anchors)
+            anchors.append(-1)
+        else:
+            pending.append(part)
+    while pending:
+        progressed = False
+        rest = []
+        for part in pending:
+            best, best_len = -1, -1.0
+            for u in part:
+                for p in range(graph.indptr[u], graph.indptr[u + 1]):
+                    v = graph.indices[p]
+                    z = labels[v]
+                    if z >= 0 and labels[u] < 0 and graph.length[p] > best_len:
+                        best, best_len = int(z), float(graph.length[p])
+            if best >= 0:
+                labels[part] = best
+                progressed = True
+            else:
+                rest.append(part)
+        pending = rest
+        if not progressed:
+            # no assigned neighbour at all (an island of new units): a zone of its own
+            for part in pending:
+                labels[part] = len(anchors)
+                anchors.append(-1)
+            pending = []
+    return labels, np.array(anchors, dtype=np.int64)
+
+
+def zone_neighbours(graph: Graph, labels: np.ndarray, zones: np.ndarray) -> np.ndarray:
+    """Zones adjacent to any zone in `zones`."""
+    i, j, _ = graph.edges()
+    inz = np.isin(labels, zones)
+    a = labels[j[inz[i]]]
+    b = labels[i[inz[j]]]
+    return np.unique(np.concatenate([a, b, zones]))
+
+
+# ---------------------------------------------------------------- one fence
+
+
+def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
+    """Mend one fence: only broken zones and their neighbours are searched."""
+    from zonedesign.search.engine import solve
+
+    t0 = time.perf_counter()
+    p = task.problem
+    labels, anchors = task.start, task.anchors
+    k = anchors.shape[0]
+    sums = zone_sums(labels, k, p.counts)
+    broken = np.flatnonzero(bound_breaks(sums, p.bounds) > 0)
+    info: dict = {"broken_zones": int(broken.size), "rings": 0}
+    if broken.size == 0:
+        return _fence_result(task, labels, t0, info)
+    active = broken
+    best = labels
+    for ring in range(1, rings + 1):
+        active = zone_neighbours(p.graph, labels, active)
+        units = np.flatnonzero(np.isin(labels, active))
+        sub = _sub_problem(p, units)
+        local, kk = compact_labels(labels[units])
+        local_anchor = np.full(kk, -1, dtype=np.int64)
+        local_anchor[local] = anchors[labels[units]]
+        sol = solve(
+            sub,
+            search_rules=task.search,
+            seed=task.seed + ring,
+            time_limit=task.search.time_limit_fence,
+            start=local,
+            anchors=local_anchor,
+        )
+        out = labels.copy()
+        # zones of the searched part are numbered after the untouched zones
+        untouched = np.setdiff1d(np.arange(k), active)
+        renum = np.full(k, -1, dtype=np.int64)
+        renum[untouched] = np.arange(untouched.shape[0])
+        out[~np.isin(labels, active)] = renum[labels[~np.isin(labels, active)]]
+        out[units] = untouched.shape[0] + np.asarray(sol.labels, dtype=np.int64)
+        best = out
+        info["rings"] = ring
+        if sol.score.breaks == 0:
+            break
+    return _fence_result(task, best, t0, info)
+
+
+def _sub_problem(p, units: np.ndarray):
+    from dataclasses import replace
+
+    return replace(
+        p,
+        graph=p.graph.subgraph(units),
+        counts=p.counts[units],
+        attrs=p.attrs[units],
+        weight=p.weight[units],
+        area=p.area[units],
+        perimeter=p.perimeter[units],
+        previous=None if p.previous is None else p.previous[units],
+    )
+
+
+def _fence_result(task: FenceTask, labels: np.ndarray, t0: float, info: dict) -> FenceResult:
+    from zonedesign.measures import score
+
+    labels, _ = compact_labels(labels)
+    s = score(task.problem, labels)
+    return FenceResult(
+        fence=task.fence,
+        tier=task.tier,
+        labels=labels,
+        breaks=s.breaks,
+        total=s.total,
+        terms=s.terms,
+        seconds=time.perf_counter() - t0,
+        info=info,
+    )
+
+
+def run_redraw_task(task: FenceTask) -> FenceResult:
+    try:
+        return redraw_fence(task)
+    except Exception as exc:  # noqa: BLE001 - a failed fence keeps its start labelling
+        import traceback
+
+        res = _fence_result(task, task.start, time.perf_counter(), {})
+        res.error = f"{type(exc).__name__}: {exc}"
+        res.info = {"traceback": traceback.format_exc(limit=5)}
+        return res
+
+
+# ---------------------------------------------------------------- ids and changes
+
+
+def name_zones(
+    fence: str,
+    tier: str,
+    labels: np.ndarray,
+    prev_ids: np.ndarray,
+    prev_members: dict[str, set[int]],
+    taken: set[str],
+) -> tuple[list[str], list[dict]]:
+    """Zone ids and change rows for one fence: ids survive where the zone carries on.
+
+    labels: new zone per unit (0..k-1); prev_ids: previous zone id per unit ("" when new);
+    prev_members: previous zone id -> its units (in this fence, present now).
+    """
+    k = int(labels.max()) + 1 if labels.size else 0
+    members = [np.flatnonzero(labels == z) for z in range(k)]
+    overlap: list[dict[str, int]] = []
+    for m in members:
+        vals, cnt = np.unique(prev_ids[m], return_counts=True)
+        overlap.append({str(v): int(c) for v, c in zip(vals, cnt) if v != ""})
+    # each previous zone's successor: the new zone holding most of its units
+    successor: dict[str, int] = {}
+    for z, ov in enumerate(overlap):
+        for pid, c in ov.items():
+            if pid not in successor or c > overlap[successor[pid]].get(pid, 0):
+                successor[pid] = z
+    spread: dict[str, int] = {}
+    for ov in overlap:
+        for pid in ov:
+            spread[pid] = spread.get(pid, 0) + 1
+    ids: list[str] = []
+    rows: list[dict] = []
+    counter = 0
+    for z, m in enumerate(members):
+        ov = overlap[z]
+        dominant = max(sorted(ov), key=lambda q: ov[q]) if ov else ""
+        whole = [q for q in ov if ov[q] * 2 > len(prev_members.get(q, ())) and ov[q] > 0]
+        if not ov:
+            kind = "new"
+        elif set(m.tolist()) == prev_members.get(dominant, set()):
+            kind = "kept"
+        elif len(whole) >= 2:
+            kind = "merged"
+        elif spread.get(dominant, 1) >= 2 and ov[dominant] < len(prev_members.get(dominant, ())) and not _mostly_kept(ov[dominant], prev_members.get(dominant, ())):
+            kind = "split"
+        else:
+            kind = "reshaped"
+        if kind in ("kept", "reshaped", "merged") and successor.get(dominant) == z and dominant not in taken:
+            zid = dominant
+        else:
+            while True:
+                counter += 1
+                zid = f"{fence}-{tier}-n{counter:04d}"
+                if zid not in taken and zid not in prev_members:
+                    break
+        taken.add(zid)
+        ids.append(zid)
+        moved = int(sum(1 for u in m if prev_ids[u] != zid))
+        rows.append(
+            {
+                "tier": tier,
+                "fence": fence,
+                "old_zones": ";".join(sorted(ov)),
+                "new_zone": zid,
+                "kind": kind,
+                "units_moved": moved,
+            }
+        )
+    for pid in sorted(prev_members):
+        if pid not in ids and prev_members[pid]:
+            rows.append(
+                {"tier": tier, "fence": fence, "old_zones": pid, "new_zone": "", "kind": "retired", "units_moved": 0}
+            )
+    return ids, rows
+
+
+def _mostly_kept(kept: int, members) -> bool:
+    return kept * 10 >= 9 * max(len(members), 1)
+
+
+# ---------------------------------------------------------------- hierarchy
+
+
+def redraw_hierarchy(
+    areas: Areas,
+    graph: Graph,
+    rules: Rules,
+    previous: dict[str, np.ndarray],
+    *,
+    executor: Executor | None = None,
+) -> RedrawResult:
+    """Redraw every tier bottom-up; previous[tier] holds each area's previous zone id
+    ("" for areas new since the previous lookup)."""
+    run = executor or serial_executor
+    units = base_units(areas, graph)
+    fences = fence_order(areas.fence)
+    new_areas = [str(a) for a, p in zip(areas.ids, previous[rules.tiers[0].name]) if p == ""]
+    tiers: list[RedrawTier] = []
+    all_units: list[Units] = []
+    seconds: dict[str, float] = {}
+    for t, tier in enumerate(rules.tiers):
+        t0 = time.perf_counter()
+        prev_unit = unit_previous(previous[tier.name], units.of_area, units.counts.shape[0])
+        tasks, meta = [], []
+        for fence in fences:
+            index = np.flatnonzero(units.fence == fence)
+            pid = prev_unit[index]
+            codes, uniq = pd.factorize(pd.Series(pid).replace("", np.nan), sort=True)
+            b = bounds_of(tier, areas.count_names)
+            sub_graph = units.graph.subgraph(index)
+            start, anchors = start_labels(sub_graph, codes.astype(np.int64), units.counts[index], b.lo)
+            weights = dict(tier.weights)
+            if weights.get("stability", 0.0) <= 0:
+                weights["stability"] = STABILITY_DEFAULT
+            problem = fence_problem(units, index, _with_weights(tier, weights), areas.count_names, previous=None)
+            from dataclasses import replace
+
+            problem = replace(problem, previous=codes.astype(np.int64))
+            tasks.append(
+                FenceTask(
+                    fence=fence, tier=tier.name, tier_index=t, units=index, problem=problem,
+                    search=rules.search, seed=task_seed(rules.search.seed, fence, t),
+                    start=start, anchors=anchors,
+                )
+            )
+            meta.append((index, pid))
+        results = run(tasks, run_redraw_task)
+        zone_of_unit = np.full(units.counts.shape[0], -1, dtype=np.int64)
+        ids: list[str] = []
+        zfence: list[str] = []
+        rows: list[dict] = []
+        taken: set[str] = set()
+        for fence, res, (index, pid) in zip(fences, results, meta):
+            labels, k = compact_labels(res.labels)
+            prev_members: dict[str, set[int]] = {}
+            for u, q in enumerate(pid):
+                if q != "":
+                    prev_members.setdefault(str(q), set()).add(u)
+            zids, zrows = name_zones(fence, tier.name, labels, pid, prev_members, taken)
+            zone_of_unit[index] = labels + len(ids)
+            ids.extend(zids)
+            zfence.extend([fence] * k)
+            rows.extend(zrows)
+        changes = _change_table(rows, areas, units, zone_of_unit, np.array(ids, dtype=object), previous[tier.name])
+        seconds[f"tier {tier.name}"] = time.perf_counter() - t0
+        tiers.append(
+            RedrawTier(
+                name=tier.name, zone_of_unit=zone_of_unit, zone_ids=np.array(ids, dtype=object),
+                zone_fence=np.array(zfence, dtype=object), changes=changes,
+                seconds=seconds[f"tier {tier.name}"], fences=results,
+            )
+        )
+        all_units.append(units)
+        if t + 1 < len(rules.tiers):
+            units = next_units(units, zone_of_unit, np.array(zfence, dtype=object))
+    return RedrawResult(tiers=tiers, units=all_units, new_areas=new_areas, gone_areas=[], seconds=seconds)
+
+
+def _with_weights(tier: TierRules, weights: dict[str, float]) -> TierRules:
+    from dataclasses import replace
+
+    return replace(tier, weights=weights)
+
+
+def unit_previous(prev_area: np.ndarray, of_area: np.ndarray, n_units: int) -> np.ndarray:
+    """Previous zone id of each unit: the id most of its areas had ("" for none)."""
+    frame = pd.DataFrame({"u": of_area, "p": np.asarray(prev_area, dtype=object)})
+    frame = frame[frame["p"] != ""]
+    out = np.full(n_units, "", dtype=object)
+    if len(frame):
+        counts = frame.groupby(["u", "p"], sort=True).size().reset_index(name="c")
+        counts = counts.sort_values(["u", "c", "p"], ascending=[True, False, True], kind="stable")
+        top = counts.drop_duplicates("u")
+        out[top["u"].to_numpy()] = top["p"].to_numpy()
+    return out
+
+
+def _change_table(
+    rows: list[dict], areas: Areas, units: Units, zone_of_unit: np.ndarray, zone_ids: np.ndarray, prev_area: np.ndarray
+) -> pd.DataFrame:
+    """changes.csv rows with areas moved and counts before (old zone) and after (new zone)."""
+    new_area = zone_ids[zone_of_unit[units.of_area]]
+    prev_area = np.asarray(prev_area, dtype=object)
+    moved_areas = pd.Series(new_area != prev_area).groupby(new_area).sum()
+    df = pd.DataFrame(rows)
+    if df.empty:
+        return df
+    df["areas_moved"] = [int(moved_areas.get(z, 0)) if z else 0 for z in df["new_zone"]]
+    for c, name in enumerate(areas.count_names):
+        after = pd.Series(areas.counts[:, c]).groupby(new_area).sum()
+        before = pd.Series(areas.counts[:, c]).groupby(prev_area).sum()
+        df[f"{name}_before"] = [
+            float(sum(before.get(q, 0.0) for q in str(o).split(";") if q)) for o in df["old_zones"]
+        ]
+        df[f"{name}_after"] = [float(after.get(z, 0.0)) if z else 0.0 for z in df["new_zone"]]
+    return df.drop(columns=["units_moved"])
+
+
+def change_shares(changes: pd.DataFrame, tiers: Sequence[str], lookup: dict[str, np.ndarray], previous: dict[str, np.ndarray]) -> dict:
+    """Per tier: share of previous zones kept unchanged and the number of areas moved."""
+    out = {}
+    for name in tiers:
+        c = changes[changes["tier"] == name] if len(changes) else changes
+        prev = np.asarray(previous[name], dtype=object)
+        n_prev = len(set(prev[prev != ""].tolist()))
+        kept = int((c["kind"] == "kept").sum()) if len(c) else 0
+        moved = int((np.asarray(lookup[name], dtype=object) != prev).sum())
+        out[name] = {
+            "previous_zones": n_prev,
+            "kept": kept,
+            "share_unchanged": kept / n_prev if n_prev else 1.0,
+            "share_changed": 1 - kept / n_prev if n_prev else 0.0,
+            "areas_moved": moved,
+            "kinds": {k: int(v) for k, v in c["kind"].value_counts().sort_index().items()} if len(c) else {},
+        }
+    return out
+
+
+def unchanged_share(previous: np.ndarray, now: np.ndarray) -> float:
+    """Share of previous zones whose id now holds exactly the same areas."""
+    prev = pd.Series(np.asarray(previous, dtype=object))
+    cur = pd.Series(np.asarray(now, dtype=object))
+    have = prev != ""
+    if not have.any():
+        return 1.0
+    same = (prev == cur)[have].groupby(prev[have]).all()
+    size_prev = prev[have].value_counts()
+    size_now = cur.value_counts().reindex(size_prev.index, fill_value=0)
+    kept = same & (size_now == size_prev).reindex(same.index)
+    return float(kept.mean())

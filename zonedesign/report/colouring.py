@@ -1,0 +1,149 @@
+"""Map colours: neighbouring zones never share a fill.
+
+Zones are coloured on their adjacency graph (any shared boundary or corner counts, so
+that two zones drawn touching always look apart). The order is smallest-last: a zone is
+coloured after every zone with fewer uncoloured neighbours, which bounds the number of
+colours by the graph's degeneracy plus one (at most six for a map whose zones meet only
+along edges, since such a graph is planar). Among the free colours the least used one is
+taken, so the palette is spread evenly over the map instead of piling onto its first entry.
+"""
+
+from __future__ import annotations
+
+import colorsys
+from collections.abc import Iterable, Sequence
+
+import numpy as np
+import shapely
+
+# Soft fills that stay apart from one another in hue and lightness, light enough for the
+# dark outlines and hatching drawn over them, and calm on paper.
+PALETTE: tuple[str, ...] = (
+    "#a9c8e8",  # pale cornflower
+    "#f2c48d",  # apricot
+    "#b5d6a7",  # sage
+    "#d9b8e0",  # lilac
+    "#f4e29a",  # butter
+    "#9fd4cf",  # sea glass
+    "#e8aeb3",  # rose clay
+    "#cfc3a8",  # sandstone
+)
+
+# Outline of a zone that breaks a rule; always paired with hatching, never alone.
+WARNING = "#a3241b"
+
+
+def palette(n: int) -> list[str]:
+    """`n` fills: the palette first, then further soft hues spaced by the golden angle."""
+    out = list(PALETTE[: max(n, 0)])
+    k = 0
+    while len(out) < n:
+        hue = (0.11 + 0.381966 * k) % 1.0
+        r, g, b = colorsys.hls_to_rgb(hue, 0.78, 0.45)
+        out.append(f"#{round(r * 255):02x}{round(g * 255):02x}{round(b * 255):02x}")
+        k += 1
+    return out
+
+
+def zone_neighbours(geometries: Sequence | np.ndarray, *, tolerance: float = 0.0) -> np.ndarray:
+    """Index pairs (i < j) of geometries that touch, overlap or lie within `tolerance`.
+
+    Returns an (m, 2) int64 array. A small tolerance makes zones separated by a sliver
+    gap (common in digitised boundaries) count as neighbours, as they look on a map.
+    """
+    geoms = np.asarray(geometries, dtype=object)
+    if geoms.shape[0] < 2:
+        return np.zeros((0, 2), dtype=np.int64)
+    tree = shapely.STRtree(geoms)
+    if tolerance > 0:
+        left, right = tree.query(geoms, predicate="dwithin", distance=tolerance)
+    else:
+        left, right = tree.query(geoms, predicate="intersects")
+    keep = left < right
+    pairs = np.column_stack([left[keep], right[keep]]).astype(np.int64)
+    return np.unique(pairs, axis=0) if pairs.size else pairs.reshape(0, 2)
+
+
+def colour_graph(n: int, pairs: np.ndarray | Iterable[tuple[int, int]], *, colours: int = len(PALETTE)) -> np.ndarray:
+    """A proper colouring of nodes 0..n-1: adjacent nodes get different colour indices.
+
+    Tries to stay within `colours` indices; a graph that needs more (a clique of zones all
+    meeting at one point) gets further indices rather than a clash.
+
+    >>> colour_graph(3, [(0, 1), (1, 2), (0, 2)]).tolist()
+    [2, 1, 0]
+    """
+    pairs = np.asarray(list(pairs) if not isinstance(pairs, np.ndarray) else pairs, dtype=np.int64)
+    pairs = pairs.reshape(-1, 2)
+    pairs = pairs[pairs[:, 0] != pairs[:, 1]]
+    if n == 0:
+        return np.zeros(0, dtype=np.int64)
+    both = np.concatenate([pairs, pairs[:, ::-1]]) if pairs.size else pairs
+    order = np.argsort(both[:, 0], kind="stable") if both.size else np.zeros(0, dtype=np.int64)
+    src = both[order, 0] if both.size else np.zeros(0, dtype=np.int64)
+    dst = both[order, 1] if both.size else np.zeros(0, dtype=np.int64)
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    np.add.at(indptr, src + 1, 1)
+    indptr = np.cumsum(indptr)
+    nbrs = [dst[indptr[i] : indptr[i + 1]].tolist() for i in range(n)]
+    sequence = _smallest_last(nbrs)
+    colour = np.full(n, -1, dtype=np.int64)
+    used = [0] * max(colours, 1)
+    for v in sequence:
+        taken = {int(colour[u]) for u in nbrs[v] if colour[u] >= 0}
+        free = [c for c in range(len(used)) if c not in taken]
+        if free:
+            c = min(free, key=lambda c: (used[c], c))
+        else:
+            c = len(used)
+            used.append(0)
+        colour[v] = c
+        used[c] += 1
+    return colour
+
+
+def _smallest_last(nbrs: list[list[int]]) -> list[int]:
+    """Nodes in colouring order: reverse of repeatedly removing a node of least degree."""
+    n = len(nbrs)
+    degree = [len(set(x)) for x in nbrs]
+    nbrs = [list(set(x)) for x in nbrs]
+    top = max(degree, default=0)
+    buckets: list[set[int]] = [set() for _ in range(top + 1)]
+    for v, d in enumerate(degree):
+        buckets[d].add(v)
+    removed = [False] * n
+    out: list[int] = []
+    low = 0
+    for _ in range(n):
+        low = max(low - 1, 0)
+        while not buckets[low]:
+            low += 1
+        v = buckets[low].pop()
+        removed[v] = True
+        out.append(v)
+        for u in nbrs[v]:
+            if not removed[u]:
+                d = degree[u]
+                buckets[d].discard(u)
+                degree[u] = d - 1
+                buckets[d - 1].add(u)
+    out.reverse()
+    return out
+
+
+def colour_zones(
+    geometries: Sequence | np.ndarray,
+    *,
+    tolerance: float = 0.0,
+    extra_pairs: np.ndarray | None = None,
+    colours: int = len(PALETTE),
+) -> np.ndarray:
+    """Colour index per zone so that no two neighbouring zones share one.
+
+    `extra_pairs` adds declared adjacencies (index pairs), e.g. zones joined by a link.
+    """
+    geoms = np.asarray(geometries, dtype=object)
+    pairs = zone_neighbours(geoms, tolerance=tolerance)
+    if extra_pairs is not None and len(extra_pairs):
+        pairs = np.concatenate([pairs, np.asarray(extra_pairs, dtype=np.int64).reshape(-1, 2)])
+    return colour_graph(geoms.shape[0], pairs, colours=colours)

@@ -1,0 +1,124 @@
+"""Simulated annealing over single-unit moves (Openshaw & Rao 1995).
+
+A move that raises the bound breaks is never taken; one that lowers them always is; any
+other is taken by the Metropolis rule on the objective change at the current temperature.
+The temperature falls geometrically, one block of moves per temperature. The best
+labelling seen is kept (copied lazily: only when the search is about to leave it).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from zonedesign.search.kernels import (
+    EPS_BRK,
+    EPS_OBJ,
+    FV_BRK,
+    FV_TOTAL,
+    IV_NB,
+    apply_move,
+    donor_ok,
+    key_less,
+    move_values,
+    unit_links,
+)
+
+# slots of the int control array shared by the annealing and tabu kernels
+CT_CUR_BEST = 0  # 1 when the current labelling is the best seen
+CT_SAVED = 1  # 1 when best_labels holds the best seen
+CT_TRIED = 2
+CT_ACCEPTED = 3
+CT_CHANGED = 4  # accepted moves that changed breaks or objective
+CT_IMPROVED = 5  # times the best seen improved
+CT_NO_IMPROVE = 6  # tabu: iterations since the best improved
+CT_SIZE = 8
+
+
+@njit(cache=True)
+def sample_uphill(d, z, seed, nsamp):
+    """Mean objective rise over random moves that keep the breaks (0 when none rise)."""
+    np.random.seed(seed)
+    tot = 0.0
+    cnt = 0
+    for _ in range(nsamp):
+        nb = z.iv[IV_NB]
+        if nb == 0:
+            break
+        i = z.blist[np.random.randint(nb)]
+        a = z.labels[i]
+        la, nda, nt = unit_links(d, z, i, a)
+        if nt == 0 or z.size[a] <= 1:
+            continue
+        b = z.ztouch[np.random.randint(nt)]
+        ca, ka, cb, kb = move_values(d, z, i, a, b, la, z.zacc[b])
+        db = (ka + kb) - (z.brk[a] + z.brk[b])
+        do = (ca + cb) - (z.cost[a] + z.cost[b])
+        if db <= EPS_BRK and do > EPS_OBJ:
+            tot += do
+            cnt += 1
+    return tot / cnt if cnt > 0 else 0.0
+
+
+@njit(cache=True)
+def keep_best(z, db, do, best_labels, ctl, cti):
+    """Before leaving the current labelling: save it if it is the best seen and unsaved.
+
+    Returns True when the move (db, do) about to be made yields a new best.
+    """
+    newbest = key_less(z.fv[FV_BRK] + db, z.fv[FV_TOTAL] + do, ctl[0], ctl[1])
+    if cti[CT_CUR_BEST] == 1 and cti[CT_SAVED] == 0 and not newbest:
+        best_labels[:] = z.labels
+        cti[CT_SAVED] = 1
+    return newbest
+
+
+@njit(cache=True)
+def note_best(z, newbest, ctl, cti):
+    if newbest:
+        ctl[0] = z.fv[FV_BRK]
+        ctl[1] = z.fv[FV_TOTAL]
+        cti[CT_CUR_BEST] = 1
+        cti[CT_SAVED] = 0
+        cti[CT_IMPROVED] += 1
+    else:
+        cti[CT_CUR_BEST] = 0
+
+
+@njit(cache=True)
+def anneal_block(d, z, seed, temp, nmoves, best_labels, ctl, cti):
+    """nmoves Metropolis trials at temperature temp.
+
+    ctl: [best breaks, best total]; cti: control counters (CT_*); best_labels: (n,).
+    """
+    np.random.seed(seed)
+    for _ in range(nmoves):
+        nb = z.iv[IV_NB]
+        if nb == 0:
+            break
+        i = z.blist[np.random.randint(nb)]
+        a = z.labels[i]
+        if z.size[a] <= 1:
+            continue
+        la, nda, nt = unit_links(d, z, i, a)
+        if nt == 0:
+            continue
+        b = z.ztouch[np.random.randint(nt)]
+        lb = z.zacc[b]
+        ca, ka, cb, kb = move_values(d, z, i, a, b, la, lb)
+        db = (ka + kb) - (z.brk[a] + z.brk[b])
+        do = (ca + cb) - (z.cost[a] + z.cost[b])
+        cti[CT_TRIED] += 1
+        if db > EPS_BRK:
+            continue
+        if db >= -EPS_BRK and do > 0.0:
+            if temp <= 0.0 or np.random.random() >= np.exp(-do / temp):
+                continue
+        if not donor_ok(d, z, i):
+            continue
+        newbest = keep_best(z, db, do, best_labels, ctl, cti)
+        apply_move(d, z, i, b, la, lb)
+        cti[CT_ACCEPTED] += 1
+        if db < -EPS_BRK or abs(do) > EPS_OBJ:
+            cti[CT_CHANGED] += 1
+        note_best(z, newbest, ctl, cti)

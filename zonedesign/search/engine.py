@@ -1,0 +1,366 @@
+"""solve(): zone one problem (one fence of one tier) into contiguous zones within bounds.
+
+Phases:
+1. construction (skipped when `start` is given): `constructions` randomised region
+   growings; the best by (breaks, total) is kept;
+2. improvement: AZP descent to a local optimum, then a merge pass and a split pass, again
+   and again until neither changes anything;
+3. for "annealing" or "tabu": that search from the local optimum, back to its best
+   labelling seen, then phase 2 again. Phase 2 only ever improves, so the result is never
+   worse than the labelling the phase started from.
+
+Repeatability: every random choice comes from generators seeded by `seed`, and every
+phase stops on move or iteration budgets proportional to the number of units, so a seed
+gives the same labels on any machine and under any load. `time_limit` is only a safety
+cap, checked between compiled blocks; a run that reaches it says so in
+`info["stopped_by_time"]` and is the one case that may not repeat exactly.
+
+Stability: zones carry an anchor, the previous zone id they stand for. With `start` and
+`anchors` the anchors are those given; with `start` but no `anchors`, zone j of `start`
+stands for previous zone j (`anchors = arange(k)`); without `start` each constructed
+zone stands for the previous zone holding most of its units. A zone made by a split is a
+new zone (anchor -1); a merged zone keeps whichever of the two anchors costs less.
+A `start` zone that is not connected is split into its connected pieces first, every
+piece keeping the zone's anchor.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.sparse import csr_matrix
+from scipy.sparse.csgraph import connected_components
+
+from zonedesign import measures
+from zonedesign.errors import InputError
+from zonedesign.measures import Score
+from zonedesign.records import Problem
+from zonedesign.rules import METHODS, SearchRules
+from zonedesign.search import kernels as K
+from zonedesign.search.anneal import (
+    CT_ACCEPTED,
+    CT_CHANGED,
+    CT_CUR_BEST,
+    CT_IMPROVED,
+    CT_SIZE,
+    CT_TRIED,
+    anneal_block,
+    sample_uphill,
+)
+from zonedesign.search.azp import descent_sweep
+from zonedesign.search.construct import absorb_enclaves, grow_zones
+from zonedesign.search.mergesplit import FAR_ABOVE_TARGET, N_TREES, merge_pass, split_pass
+from zonedesign.search.state import ZoneState, full_score
+from zonedesign.search.tabu import tabu_block
+
+# budgets (the primary stop criteria; see the module docstring)
+MAX_SWEEPS = 1000  # descent sweeps per call (a sweep that moves nothing ends it sooner)
+MAX_ROUNDS = 50  # descent / merge / split rounds
+ANNEAL_MOVES_PER_TEMP = 2  # x n, when search_rules.moves_per_temperature is 0
+ANNEAL_BUDGET = 150  # x n trial moves at most
+ANNEAL_START_ACCEPT = 0.3  # share of average uphill moves taken at the first temperature
+ANNEAL_FROZEN = 3  # temperatures without a new best and with (almost) no change
+TABU_NO_IMPROVE = 1  # x n, when search_rules.max_no_improve is 0
+TABU_MAX_ITER = 5  # x max_no_improve
+TABU_SAMPLE = 48  # boundary units priced per iteration once there are more
+BLOCK = 256  # tabu iterations per compiled call (time checks between calls)
+MIN_WORK = 200  # floor of the per-unit budgets, for tiny problems
+
+
+@dataclass
+class Solution:
+    """labels 0..k-1 per unit; score from measures; anchors (k,) previous zone per zone."""
+
+    labels: np.ndarray
+    score: Score
+    info: dict = field(default_factory=dict)
+    anchors: np.ndarray | None = None
+
+
+class _Run:
+    """Seeds, clock and counters shared by the phases of one solve."""
+
+    def __init__(self, state: ZoneState, rules: SearchRules, seed: int, time_limit: float):
+        self.state = state
+        self.rules = rules
+        self.rng = np.random.default_rng(seed)
+        self.t0 = time.perf_counter()
+        self.deadline = self.t0 + float(time_limit)
+        self.info = {
+            "moves_tried": 0,
+            "moves_accepted": 0,
+            "merges": 0,
+            "splits": 0,
+            "rounds": 0,
+            "stopped_by_time": False,
+        }
+
+    def seed(self) -> int:
+        return int(self.rng.integers(0, 2**31 - 1))
+
+    def out_of_time(self) -> bool:
+        if time.perf_counter() > self.deadline:
+            self.info["stopped_by_time"] = True
+            return True
+        return False
+
+
+def solve(
+    problem: Problem,
+    *,
+    search_rules: SearchRules | None = None,
+    seed: int = 1,
+    time_limit: float = 10.0,
+    start: np.ndarray | None = None,
+    anchors: np.ndarray | None = None,
+    method: str | None = None,
+) -> Solution:
+    """Partition the problem's units into contiguous zones; breaks first, then the objective.
+
+    >>> sol = solve(problem, seed=3)            # doctest: +SKIP
+    >>> sol.labels, sol.score.breaks, sol.info["bounds_met"]   # doctest: +SKIP
+    """
+    rules = search_rules if search_rules is not None else SearchRules()
+    method = rules.method if method is None else method
+    if method not in METHODS:
+        raise InputError(f"search method {method!r} is not one of {', '.join(METHODS)}", where="search.method")
+    if not time_limit > 0:
+        raise InputError(f"time limit must be positive, got {time_limit}", where="search.time_limit_fence")
+    _check_problem(problem)
+    n = problem.n
+    t0 = time.perf_counter()
+    if n == 0:
+        empty = np.zeros(0, dtype=np.int64)
+        sc = Score(breaks=0.0, total=0.0, terms={t: 0.0 for t in measures.TERMS})
+        return Solution(empty, sc, {"method": method, "seconds": 0.0, "bounds_met": True}, empty)
+
+    state = ZoneState(problem)
+    run = _Run(state, rules, seed, time_limit)
+    info = run.info
+    info["method"] = method
+    if start is None:
+        labels, tried = _construct(run, max(1, int(rules.constructions)))
+        info["constructions"] = tried
+        zone_anchors = None
+        if problem.previous is not None:
+            k = int(labels.max()) + 1
+            zone_anchors = measures.anchors_by_overlap(np.asarray(problem.previous, dtype=np.int64), labels, k)
+    else:
+        labels, zone_anchors = _prepare_start(problem, start, anchors)
+        info["constructions"] = 0
+    info["construction_seconds"] = time.perf_counter() - t0
+    state.load(labels, zone_anchors)
+    info["start_key"] = list(state.key())
+
+    _improve(run)
+    if method == "annealing" and not run.out_of_time():
+        _anneal(run)
+        _improve(run)
+    elif method == "tabu" and not run.out_of_time():
+        _tabu(run)
+        _improve(run)
+
+    labels, zone_anchors = state.compact()
+    sc = full_score(problem, labels, zone_anchors if problem.previous is not None else None)
+    info["zones"] = int(labels.max()) + 1
+    info["bounds_met"] = bool(sc.breaks == 0.0)
+    info["seconds"] = time.perf_counter() - t0
+    return Solution(labels=labels, score=sc, info=info, anchors=zone_anchors)
+
+
+# ---------------------------------------------------------------- checks and starts
+
+
+def _check_problem(problem: Problem) -> None:
+    n = problem.n
+    c = len(problem.bounds.count_names)
+    counts = np.asarray(problem.counts)
+    if counts.size != n * c or (counts.ndim == 2 and counts.shape[0] != n):
+        raise InputError(f"counts have shape {counts.shape}, expected ({n}, {c})", where="problem.counts")
+    for name in ("weight", "area", "perimeter"):
+        arr = np.asarray(getattr(problem, name))
+        if arr.shape != (n,):
+            raise InputError(f"{name} has shape {arr.shape}, expected ({n},)", where=f"problem.{name}")
+    if problem.previous is not None and np.asarray(problem.previous).shape != (n,):
+        raise InputError(f"previous has shape {np.asarray(problem.previous).shape}, expected ({n},)", where="problem.previous")
+    if problem.homogeneity not in ("ssd", "pairwise"):
+        raise InputError(f"homogeneity {problem.homogeneity!r} is not 'ssd' or 'pairwise'", where="problem.homogeneity")
+    if problem.compactness not in ("polsby", "cut"):
+        raise InputError(f"compactness {problem.compactness!r} is not 'polsby' or 'cut'", where="problem.compactness")
+
+
+def _prepare_start(problem: Problem, start: np.ndarray, anchors: np.ndarray | None) -> tuple[np.ndarray, np.ndarray | None]:
+    """Start labels as slots 0..k-1 with connected zones, and their anchors."""
+    n = problem.n
+    start = np.asarray(start)
+    if start.shape != (n,):
+        raise InputError(f"start labels have shape {start.shape}, expected ({n},)", where="start")
+    if not np.issubdtype(start.dtype, np.integer) or (start.size and start.min() < 0):
+        raise InputError("start labels must be integers 0..k-1", where="start")
+    start = start.astype(np.int64)
+    k_given = int(start.max()) + 1
+    if anchors is not None:
+        anchors = np.asarray(anchors, dtype=np.int64)
+        if anchors.shape != (k_given,):
+            raise InputError(f"anchors have shape {anchors.shape}, expected ({k_given},) for labels 0..{k_given - 1}", where="anchors")
+    elif problem.previous is not None:
+        anchors = np.arange(k_given, dtype=np.int64)
+    labels, k = measures.compact_labels(start)
+    if anchors is not None:
+        order = np.full(k, -1, dtype=np.int64)
+        order[labels] = anchors[start]
+        anchors = order
+    # a zone in pieces: each connected piece becomes its own zone with the zone's anchor
+    g = problem.graph
+    rows = np.repeat(np.arange(n), np.diff(g.indptr))
+    same = labels[rows] == labels[g.indices]
+    m = csr_matrix((np.ones(int(same.sum())), (rows[same], g.indices[same])), shape=(n, n))
+    _, piece = connected_components(m, directed=False)
+    if int(piece.max()) + 1 > k:
+        pieces, kp = measures.compact_labels(piece)
+        if anchors is not None:
+            out = np.full(kp, -1, dtype=np.int64)
+            out[pieces] = anchors[labels]
+            anchors = out
+        labels = pieces
+    return labels, anchors
+
+
+# ---------------------------------------------------------------- phases
+
+
+def _construct(run: _Run, rounds: int) -> tuple[np.ndarray, int]:
+    """Best of `rounds` region growings by (breaks, total); returns (labels, tried)."""
+    state = run.state
+    d, z = state.data, state.zones
+    tw = state.problem.term_weights
+    alpha = 1.0 if tw.get("homogeneity", 0.0) > 0 else 0.0
+    beta = 1.0 if tw.get("compactness", 0.0) > 0 or alpha == 0.0 else 0.0
+    n = state.problem.n
+    labels = np.empty(n, dtype=np.int64)
+    best = None
+    best_key = None
+    tried = 0
+    for _ in range(rounds):
+        grow_zones(d, run.seed(), alpha, beta, labels)
+        state.load(labels)
+        absorb_enclaves(d, z, run.seed())
+        tried += 1
+        state.resync()
+        key = state.key()
+        if best is None or K.key_less(key[0], key[1], best_key[0], best_key[1]):
+            best = state.compact()[0]
+            best_key = key
+        if run.out_of_time():
+            break
+    return best, tried
+
+
+def _descent(run: _Run) -> None:
+    d, z = run.state.data, run.state.zones
+    order = np.empty(run.state.problem.n, dtype=np.int64)
+    stats = np.zeros(2, dtype=np.int64)
+    for _ in range(MAX_SWEEPS):
+        if descent_sweep(d, z, run.seed(), order, stats) == 0 or run.out_of_time():
+            break
+    run.info["moves_tried"] += int(stats[0])
+    run.info["moves_accepted"] += int(stats[1])
+
+
+def _improve(run: _Run) -> None:
+    """Descent, merges and splits until none of them changes anything."""
+    d, z = run.state.data, run.state.zones
+    changed = 1
+    for _ in range(MAX_ROUNDS):
+        run.state.resync()
+        _descent(run)
+        changed = 0
+        run.info["rounds"] += 1
+        if run.out_of_time():
+            return
+        m = int(merge_pass(d, z, run.seed()))
+        s = int(split_pass(d, z, run.seed(), N_TREES, FAR_ABOVE_TARGET))
+        run.info["merges"] += m
+        run.info["splits"] += s
+        changed = m + s
+        if changed == 0:
+            break
+    if changed:
+        run.state.resync()
+        _descent(run)
+
+
+def _search_control(state: ZoneState) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    brk, tot = state.running_key()
+    ctl = np.array([brk, tot, 0.0, 0.0])
+    cti = np.zeros(CT_SIZE, dtype=np.int64)
+    cti[CT_CUR_BEST] = 1
+    return state.labels(), ctl, cti
+
+
+def _back_to_best(run: _Run, best: np.ndarray, cti: np.ndarray) -> None:
+    run.info["moves_tried"] += int(cti[CT_TRIED])
+    run.info["moves_accepted"] += int(cti[CT_ACCEPTED])
+    state = run.state
+    if cti[CT_CUR_BEST] == 1:
+        state.resync()
+    else:
+        # moves never empty a zone, so the slots and their anchors are still those of best
+        state.load(best, state.zones.anchor.copy())
+
+
+def _anneal(run: _Run) -> None:
+    """Simulated annealing from the current labelling; ends on the best labelling seen."""
+    state = run.state
+    d, z = state.data, state.zones
+    n = state.problem.n
+    best, ctl, cti = _search_control(state)
+    uphill = float(sample_uphill(d, z, run.seed(), max(MIN_WORK, min(20 * n, 5000))))
+    if uphill <= 0.0:
+        return
+    temp = uphill / -math.log(ANNEAL_START_ACCEPT)
+    cooling = float(run.rules.cooling)
+    per_temp = int(run.rules.moves_per_temperature) or max(MIN_WORK, ANNEAL_MOVES_PER_TEMP * n)
+    budget = max(100 * MIN_WORK, ANNEAL_BUDGET * n)
+    done = 0
+    frozen = 0
+    temps = 0
+    while done < budget and not run.out_of_time():
+        block = min(per_temp, budget - done)
+        changed0, improved0 = cti[CT_CHANGED], cti[CT_IMPROVED]
+        anneal_block(d, z, run.seed(), temp, block, best, ctl, cti)
+        done += block
+        temps += 1
+        quiet = cti[CT_CHANGED] - changed0 <= block // 500 and cti[CT_IMPROVED] == improved0
+        frozen = frozen + 1 if quiet else 0
+        if frozen >= ANNEAL_FROZEN:
+            break
+        temp *= cooling
+    run.info["temperatures"] = temps
+    _back_to_best(run, best, cti)
+
+
+def _tabu(run: _Run) -> None:
+    """Tabu search from the current labelling; ends on the best labelling seen."""
+    state = run.state
+    d, z = state.data, state.zones
+    n = state.problem.n
+    best, ctl, cti = _search_control(state)
+    no_improve = int(run.rules.max_no_improve) or max(MIN_WORK, TABU_NO_IMPROVE * n)
+    max_iter = TABU_MAX_ITER * no_improve
+    tabu_zone = np.full(n, -1, dtype=np.int64)
+    tabu_until = np.zeros(n, dtype=np.int64)
+    tenure = int(run.rules.tenure)
+    it = 0
+    while 0 <= it < max_iter and not run.out_of_time():
+        block = min(BLOCK, max_iter - it)
+        it = int(
+            tabu_block(
+                d, z, run.seed(), it, block, TABU_SAMPLE, tenure, no_improve, tabu_zone, tabu_until, best, ctl, cti
+            )
+        )
+    run.info["tabu_iterations"] = int(cti[CT_ACCEPTED])
+    _back_to_best(run, best, cti)

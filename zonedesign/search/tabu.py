@@ -1,0 +1,109 @@
+"""Tabu search over single-unit moves (Openshaw & Rao 1995).
+
+Each iteration prices the moves of the boundary units (all of them while they are few, a
+random sample otherwise) and makes the best admissible one even when it worsens the
+objective. A move is admissible when it keeps the donor zone non-empty and connected,
+does not raise the bound breaks, and is not tabu: moving a unit back into the zone it
+left is tabu for `tenure` iterations, unless the move beats the best labelling seen
+(aspiration). The best labelling seen is kept.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from zonedesign.search.anneal import (
+    CT_ACCEPTED,
+    CT_NO_IMPROVE,
+    CT_TRIED,
+    keep_best,
+    note_best,
+)
+from zonedesign.search.kernels import (
+    EPS_BRK,
+    FV_BRK,
+    FV_TOTAL,
+    IV_NB,
+    apply_move,
+    dist_to_zone,
+    donor_ok,
+    key_less,
+    unit_links,
+    value_with,
+)
+
+
+@njit(cache=True)
+def tabu_block(
+    d, z, seed, it0, niter, sample, tenure, max_no_improve, tabu_zone, tabu_until, best_labels, ctl, cti
+):
+    """Run iterations it0 .. it0+niter-1; returns the next iteration, or -1 when stopped.
+
+    Stops (returns -1) when no admissible move remains or after max_no_improve iterations
+    without a new best. tabu_zone / tabu_until: (n,) the zone each unit may not re-enter
+    and the iteration that ban ends.
+    """
+    np.random.seed(seed)
+    pairwise = d.kind[0] == 1 and d.coef[1] != 0.0
+    for it in range(it0, it0 + niter):
+        nb = z.iv[IV_NB]
+        if nb == 0:
+            return -1
+        full = nb <= sample
+        cnt = nb if full else sample
+        bi = -1
+        bb = -1
+        bdb = 0.0
+        bdo = 0.0
+        bla = 0.0
+        blb = 0.0
+        for s in range(cnt):
+            i = z.blist[s] if full else z.blist[np.random.randint(nb)]
+            a = z.labels[i]
+            if z.size[a] <= 1:
+                continue
+            la, nda, nt = unit_links(d, z, i, a)
+            ha = dist_to_zone(d, z, i, a) if pairwise else 0.0
+            ca, ka = value_with(d, z, a, i, -1.0, la, ha)
+            conn = -1
+            for q in range(nt):
+                b = z.ztouch[q]
+                hb = dist_to_zone(d, z, i, b) if pairwise else 0.0
+                cb, kb = value_with(d, z, b, i, 1.0, z.zacc[b], hb)
+                db = (ka + kb) - (z.brk[a] + z.brk[b])
+                do = (ca + cb) - (z.cost[a] + z.cost[b])
+                cti[CT_TRIED] += 1
+                if db > EPS_BRK:
+                    continue
+                if bi >= 0 and not key_less(db, do, bdb, bdo):
+                    continue
+                if tabu_zone[i] == b and it < tabu_until[i]:
+                    if not key_less(z.fv[FV_BRK] + db, z.fv[FV_TOTAL] + do, ctl[0], ctl[1]):
+                        continue
+                if conn < 0:
+                    conn = 1 if donor_ok(d, z, i) else 0
+                if conn == 0:
+                    break
+                bi = i
+                bb = b
+                bdb = db
+                bdo = do
+                bla = la
+                blb = z.zacc[b]
+        if bi < 0:
+            return -1
+        a = z.labels[bi]
+        newbest = keep_best(z, bdb, bdo, best_labels, ctl, cti)
+        apply_move(d, z, bi, bb, bla, blb)
+        cti[CT_ACCEPTED] += 1
+        tabu_zone[bi] = a
+        tabu_until[bi] = it + tenure
+        note_best(z, newbest, ctl, cti)
+        if newbest:
+            cti[CT_NO_IMPROVE] = 0
+        else:
+            cti[CT_NO_IMPROVE] += 1
+            if cti[CT_NO_IMPROVE] >= max_no_improve:
+                return -1
+    return it0 + niter

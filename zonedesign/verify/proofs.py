@@ -1,0 +1,310 @@
+"""Proofs that a fence cannot be zoned within a tier's bounds at all.
+
+`prove_infeasible` tries plain arithmetic first, because its proofs read as one sentence:
+
+- the fence's total lies below the floor ("no valid zone exists");
+- one unit alone lies above the ceiling (no zone can hold it);
+- an island (a connected component of the fence's graph, which no zone can leave) has a
+  total below the floor, or between k ceilings and k+1 floors (too big for k zones, too
+  small for k+1);
+- two counts admit no common number of zones (each count allows k zones only when
+  k * floor <= total <= k * ceiling).
+
+When arithmetic finds nothing, a CP-SAT model of the fence's free zoning (at most K zones,
+K from the total over the floor; flow contiguity rooted at each zone's first unit; bounds)
+decides: INFEASIBLE is the proof, a solution means no proof exists, and a time-out is
+stated as "too large to prove", never passed over in silence.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from ortools.sat.python import cp_model
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+
+from zonedesign.records import Problem
+from zonedesign.verify.certificate import STATUS, integer_scale
+
+
+@dataclass(frozen=True)
+class Proof:
+    """A plain-words reason why no valid zoning exists, or a stated failure to decide.
+
+    kind: "arithmetic" or "cp-sat"; status: "INFEASIBLE" (proven) or "UNKNOWN" (the
+    solver ran out of time: the text says the fence is too large to prove).
+    """
+
+    fence: str
+    tier: str
+    kind: str
+    text: str
+    figures: dict = field(default_factory=dict)
+    status: str = "INFEASIBLE"
+    seconds: float = 0.0
+
+    @property
+    def proven(self) -> bool:
+        return self.status == "INFEASIBLE"
+
+
+def _fmt(x: float) -> str:
+    x = float(x)
+    return f"{int(round(x)):,}" if x == round(x) else f"{x:,.6g}"
+
+
+_NUMBER_WORDS = {1: "one", 2: "two", 3: "three", 4: "four", 5: "five", 6: "six", 7: "seven", 8: "eight", 9: "nine"}
+
+
+def _n(k: int) -> str:
+    return _NUMBER_WORDS.get(k, str(k))
+
+
+def zone_count_range(total: float, lo: float, hi: float) -> tuple[int, float]:
+    """The numbers of zones k with k*lo <= total <= k*hi: (smallest, largest), inf when open."""
+    lo = max(lo, 0.0) if np.isfinite(lo) else 0.0
+    kmin = 1 if not np.isfinite(hi) or hi <= 0 else max(1, math.ceil(total / hi - 1e-9))
+    kmax = math.inf if lo <= 0 else math.floor(total / lo + 1e-9)
+    return kmin, kmax
+
+
+def _why_no_count(where: str, total: float, name: str, lo: float, hi: float) -> tuple[str, dict] | None:
+    """Plain words for a total that no number of zones can carry, or None."""
+    kmin, kmax = zone_count_range(total, lo, hi)
+    if kmin <= kmax:
+        return None
+    figures = {"count": name, "total": float(total), "floor": float(lo), "ceiling": float(hi)}
+    if total < lo:
+        return (
+            f"{where} has {_fmt(total)} {name}; the tier floor is {_fmt(lo)}, so no valid zone exists",
+            figures,
+        )
+    k = kmin - 1  # k*hi < total < (k+1)*lo
+    figures["zones_too_few"] = k
+    ceiling = f"the ceiling is {_fmt(hi)}" if k == 1 else f"{_n(k)} ceilings of {_fmt(hi)} make {_fmt(k * hi)}"
+    return (
+        f"{where} has {_fmt(total)} {name}: too many for {_n(k)} zone{'s' if k > 1 else ''} "
+        f"({ceiling}) and too few for {_n(k + 1)} ({_n(k + 1)} floors of {_fmt(lo)} make "
+        f"{_fmt((k + 1) * lo)}), so no valid zoning exists",
+        figures,
+    )
+
+
+def arithmetic_proof(
+    problem: Problem, fence: str = "", tier: str = "", *, unit_ids: Sequence[str] | None = None
+) -> Proof | None:
+    """The first arithmetic reason why the fence cannot be zoned, or None."""
+    start = time.perf_counter()
+    b = problem.bounds
+    counts = np.asarray(problem.counts, dtype=np.float64).reshape(problem.n, -1)
+    names = b.count_names
+    ids = [str(u) for u in unit_ids] if unit_ids is not None else [f"unit {i}" for i in range(problem.n)]
+    label = f"fence {fence}" if fence else "the fence"
+
+    def found(text: str, figures: dict) -> Proof:
+        return Proof(fence, tier, "arithmetic", text, figures, "INFEASIBLE", time.perf_counter() - start)
+
+    totals = counts.sum(axis=0)
+    for c, name in enumerate(names):
+        why = _why_no_count(label, totals[c], name, b.lo[c], b.hi[c])
+        if why:
+            return found(*why)
+    for c, name in enumerate(names):
+        if np.isfinite(b.hi[c]):
+            big = np.flatnonzero(counts[:, c] > b.hi[c])
+            if big.size:
+                i = int(big[0])
+                text = (
+                    f"{ids[i]} alone has {_fmt(counts[i, c])} {name}, above the tier ceiling of "
+                    f"{_fmt(b.hi[c])}; no zone can hold it"
+                )
+                return found(
+                    text, {"count": name, "unit": ids[i], "value": float(counts[i, c]), "ceiling": float(b.hi[c])}
+                )
+    i, j, _ = problem.graph.edges()
+    adj = coo_matrix((np.ones(i.size), (i, j)), shape=(problem.n, problem.n))
+    n_comp, comp = connected_components(adj, directed=False)
+    if n_comp > 1:
+        for p in range(n_comp):
+            members = np.flatnonzero(comp == p)
+            where = (
+                f"the island of {len(members)} unit{'s' if len(members) > 1 else ''} in {label} "
+                f"(first: {', '.join(ids[m] for m in members[:3])})"
+            )
+            for c, name in enumerate(names):
+                why = _why_no_count(where, counts[members, c].sum(), name, b.lo[c], b.hi[c])
+                if why:
+                    text, figures = why
+                    figures.update(island_units=len(members), island=[ids[m] for m in members[:10]])
+                    return found(text + "; zones cannot leave the island", figures)
+    groups = [np.arange(problem.n)] if n_comp == 1 else [np.flatnonzero(comp == p) for p in range(n_comp)]
+    for members in groups:
+        ranges = {
+            name: zone_count_range(counts[members, c].sum(), b.lo[c], b.hi[c]) for c, name in enumerate(names)
+        }
+        kmin = max(r[0] for r in ranges.values()) if ranges else 1
+        kmax = min(r[1] for r in ranges.values()) if ranges else math.inf
+        if kmin > kmax:
+            where = label if len(groups) == 1 else f"the island of {len(members)} units in {label}"
+            parts = [
+                f"{name} allow {r[0]} to {r[1]} zones" if np.isfinite(r[1])
+                else f"{name} allow {r[0]} or more zones"
+                for name, r in ranges.items()
+            ]
+            text = f"{where}: {'; '.join(parts)}; no number of zones meets every count's bounds"
+            figures = {"zone_ranges": {k: [v[0], v[1] if np.isfinite(v[1]) else None] for k, v in ranges.items()}}
+            return found(text, figures)
+    return None
+
+
+def prove_infeasible(
+    problem: Problem,
+    fence: str = "",
+    tier: str = "",
+    time_limit: float = 10.0,
+    *,
+    unit_ids: Sequence[str] | None = None,
+    workers: int = 1,
+) -> Proof | None:
+    """A proof that no contiguous zoning of the fence meets the tier's bounds, or None.
+
+    Returns None when a valid zoning exists (the solver found one), a Proof with status
+    "INFEASIBLE" when none exists, and a Proof with status "UNKNOWN" stating that the fence
+    is too large to prove when the time limit ran out first.
+
+    >>> proof = prove_infeasible(problem, "D7", "block", time_limit=5)
+    >>> proof.text if proof else "a valid zoning exists"
+    """
+    proof = arithmetic_proof(problem, fence, tier, unit_ids=unit_ids)
+    if proof is not None:
+        return proof
+    return _cp_sat_proof(problem, fence, tier, time_limit, workers)
+
+
+def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, workers: int) -> Proof | None:
+    start = time.perf_counter()
+    n = problem.n
+    if n == 0:
+        return None
+    b = problem.bounds
+    counts_f = np.asarray(problem.counts, dtype=np.float64).reshape(n, -1)
+    scale = integer_scale(counts_f)
+    counts = np.round(counts_f * scale).astype(np.int64)
+    totals = counts_f.sum(axis=0)
+    kmin, kmax = 1, n
+    for c in range(len(b.count_names)):
+        lo_k, hi_k = zone_count_range(totals[c], b.lo[c], b.hi[c])
+        kmin, kmax = max(kmin, lo_k), min(kmax, hi_k)
+    K = int(kmax)
+    label = f"fence {fence}" if fence else "the fence"
+    i_e, j_e, _ = problem.graph.edges()
+    edges = list(zip(i_e.tolist(), j_e.tolist()))
+
+    m = cp_model.CpModel()
+    # zones are numbered by their first unit, so unit i can only be in zones 0..i
+    x = {(i, z): m.NewBoolVar(f"x_{i}_{z}") for i in range(n) for z in range(min(i, K - 1) + 1)}
+    cand = [list(range(min(i, K - 1) + 1)) for i in range(n)]
+
+    # coverage: every unit lies in exactly one zone
+    for i in range(n):
+        m.AddExactlyOne([x[i, z] for z in cand[i]])
+
+    # opened[i, z]: zone z has a unit among 0..i
+    opened: dict[tuple[int, int], cp_model.IntVar] = {}
+    for z in range(K):
+        prev = None
+        for i in range(z, n):
+            o = m.NewBoolVar(f"o_{i}_{z}")
+            if prev is None:
+                m.Add(o == x[i, z])
+            else:
+                m.AddMaxEquality(o, [prev, x[i, z]])
+            opened[i, z] = o
+            prev = o
+
+    # order: a unit opens zone z only after zone z-1 has been opened by an earlier unit
+    for (i, z), var in x.items():
+        if z >= 1:
+            m.AddImplication(var, opened[i - 1, z - 1])
+
+    # roots: a zone's first unit is its root
+    root: dict[tuple[int, int], cp_model.IntVar] = {}
+    for (i, z), var in x.items():
+        if (i - 1, z) in opened:
+            rv = m.NewBoolVar(f"r_{i}_{z}")
+            m.AddBoolAnd([var, opened[i - 1, z].Not()]).OnlyEnforceIf(rv)
+            m.AddBoolOr([var.Not(), opened[i - 1, z], rv])
+            root[i, z] = rv
+        else:
+            root[i, z] = var
+    used = [opened[n - 1, z] for z in range(K)]
+
+    # bounds: a used zone's counts lie within [min, max]; an unused zone is empty
+    for c in range(len(b.count_names)):
+        lo = math.ceil(b.lo[c] * scale - 1e-9) if np.isfinite(b.lo[c]) else None
+        hi = math.floor(b.hi[c] * scale + 1e-9) if np.isfinite(b.hi[c]) else None
+        for z in range(K):
+            total = sum(int(counts[i, c]) * x[i, z] for i in range(z, n))
+            if lo is not None:
+                m.Add(total >= lo * used[z])
+            if hi is not None:
+                m.Add(total <= hi * used[z])
+
+    # zone count: arithmetic already bounds it from below
+    m.Add(sum(used) >= kmin)
+
+    # contiguity, same-zone indicator per edge: flow may run only inside one zone
+    y = []
+    for e, (a, c) in enumerate(edges):
+        ye = m.NewBoolVar(f"y_{e}")
+        cc = set(cand[c])
+        for z in cand[a]:
+            if z in cc:
+                m.AddBoolOr([ye.Not(), x[a, z].Not(), x[c, z]])
+            else:
+                m.AddBoolOr([ye.Not(), x[a, z].Not()])
+        ca = set(cand[a])
+        for z in cand[c]:
+            if z not in ca:
+                m.AddBoolOr([ye.Not(), x[c, z].Not()])
+        y.append(ye)
+
+    # contiguity, flow: every non-root unit takes in at least one unit of flow from its zone
+    cap = n - 1
+    inflow: list[list] = [[] for _ in range(n)]
+    outflow: list[list] = [[] for _ in range(n)]
+    for e, (a, c) in enumerate(edges):
+        for s, t in ((a, c), (c, a)):
+            fl = m.NewIntVar(0, cap, f"f_{s}_{t}")
+            m.Add(fl <= cap * y[e])
+            outflow[s].append(fl)
+            inflow[t].append(fl)
+    for i in range(n):
+        is_root = sum(root[i, z] for z in cand[i])
+        m.Add(sum(inflow[i]) - sum(outflow[i]) >= 1 - (cap + 1) * is_root)
+
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = float(time_limit)
+    solver.parameters.num_workers = int(workers)
+    status = STATUS.get(solver.Solve(m), "UNKNOWN")
+    seconds = time.perf_counter() - start
+    figures = {"units": n, "max_zones": K, "min_zones": kmin, "time_limit": time_limit}
+    if status == "INFEASIBLE":
+        text = (
+            f"{label} cannot be divided into contiguous zones that meet the tier's bounds: CP-SAT "
+            f"proved that no division of its {n} units into {kmin} to {K} zones works "
+            f"(in {seconds:.2f} s)"
+        )
+        return Proof(fence, tier, "cp-sat", text, figures, "INFEASIBLE", seconds)
+    if status in ("OPTIMAL", "FEASIBLE"):
+        return None
+    text = (
+        f"{label} is too large to prove within {time_limit:g} s: CP-SAT neither found a valid "
+        f"zoning of its {n} units into {kmin} to {K} zones nor proved that none exists"
+    )
+    return Proof(fence, tier, "cp-sat", text, figures, "UNKNOWN", seconds)
