@@ -635,3 +635,198 @@ def sweep(
 
                 write_report(tmp / "report.html", summary=summary, tables={}, layers={}, sweep=table, sweep_charts=pngs)
     return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=summary["exit_code"])
+
+
+# ---------------------------------------------------------------- audit
+
+
+def audit(
+    areas_path: str | Path,
+    rules: str | Path | Rules,
+    out: str | Path | None,
+    *,
+    lookup: str | Path | None = None,
+    tiers_from: str | Path | None = None,
+    tolerance: float = 0.01,
+    repair: bool = False,
+    layer: str | None = None,
+    crs: str | None = None,
+    overwrite: bool = False,
+    certify: bool = True,
+    report: bool = True,
+    progress: Progress | None = None,
+) -> RunResult:
+    """Check any hierarchy with the independent checker; exit code 1 when a rule is broken."""
+    from zonedesign.verify.checks import audit as run_audit
+
+    t_start = time.perf_counter()
+    if (lookup is None) == (tiers_from is None):
+        raise InputError("audit needs exactly one of --lookup or --tiers-from")
+    if not 0 <= tolerance < 0.5:
+        raise InputError(f"--tolerance must be in [0, 0.5), not {tolerance}")
+    if out is not None:
+        _check_out(Path(out), overwrite)
+    prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
+    prep.inputs.append(Path(lookup or tiers_from))
+    if out is not None:
+        _check_out(Path(out), overwrite, prep.inputs)
+    names = [t.name for t in prep.rules.tiers]
+    tiers = list(prep.rules.tiers)
+    overlay_flags: list = []
+    if lookup is not None:
+        labels, problems = lookup_labels(lookup, prep, names)
+    else:
+        labels, overlay_flags = layer_labels(tiers_from, prep, names, tolerance)
+        problems = []
+    seconds = dict(prep.seconds)
+    t0 = time.perf_counter()
+    _say(progress, "checking coverage, nesting, contiguity, fences and bounds")
+    checked = run_audit(prep.areas, prep.graph, labels, tiers, lookup_problems=problems)
+    summary = base_summary(prep, "audit")
+    summary["audit"] = _jsonable(checked.to_json())
+    summary["audit"]["source"] = str(lookup or tiers_from)
+    if tiers_from is not None:
+        summary["audit"]["overlay"] = {"tolerance_share": tolerance, "flags": _jsonable(overlay_flags)}
+    certs = []
+    if certify:
+        from zonedesign.verify.certificate import certify as run_certify
+
+        _say(progress, "building the CP-SAT certificate per fence and tier")
+        certs = run_certify(prep.areas, prep.graph, labels, tiers)
+        summary["certificate"] = [_jsonable(c) for c in certs]
+    seconds["audit"] = time.perf_counter() - t0
+    repaired = None
+    moves = None
+    if repair and not checked.ok:
+        from zonedesign.verify.repair import minimal_repair
+
+        t0 = time.perf_counter()
+        _say(progress, "searching for the fewest area moves that mend every break")
+        res = minimal_repair(prep.areas, prep.graph, labels, tiers, time_limit=60.0)
+        moves = res.repair_frame()
+        repaired = res.labels
+        recheck = run_audit(prep.areas, prep.graph, repaired, tiers) if repaired is not None else None
+        summary["repair"] = {
+            "status": res.status,
+            "moves": int(len(moves)),
+            "repaired_lookup_passes": bool(recheck.ok) if recheck is not None else False,
+        }
+        seconds["repair"] = time.perf_counter() - t0
+    tables = {}
+    if all(_complete(labels[n]) for n in names):
+        from zonedesign.zonetables import all_tables
+
+        tables = all_tables(prep.areas, prep.graph, labels, tiers)
+    rc = 0 if checked.ok and not overlay_flags else 1
+    summary["exit_code"] = rc
+    if out is not None:
+        from zonedesign.io.lookup import write_lookup
+        from zonedesign.io.output import atomic_output, write_json
+
+        with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
+            write_json(tmp / "audit.json", summary["audit"])
+            checked.violations_frame().to_csv(tmp / "violations.csv", index=False, lineterminator="\n")
+            if certify:
+                write_json(tmp / "certificate.json", summary["certificate"])
+            if moves is not None:
+                moves.to_csv(tmp / "repair.csv", index=False, lineterminator="\n")
+                if repaired is not None:
+                    write_lookup(tmp / "lookup.repaired.csv", prep.areas.ids, repaired)
+            layers = {}
+            if report and tables:
+                from zonedesign.dissolve import zone_layers
+
+                layers = zone_layers(prep.geometry, labels, tables)
+            seconds["total"] = time.perf_counter() - t_start
+            summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
+            if report:
+                from zonedesign.report.html import write_report
+
+                write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers)
+            write_json(tmp / "summary.json", summary)
+    return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=rc, lookup=labels)
+
+
+def _complete(values: np.ndarray) -> bool:
+    arr = np.asarray(values, dtype=object)
+    return bool(all(isinstance(v, str) and v != "" for v in arr))
+
+
+def lookup_labels(path: str | Path, prep: Prepared, names: list[str]) -> tuple[dict[str, np.ndarray], list]:
+    """Zone ids per area from a lookup file, with its id problems kept for the audit."""
+    from zonedesign.io.lookup import read_lookup
+
+    frame, problems = read_lookup(path, prep.areas.ids, names, strict=False)
+    labels = {}
+    for n in names:
+        col = frame[n].to_numpy(dtype=object) if n in frame else np.full(prep.areas.n, None, dtype=object)
+        labels[n] = np.array([None if (v is None or (isinstance(v, float) and np.isnan(v))) else str(v) for v in col], dtype=object)
+    return labels, list(problems)
+
+
+def layer_labels(path: str | Path, prep: Prepared, names: list[str], tolerance: float) -> tuple[dict[str, np.ndarray], list]:
+    """Zone ids per area derived by overlay from one polygon layer per tier."""
+    import pyogrio
+
+    from zonedesign.verify.overlay import zones_from_layers
+
+    available = [name for name, _ in pyogrio.list_layers(path)]
+    missing = [n for n in names if n not in available]
+    if missing:
+        raise InputError(f"{path}: no layer for tier(s) {', '.join(missing)}; layers here: {', '.join(available)}")
+    layers = {}
+    for n in names:
+        gdf = pyogrio.read_dataframe(path, layer=n)
+        if gdf.crs is not None and prep.geometry.crs is not None and gdf.crs != prep.geometry.crs:
+            gdf = gdf.to_crs(prep.geometry.crs)
+        if "zone" not in gdf.columns:
+            raise InputError(f"{path}: layer {n!r} has no 'zone' column")
+        layers[n] = gdf
+    labels, flags = zones_from_layers(prep.geometry, prep.areas.ids, layers, "zone", tolerance_share=tolerance)
+    return labels, list(flags)
+
+
+# ---------------------------------------------------------------- the later-count demo
+
+
+def later_scenario(
+    input_dir: Path,
+    out: str | Path,
+    *,
+    overwrite: bool = False,
+    executor: str = "local",
+    workers: int = 1,
+    scheduler: str | None = None,
+    report: bool = True,
+    progress: Progress | None = None,
+    extra_files: Mapping[str, Path] | None = None,
+    written: Any = None,
+) -> RunResult:
+    """Design the demo region, redraw it on the counts ten years on, audit the redraw.
+
+    OUT/design/ holds the first hierarchy; OUT/ itself holds the redraw (lookup.csv,
+    changes.csv, summary.json with the independent audit and certificate, report.html).
+    """
+    import shutil
+    import tempfile
+
+    areas = input_dir / "areas.gpkg"
+    later = input_dir / "areas.later.gpkg"
+    rules = input_dir / "rules.toml"
+    work = Path(tempfile.mkdtemp(prefix=".zonedesign-later-", dir=Path(out).resolve().parent))
+    try:
+        _say(progress, "designing the first hierarchy")
+        first = design(areas, rules, work / "design", executor=executor, workers=workers,
+                       scheduler=scheduler, report=report, progress=progress)
+        files = dict(extra_files or {})
+        for p in sorted((work / "design").rglob("*")):
+            if p.is_file():
+                files[f"design/{p.relative_to(work / 'design')}"] = p
+        _say(progress, "redrawing on the later counts")
+        res = redraw(later, rules, work / "design" / "lookup.csv", out, overwrite=overwrite,
+                     executor=executor, workers=workers, scheduler=scheduler, report=report,
+                     progress=progress, extra_files=files)
+        res.summary["first_design_exit_code"] = first.exit_code
+        return res
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
