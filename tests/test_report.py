@@ -1,6 +1,6 @@
 """The HTML report read as a document: caution, maps, links, tables, no fetches.
 
-Runs are invented (tests/report_synthetic.py); the HTML is read back with the standard
+Runs are invented (tests/report_support.py); the HTML is read back with the standard
 library's html.parser, a parser independent of the code that writes it.
 """
 
@@ -9,82 +9,15 @@ from __future__ import annotations
 import base64
 import io
 import re
-from html.parser import HTMLParser
 
 import numpy as np
 import pandas as pd
 import pytest
-from report_synthetic import grid_run
+from report_support import Page, grid_run
 
 from zonedesign.report.charts import limits_from_rules
 from zonedesign.report.html import DEFAULT_CAUTION, render_report, write_report
 from zonedesign.report.svgmap import element_id
-
-
-class Page(HTMLParser):
-    """Ids, links, zone paths, headings, tables and fetchable attributes of a page."""
-
-    def __init__(self, text: str) -> None:
-        super().__init__(convert_charrefs=True)
-        self.ids: list[str] = []
-        self.stack: list[tuple[str, dict]] = []
-        self.zone_paths: list[dict] = []
-        self.headings: list[int] = []
-        self.violation_links: list[str] = []
-        self.violation_rows = 0
-        self.tables: list[dict] = []
-        self.fetchable: list[str] = []
-        self.html_lang = None
-        self.text_before_h2 = ""
-        self.seen_h2 = False
-        self.feed(text)
-
-    def handle_starttag(self, tag, attrs):
-        a = dict(attrs)
-        if tag == "html":
-            self.html_lang = a.get("lang")
-        if "id" in a:
-            self.ids.append(a["id"])
-        for key in ("src", "href", "xlink:href", "action", "poster", "srcset"):
-            if key in a and not a[key].startswith(("#", "data:")):
-                self.fetchable.append(a[key])
-        if re.fullmatch(r"h[1-6]", tag):
-            self.headings.append(int(tag[1]))
-            self.seen_h2 = self.seen_h2 or tag == "h2"
-        if tag == "path" and "zone" in a.get("class", "").split():
-            svg = next((x for t, x in reversed(self.stack) if t == "svg"), {})
-            self.zone_paths.append({**a, "svg": svg.get("id"), "title": ""})
-        if tag == "tr" and "violation" in a.get("class", "").split():
-            self.violation_rows += 1
-        if tag == "a" and any(t == "tr" and "violation" in x.get("class", "").split() for t, x in self.stack):
-            self.violation_links.append(a.get("href", ""))
-        if tag == "table":
-            self.tables.append({"caption": False, "col_headers": 0, "scoped": 0})
-        if tag == "caption" and self.tables:
-            self.tables[-1]["caption"] = True
-        if tag == "th" and self.tables:
-            self.tables[-1]["col_headers"] += 1
-            self.tables[-1]["scoped"] += a.get("scope") in ("col", "row")
-        if tag not in ("meta", "link", "br", "img", "input", "rect", "circle", "line"):
-            self.stack.append((tag, a))
-
-    def handle_startendtag(self, tag, attrs):
-        self.handle_starttag(tag, attrs)
-        if self.stack and self.stack[-1][0] == tag:
-            self.stack.pop()
-
-    def handle_endtag(self, tag):
-        while self.stack:
-            t, _ = self.stack.pop()
-            if t == tag:
-                break
-
-    def handle_data(self, data):
-        if not self.seen_h2:
-            self.text_before_h2 += data
-        if self.stack and self.stack[-1][0] == "title" and len(self.stack) > 1 and self.stack[-2][0] == "path":
-            if self.zone_paths:
-                self.zone_paths[-1]["title"] += data
 
 
 @pytest.fixture(scope="module")
@@ -106,8 +39,12 @@ def test_every_zone_of_every_tier_is_one_path_with_its_id_and_tooltip(small):
     run, _, page = small
     for tier, table in run["tables"].items():
         paths = [p for p in page.zone_paths if p["svg"] == f"map-{tier}"]
-        assert sorted(p["id"] for p in paths) == sorted(element_id("zone", tier, z) for z in table["zone"])
-        for p, (_, row) in zip(sorted(paths, key=lambda p: p["data-zone"]), table.sort_values("zone").iterrows()):
+        assert sorted(p["id"] for p in paths) == sorted(
+            element_id("zone", tier, z) for z in table["zone"]
+        )
+        for p, (_, row) in zip(
+            sorted(paths, key=lambda p: p["data-zone"]), table.sort_values("zone").iterrows()
+        ):
             assert p["data-zone"] == row["zone"] and p["data-fence"] == row["fence"]
             assert f"zone {row['zone']}" in p["title"] and "Polsby-Popper" in p["title"]
 
@@ -131,9 +68,8 @@ def test_rule_breaking_zones_are_hatched_and_outlined_not_only_coloured(small):
 
 
 def test_fences_are_drawn_as_their_own_heavier_line(small):
-    _, text, _ = small
-    fence_paths = re.findall(r'<path class="fence" d="([^"]+)"', text)
-    assert len(fence_paths) == 2  # one per tier map
+    _, text, page = small
+    assert sorted(p for p in page.fence_paths if p) == ["map-block", "map-ward"]
     assert re.search(r"\.fence\{fill:none;stroke:#[0-9a-f]{6};stroke-width:2", text)
 
 
@@ -200,7 +136,9 @@ def test_distributions_mark_floor_target_and_ceiling_from_the_rules(small):
     run, text, _ = small
     limits = limits_from_rules(run["summary"]["rules"], list(run["tables"]))
     assert limits["block"]["households"] == {"min": 47.0, "target": 135.0, "max": 270.0}
-    charts = re.findall(r'<img class="chart" src="data:image/svg\+xml;base64,([^"]+)" alt="([^"]*)"', text)
+    charts = re.findall(
+        r'<img class="chart" src="data:image/svg\+xml;base64,([^"]+)" alt="([^"]*)"', text
+    )
     assert len(charts) == 3  # one histogram figure per tier, one of shapes
     svg = base64.b64decode(charts[0][0]).decode()
     for word in ("floor 47", "target 135", "ceiling 270"):
@@ -216,7 +154,7 @@ def test_tables_cover_fences_proofs_certificate_islands_rules_and_versions(small
     assert "proved: no zoning of this fence can meet every bound" in text
     assert "confirmed: an independent CP-SAT model accepts these zones" in text
     assert "Islands found in the area graph" in text and "Repaired polygons" in text
-    assert 'min = { households = 47, persons = 100 }' in text  # the rules, preformatted
+    assert "min = { households = 47, persons = 100 }" in text  # the rules, preformatted
     assert "<dt>seed</dt><dd>7</dd>" in text
     assert "Software versions" in text and "Seconds per phase" in text
 
@@ -228,8 +166,13 @@ def test_redraw_report_shows_a_change_map_and_the_share_unchanged():
     table["change"] = kinds[np.arange(len(table)) % kinds.shape[0]]
     run["summary"]["command"] = "redraw"
     changes = pd.DataFrame(
-        {"tier": ["ward"] * 5, "fence": ["D0"] * 5, "old_zones": ["W0", "W1;W2", "W3", "W9", "W8"],
-         "new_zone": ["W0", "W1", "W2", "W3", ""], "kind": ["kept", "merged", "split", "kept", "retired"]}
+        {
+            "tier": ["ward"] * 5,
+            "fence": ["D0"] * 5,
+            "old_zones": ["W0", "W1;W2", "W3", "W9", "W8"],
+            "new_zone": ["W0", "W1", "W2", "W3", ""],
+            "kind": ["kept", "merged", "split", "kept", "retired"],
+        }
     )
     text = render_report(**run, changes=changes)
     page = Page(text)
@@ -240,7 +183,10 @@ def test_redraw_report_shows_a_change_map_and_the_share_unchanged():
         kind = by_zone[p["data-zone"]]
         assert f"k-{kind}" in p["class"].split() and p["title"].startswith(kind)
     # each kind has its own pattern, and the legend names it in words
-    patterns = {k: re.search(rf'<pattern id="kind-{k}"[^>]*>(.*?)</pattern>', text).group(1) for k in set(kinds)}
+    patterns = {
+        k: re.search(rf'<pattern id="kind-{k}"[^>]*>(.*?)</pattern>', text).group(1)
+        for k in set(kinds)
+    }
     assert len(set(patterns.values())) == len(patterns)
     for k in set(kinds):
         assert re.search(rf'class="zone k-{k}"[^>]*/></svg><span>{k}:', text)
@@ -260,18 +206,35 @@ def test_sweep_report_embeds_the_given_charts():
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
     plt.close(fig)
-    table = pd.DataFrame({"tier.1.min.households": [30, 40, 50], "zones.block": [22, 19, 17], "bound_breaks": [0, 0, 1]})
+    table = pd.DataFrame(
+        {
+            "tier.1.min.households": [30, 40, 50],
+            "zones.block": [22, 19, 17],
+            "bound_breaks": [0, 0, 1],
+        }
+    )
     text = render_report(
         summary={"command": "sweep", "sweep": {"vary": {"tier.1.min.households": [30, 40, 50]}}},
-        tables={}, layers={}, sweep=table, sweep_charts={"zones.block.png": buf.getvalue()},
+        tables={},
+        layers={},
+        sweep=table,
+        sweep_charts={"zones.block.png": buf.getvalue()},
     )
     assert "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode() in text
     assert "One row per variant of the rules" in text and Page(text).fetchable == []
 
 
 def test_sections_render_from_whatever_the_summary_holds(tmp_path):
-    for summary in ({}, {"command": "audit", "audit": {"ok": True, "violations": []}},
-                    {"fences": "not a list", "tiers": 3, "graph": {"islands": None}, "seconds": {"total": None}}):
+    for summary in (
+        {},
+        {"command": "audit", "audit": {"ok": True, "violations": []}},
+        {
+            "fences": "not a list",
+            "tiers": 3,
+            "graph": {"islands": None},
+            "seconds": {"total": None},
+        },
+    ):
         path = tmp_path / "report.html"
         write_report(path, summary=summary, tables={}, layers={})
         text = path.read_text(encoding="utf-8")

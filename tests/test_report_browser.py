@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from report_synthetic import grid_run
+from report_support import grid_run
 
 from zonedesign.report.colouring import PALETTE, WARNING
 from zonedesign.report.html import write_report
@@ -36,7 +36,9 @@ PAGE_BACKGROUND = (0xFB, 0xFA, 0xF7)
 
 
 def chromium_path() -> str:
-    found = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None)
+    found = shutil.which("chromium") or (
+        "/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None
+    )
     if found is None:
         message = "headless Chromium not found (run .ci/install-browser)"
         if os.environ.get("CI") == "true":
@@ -62,14 +64,31 @@ class Browser:
         self.log = open(workdir / "chromium.log", "wb")  # noqa: SIM115 - closed in close()
         self.proc = subprocess.Popen(
             [
-                exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                "--disable-background-networking", "--disable-component-update", "--disable-sync",
-                "--disable-dev-shm-usage", "--hide-scrollbars", "--mute-audio", "--force-color-profile=srgb",
-                "--proxy-server=http://127.0.0.1:9", "--host-resolver-rules=MAP * ~NOTFOUND",
-                f"--user-data-dir={profile}", "--remote-debugging-pipe", "about:blank",
+                exe,
+                "--headless",
+                "--no-sandbox",
+                "--disable-gpu",
+                "--disable-quic",
+                "--no-first-run",
+                "--disable-background-networking",
+                "--disable-component-update",
+                "--disable-sync",
+                "--disable-dev-shm-usage",
+                "--hide-scrollbars",
+                "--mute-audio",
+                "--force-color-profile=srgb",
+                "--proxy-server=http://127.0.0.1:9",
+                "--host-resolver-rules=MAP * ~NOTFOUND",
+                f"--user-data-dir={profile}",
+                "--remote-debugging-pipe",
+                "about:blank",
             ],
-            stdin=subprocess.DEVNULL, stdout=self.log, stderr=self.log,
-            preexec_fn=wire, pass_fds=(3, 4), start_new_session=True,
+            stdin=subprocess.DEVNULL,
+            stdout=self.log,
+            stderr=self.log,
+            preexec_fn=wire,
+            pass_fds=(3, 4),
+            start_new_session=True,
         )
         os.close(theirs_in)
         os.close(theirs_out)
@@ -101,7 +120,13 @@ class Browser:
         raw, self.buf = self.buf.split(b"\0", 1)
         return json.loads(raw)
 
-    def send(self, method: str, params: dict | None = None, session: str | None = None, timeout: float = 15) -> dict:
+    def send(
+        self,
+        method: str,
+        params: dict | None = None,
+        session: str | None = None,
+        timeout: float = 15,
+    ) -> dict:
         self.next_id += 1
         msg = {"id": self.next_id, "method": method, "params": params or {}}
         if session:
@@ -135,15 +160,22 @@ class Browser:
         sid = self.send("Target.attachToTarget", {"targetId": target, "flatten": True})["sessionId"]
         for m in ("Page.enable", "Network.enable", "Runtime.enable", "Log.enable"):
             self.send(m, session=sid)
-        self.send("Emulation.setDeviceMetricsOverride",
-                  {"width": VIEW_W, "height": VIEW_H, "deviceScaleFactor": 1, "mobile": False}, sid)
+        self.send(
+            "Emulation.setDeviceMetricsOverride",
+            {"width": VIEW_W, "height": VIEW_H, "deviceScaleFactor": 1, "mobile": False},
+            sid,
+        )
         self.send("Page.navigate", {"url": url}, sid)
         self.wait_for("Page.loadEventFired", sid)
         self.eval(sid, "1")  # let queued console and network events arrive
         return sid
 
     def eval(self, session: str, expression: str):
-        r = self.send("Runtime.evaluate", {"expression": expression, "returnByValue": True, "awaitPromise": True}, session)
+        r = self.send(
+            "Runtime.evaluate",
+            {"expression": expression, "returnByValue": True, "awaitPromise": True},
+            session,
+        )
         if "exceptionDetails" in r:
             raise RuntimeError(f"script failed: {r['exceptionDetails']}")
         return r["result"].get("value")
@@ -193,7 +225,9 @@ def design(tmp_path_factory, browser):
 def test_the_harness_sees_a_page_that_fetches(browser, tmp_path):
     # the no-fetch check below has teeth only if a fetch is seen when one happens
     page = tmp_path / "fetching.html"
-    page.write_text('<!DOCTYPE html><html lang="en"><body><img src="http://tiles.invalid/a.png" alt=""></body></html>')
+    page.write_text(
+        '<!DOCTYPE html><html lang="en"><body><img src="http://tiles.invalid/a.png" alt=""></body></html>'
+    )
     sid = browser.open(page.as_uri())
     assert any("tiles.invalid" in u for u in fetched(browser, sid, page.as_uri()))
 
@@ -211,7 +245,9 @@ def test_map_has_one_path_per_zone_and_is_painted(browser, design):
     sid = design["sid"]
     run = design["run"]
     for tier, table in run["tables"].items():
-        ids = browser.eval(sid, f"Array.from(document.querySelectorAll('#map-{tier} path.zone')).map(p => p.id)")
+        ids = browser.eval(
+            sid, f"Array.from(document.querySelectorAll('#map-{tier} path.zone')).map(p => p.id)"
+        )
         assert sorted(ids) == sorted(element_id("zone", tier, z) for z in table["zone"])
     box = browser.eval(
         sid,
@@ -227,7 +263,9 @@ def test_map_has_one_path_per_zone_and_is_painted(browser, design):
     left, top, width, height = (int(round(v)) for v in box)
     inside = img[max(top, 0) : min(top + height, VIEW_H), max(left, 0) : min(left + width, VIEW_W)]
     assert inside.size > 0
-    background = np.all(np.abs(inside - PAGE_BACKGROUND) <= 2, axis=2) | np.all(inside >= 253, axis=2)
+    background = np.all(np.abs(inside - PAGE_BACKGROUND) <= 2, axis=2) | np.all(
+        inside >= 253, axis=2
+    )
     assert (~background).mean() > 0.6  # the zones fill the map's box
 
     def present(hex_colour: str) -> bool:
@@ -266,7 +304,9 @@ def test_hovering_a_zone_shows_its_figures(browser, design):
         browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": 2, "y": 2}, sid)
         assert browser.eval(sid, "document.getElementById('tip').hidden") is True
         # the native tooltip text is back in place once the pointer has left
-        assert browser.eval(sid, f"document.getElementById('{zid}').querySelector('title') !== null")
+        assert browser.eval(
+            sid, f"document.getElementById('{zid}').querySelector('title') !== null"
+        )
     assert console_errors(browser, sid) == []
 
 
@@ -282,4 +322,30 @@ def test_violation_links_reach_their_zone(browser, design):
     zid = element_id("zone", "block", table[table["bound_break"]]["zone"].iloc[0])
     browser.eval(sid, f"document.querySelector('tr.violation a[href=\"#{zid}\"]').click()")
     assert browser.eval(sid, "location.hash") == f"#{zid}"
-    assert browser.eval(sid, f"document.querySelector(':target') === document.getElementById('{zid}')")
+    assert browser.eval(
+        sid, f"document.querySelector(':target') === document.getElementById('{zid}')"
+    )
+
+
+def test_a_link_into_a_closed_fence_section_opens_it_and_shows_the_zone(browser, tmp_path):
+    # 3,600 zones: more than one map carries, so the tier is drawn fence by fence
+    run = grid_run(60, parents=(6,), fence_side=30)
+    path = tmp_path / "report.html"
+    write_report(path, **run)
+    url = path.resolve().as_uri()
+    sid = browser.open(url)
+    table = run["tables"]["block"]
+    far = table[table["fence"] == "D3"]["zone"].iloc[0]
+    zid = element_id("zone", "block", far)
+    assert browser.eval(sid, f"document.getElementById('{zid}').closest('details').open") is False
+    browser.eval(sid, f"location.hash = '#{zid}'")
+    browser.eval(sid, "new Promise(r => setTimeout(r, 50))")
+    state = browser.eval(
+        sid,
+        f"(() => {{ const p = document.getElementById('{zid}'); const r = p.getBoundingClientRect();"
+        " return {open: p.closest('details').open, top: r.top, bottom: r.bottom, h: innerHeight}; })()",
+    )
+    assert state["open"] is True
+    assert 0 <= state["top"] and state["bottom"] <= state["h"]  # scrolled into view
+    assert console_errors(browser, sid) == []
+    assert fetched(browser, sid, url) == []

@@ -32,8 +32,19 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import difflib
+import json
+import math
+import re
+import tomllib
+from collections.abc import Sequence
+from dataclasses import dataclass, field, replace
 from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from zonedesign.errors import InputError, RulesError
 
 TERMS = ("size", "homogeneity", "compactness", "stability")
 METHODS = ("descent", "annealing", "tabu")
@@ -100,3 +111,770 @@ class Rules:
             if t.name == name:
                 return t
         raise KeyError(name)
+
+
+# ---------------------------------------------------------------- parsing
+
+CONTIGUITY = ("rook", "queen")
+HOMOGENEITY = ("ssd", "pairwise")
+COMPACTNESS = ("polsby", "cut")
+BOUND_KEYS = ("min", "max", "target")
+AREAS_KEYS = ("id", "counts", "attributes", "fence", "weight", "layer", "crs")
+GRAPH_KEYS = ("contiguity", "min_shared_length", "tolerance", "links")
+TIER_KEYS = ("name", "min", "max", "target", "weights", "homogeneity", "compactness")
+SEARCH_KEYS = (
+    "method",
+    "seed",
+    "constructions",
+    "time_limit_fence",
+    "time_limit_total",
+    "cooling",
+    "moves_per_temperature",
+    "tenure",
+    "max_no_improve",
+)
+TOP_KEYS = ("areas", "graph", "tier", "search")
+
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
+_KEY_PART = r"""(?:[A-Za-z0-9_-]+|"(?:[^"\\]|\\.)*"|'[^']*')"""
+_KEY = re.compile(rf"\s*({_KEY_PART}(?:\s*\.\s*{_KEY_PART})*)\s*=")
+_TOML_POS = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
+_TOML_LINE = re.compile(r"\s*\(at line (\d+)\)\s*$")
+_TOML_END = re.compile(r"\s*\(at end of document\)\s*$")
+
+Path_ = tuple[str | int, ...]  # a key path; ints are 0-based tier positions
+
+
+def parse_rules(text: str, source: str = "<rules>", base_dir: Path | None = None) -> Rules:
+    """Parse and check a rules file's text; every problem is a RulesError naming key and line.
+
+    `source` names the file in messages; a relative `[graph] links` is taken relative to
+    `base_dir`.
+    """
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        message = _syntax_message(str(exc), source, text)
+        raise RulesError(message, problems=[message]) from exc
+    rules = _build(data, _Check(source, _KeyLines(text)), base_dir)
+    return replace(rules, source=None if source == "<rules>" else Path(source), text=text)
+
+
+def load_rules(path: str | Path) -> Rules:
+    """Read and check a rules file (TOML)."""
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"{path}: rules file not found")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise RulesError(f"{path}: not UTF-8 text (byte {exc.start})") from exc
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the rules file ({exc.strerror})") from exc
+    rules = parse_rules(text, source=str(path), base_dir=path.parent)
+    return replace(rules, source=path)
+
+
+def _syntax_message(message: str, source: str, text: str) -> str:
+    """tomllib's "... (at line X, column Y)" as "source:X:Y: ..."."""
+    end = _TOML_END.search(message)
+    if end:
+        lines = text.split("\n")
+        return f"{source}:{len(lines)}:{len(lines[-1]) + 1}: {message[: end.start()]} (at the end of the file)"
+    m = _TOML_POS.search(message)
+    if m:
+        return f"{source}:{m.group(1)}:{m.group(2)}: {message[: m.start()]}"
+    m = _TOML_LINE.search(message)
+    if m:
+        return f"{source}:{m.group(1)}: {message[: m.start()]}"
+    return f"{source}: {message}"
+
+
+def key_name(path: Path_) -> str:
+    """A key path as users write it: tier positions count from 1 (`tier.1.min.persons`)."""
+    return ".".join(str(p + 1) if isinstance(p, int) else p for p in path)
+
+
+class _KeyLines:
+    """The line of each key in a TOML text, found by scanning headers and `key =` lines."""
+
+    def __init__(self, text: str):
+        self.lines: dict[Path_, int] = {}
+        context: Path_ = ()
+        arrays: dict[tuple[str, ...], int] = {}
+        depth = 0
+        in_string = ""
+        for number, raw in enumerate(text.splitlines(), start=1):
+            if in_string:
+                if in_string in raw:
+                    in_string = ""
+                continue
+            line = _strip_comment(raw)
+            if depth > 0:
+                depth += _balance(line)
+                continue
+            stripped = line.strip()
+            if stripped.startswith("[["):
+                name = tuple(_split_key(stripped[2:].split("]]")[0]))
+                arrays[name] = arrays.get(name, -1) + 1
+                context = (*name, arrays[name])
+                self.lines.setdefault(context, number)
+                continue
+            if stripped.startswith("["):
+                parts = tuple(_split_key(stripped[1:].split("]")[0]))
+                context = parts
+                for k in range(len(parts), 0, -1):
+                    if parts[:k] in arrays:
+                        context = (*parts[:k], arrays[parts[:k]], *parts[k:])
+                        break
+                self.lines.setdefault(context, number)
+                continue
+            m = _KEY.match(line)
+            if not m:
+                continue
+            path = (*context, *_split_key(m.group(1)))
+            self.lines.setdefault(path, number)
+            value = line[m.end() :]
+            if value.lstrip().startswith("{"):
+                inner = value.lstrip()[1:]
+                for im in re.finditer(rf"(?:^|,)\s*({_KEY_PART}(?:\s*\.\s*{_KEY_PART})*)\s*=", inner):
+                    self.lines.setdefault((*path, *_split_key(im.group(1))), number)
+            for quote in ('"""', "'''"):
+                if value.count(quote) % 2 == 1:
+                    in_string = quote
+            if not in_string:
+                depth = max(0, _balance(value))
+
+    def line(self, path: Path_) -> int | None:
+        """The line of `path`, else of its nearest enclosing key or table."""
+        for k in range(len(path), 0, -1):
+            if path[:k] in self.lines:
+                return self.lines[path[:k]]
+        return None
+
+
+def _strip_comment(line: str) -> str:
+    quote = ""
+    for i, ch in enumerate(line):
+        if quote:
+            if ch == quote and (quote == "'" or line[i - 1] != "\\"):
+                quote = ""
+        elif ch in "\"'":
+            quote = ch
+        elif ch == "#":
+            return line[:i]
+    return line
+
+
+def _balance(text: str) -> int:
+    """Open minus closed brackets and braces outside strings."""
+    depth, quote = 0, ""
+    for i, ch in enumerate(text):
+        if quote:
+            if ch == quote and (quote == "'" or text[i - 1] != "\\"):
+                quote = ""
+        elif ch in "\"'":
+            quote = ch
+        elif ch in "[{":
+            depth += 1
+        elif ch in "]}":
+            depth -= 1
+    return depth
+
+
+def _split_key(text: str) -> list[str]:
+    parts = re.findall(_KEY_PART, text)
+    out = []
+    for p in parts:
+        if p.startswith('"'):
+            try:
+                p = json.loads(p)
+            except ValueError:
+                p = p[1:-1]
+        elif p.startswith("'"):
+            p = p[1:-1]
+        out.append(p)
+    return out
+
+
+class _Check:
+    """Collects located problems while the rules records are built."""
+
+    def __init__(self, source: str, lines: _KeyLines | None):
+        self.source = source
+        self.lines = lines
+        self.found: list[tuple[float, str]] = []
+
+    def fail(self, path: Path_, message: str) -> None:
+        line = self.lines.line(path) if self.lines is not None else None
+        where = f"{self.source}:{line}" if line else self.source
+        self.found.append((line or math.inf, f"{where}: {key_name(path)}: {message}"))
+
+    @property
+    def problems(self) -> list[str]:
+        """In file order; problems without a line last."""
+        return [text for _, text in sorted(self.found, key=lambda x: x[0])]
+
+    def table(self, value: object, path: Path_, allowed: Sequence[str], what: str) -> dict:
+        if not isinstance(value, dict):
+            self.fail(path, f"expected a table ({what}), got {_show(value)}")
+            return {}
+        for key in value:
+            if key not in allowed:
+                near = difflib.get_close_matches(key, allowed, 1)
+                hint = f"; did you mean {near[0]!r}?" if near else ""
+                self.fail((*path, key), f"unknown key in {what} (allowed: {', '.join(allowed)}){hint}")
+        return {k: v for k, v in value.items() if k in allowed}
+
+    def text(self, table: dict, key: str, path: Path_, *, required: bool = False, choices: Sequence[str] = ()) -> str | None:
+        if key not in table:
+            if required:
+                self.fail((*path, key), "missing")
+            return None
+        value = table[key]
+        if not isinstance(value, str) or not value.strip():
+            self.fail((*path, key), f"expected a non-empty text, got {_show(value)}")
+            return None
+        if choices and value not in choices:
+            self.fail((*path, key), f"{value!r} is not one of {', '.join(map(repr, choices))}")
+            return None
+        return value
+
+    def names(self, table: dict, key: str, path: Path_, *, required: bool = False) -> tuple[str, ...]:
+        if key not in table:
+            if required:
+                self.fail((*path, key), "missing (a list of column names)")
+            return ()
+        value = table[key]
+        if not isinstance(value, list) or not all(isinstance(v, str) and v.strip() for v in value):
+            self.fail((*path, key), f"expected a list of column names, got {_show(value)}")
+            return ()
+        seen = set()
+        for v in value:
+            if v in seen:
+                self.fail((*path, key), f"column {v!r} listed twice")
+            seen.add(v)
+        return tuple(value)
+
+    def number(
+        self,
+        value: object,
+        path: Path_,
+        *,
+        above: float | None = None,
+        at_least: float | None = None,
+        below: float | None = None,
+        whole: bool = False,
+    ) -> float | int | None:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            kind = "a whole number" if whole else "a number"
+            self.fail(path, f"expected {kind}, got {_show(value)}")
+            return None
+        if whole and not isinstance(value, int):
+            self.fail(path, f"expected a whole number, got {_show(value)}")
+            return None
+        if not math.isfinite(value):
+            self.fail(path, f"expected a finite number, got {_show(value)}")
+            return None
+        if at_least is not None and value < at_least:
+            self.fail(path, f"must be at least {_num(at_least)}, got {_num(value)}")
+            return None
+        if above is not None and value <= above:
+            self.fail(path, f"must be above {_num(above)}, got {_num(value)}")
+            return None
+        if below is not None and value >= below:
+            self.fail(path, f"must be below {_num(below)}, got {_num(value)}")
+            return None
+        return value
+
+
+def _show(value: object) -> str:
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, list):
+        return "a list"
+    text = repr(value)
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+def _build(data: dict, check: _Check, base_dir: Path | None) -> Rules:
+    """Rules records from parsed TOML data, or one RulesError listing every problem."""
+    top = check.table(data, (), TOP_KEYS, "the rules file")
+    if "areas" in top:
+        areas = _areas(top["areas"], check)
+    else:
+        check.fail(("areas",), "missing [areas] table (id and counts columns)")
+        areas = AreasRules(id="", counts=())
+    graph = _graph(top.get("graph", {}), check, base_dir)
+    search = _search(top.get("search", {}), check)
+    tiers = _tiers(top.get("tier"), check, areas)
+    _raise(check.problems)
+    return Rules(areas=areas, tiers=tiers, graph=graph, search=search)
+
+
+def _raise(problems: list[str]) -> None:
+    if not problems:
+        return
+    more = len(problems) - 1
+    head = problems[0] if not more else f"{problems[0]} (and {more} more problem{'s' * (more > 1)})"
+    raise RulesError("\n".join([head, *problems[1:]]), problems=problems)
+
+
+def _areas(value: object, check: _Check) -> AreasRules:
+    path: Path_ = ("areas",)
+    t = check.table(value, path, AREAS_KEYS, "[areas]")
+    counts = check.names(t, "counts", path, required=True)
+    if "counts" in t and isinstance(t["counts"], list) and not t["counts"]:
+        check.fail((*path, "counts"), "empty; name at least one count column")
+    return AreasRules(
+        id=check.text(t, "id", path, required=True) or "",
+        counts=counts,
+        attributes=check.names(t, "attributes", path),
+        fence=check.text(t, "fence", path),
+        weight=check.text(t, "weight", path),
+        layer=check.text(t, "layer", path),
+        crs=check.text(t, "crs", path),
+    )
+
+
+def _graph(value: object, check: _Check, base_dir: Path | None) -> GraphRules:
+    path: Path_ = ("graph",)
+    t = check.table(value, path, GRAPH_KEYS, "[graph]")
+    default = GraphRules()
+    out = {}
+    for key in ("min_shared_length", "tolerance"):
+        if key in t:
+            v = check.number(t[key], (*path, key), at_least=0.0)
+            if v is not None:
+                out[key] = float(v)
+    links = check.text(t, "links", path)
+    if links is not None:
+        p = Path(links)
+        out["links"] = base_dir / p if base_dir is not None and not p.is_absolute() else p
+    return replace(default, contiguity=check.text(t, "contiguity", path, choices=CONTIGUITY) or default.contiguity, **out)
+
+
+def _search(value: object, check: _Check) -> SearchRules:
+    path: Path_ = ("search",)
+    t = check.table(value, path, SEARCH_KEYS, "[search]")
+    out: dict[str, object] = {}
+    method = check.text(t, "method", path, choices=METHODS)
+    if method is not None:
+        out["method"] = method
+    limits: dict[str, dict] = {
+        "seed": {"whole": True, "at_least": 0},
+        "constructions": {"whole": True, "at_least": 1},
+        "time_limit_fence": {"above": 0.0},
+        "time_limit_total": {"above": 0.0},
+        "cooling": {"above": 0.0, "below": 1.0},
+        "moves_per_temperature": {"whole": True, "at_least": 0},
+        "tenure": {"whole": True, "at_least": 0},
+        "max_no_improve": {"whole": True, "at_least": 0},
+    }
+    for key, limit in limits.items():
+        if key in t:
+            v = check.number(t[key], (*path, key), **limit)
+            if v is not None:
+                out[key] = v if limit.get("whole") else float(v)
+    return replace(SearchRules(), **out)
+
+
+def _tiers(value: object, check: _Check, areas: AreasRules) -> tuple[TierRules, ...]:
+    if value is None:
+        check.fail(("tier",), "no [[tier]] tables; at least one tier is needed")
+        return ()
+    if not isinstance(value, list) or not all(isinstance(t, dict) for t in value):
+        check.fail(("tier",), "write each tier as a [[tier]] table (bottom tier first)")
+        return ()
+    if not value:
+        check.fail(("tier",), "no [[tier]] tables; at least one tier is needed")
+    tiers = []
+    names: dict[str, int] = {}
+    for k, raw in enumerate(value):
+        tier = _tier(raw, k, check, areas)
+        if tier.name in names:
+            check.fail(("tier", k, "name"), f"{tier.name!r} is already the name of tier {names[tier.name] + 1}")
+        elif tier.name:
+            names[tier.name] = k
+        tiers.append(tier)
+    return tuple(tiers)
+
+
+def _tier(raw: dict, k: int, check: _Check, areas: AreasRules) -> TierRules:
+    path: Path_ = ("tier", k)
+    t = check.table(raw, path, TIER_KEYS, "[[tier]]")
+    name = check.text(t, "name", path, required=True) or ""
+    if name.isdigit():
+        check.fail((*path, "name"), f"{name!r}: a tier name cannot be a number (sweep keys count tiers as tier.1, tier.2)")
+    elif name and name == areas.id:
+        check.fail((*path, "name"), f"{name!r} is also the id column; lookup columns would clash")
+    bounds: dict[str, dict[str, float]] = {}
+    for key in BOUND_KEYS:
+        table = check.table(t.get(key, {}), (*path, key), areas.counts or ("(no counts)",), f"{key} (keys are [areas].counts)")
+        got = {}
+        for col, v in table.items():
+            num = check.number(v, (*path, key, col), above=0.0) if key == "target" else check.number(v, (*path, key, col), at_least=0.0)
+            if num is not None:
+                got[col] = float(num)
+        bounds[key] = got
+    lo, hi, target = bounds["min"], bounds["max"], bounds["target"]
+    for col in lo.keys() & hi.keys():
+        if lo[col] > hi[col]:
+            check.fail((*path, "min", col), f"min {_num(lo[col])} is above max {_num(hi[col])}")
+    for col, v in target.items():
+        a, b = lo.get(col, 0.0), hi.get(col, math.inf)
+        if not a <= v <= b:
+            check.fail((*path, "target", col), f"target {_num(v)} is outside [min {_num(a)}, max {_num(b)}]")
+    weights = dict(TierRules(name="").weights)
+    given = check.table(t.get("weights", {}), (*path, "weights"), TERMS, "weights")
+    for term, v in given.items():
+        num = check.number(v, (*path, "weights", term), at_least=0.0)
+        if num is not None:
+            weights[term] = float(num)
+    return TierRules(
+        name=name,
+        min=lo,
+        max=hi,
+        target=target,
+        weights=weights,
+        homogeneity=check.text(t, "homogeneity", path, choices=HOMOGENEITY) or "ssd",
+        compactness=check.text(t, "compactness", path, choices=COMPACTNESS) or "polsby",
+    )
+
+
+def _num(x: float) -> str:
+    """A number as TOML and messages write it: 40 rather than 40.0."""
+    if isinstance(x, float) and x.is_integer() and abs(x) < 1e15:
+        return str(int(x))
+    return repr(x)
+
+
+# ---------------------------------------------------------------- checks against data
+
+
+def check_rules_against(rules: Rules, columns: Sequence[str], where: str) -> None:
+    """Every column the rules name exists in the areas file `where` (its `columns`)."""
+    check = _Check(str(rules.source) if rules.source else "<rules>", _KeyLines(rules.text) if rules.text else None)
+    present = list(columns)
+    wanted: list[tuple[Path_, str]] = [(("areas", "id"), rules.areas.id)]
+    wanted += [(("areas", "counts"), c) for c in rules.areas.counts]
+    wanted += [(("areas", "attributes"), c) for c in rules.areas.attributes]
+    if rules.areas.fence is not None:
+        wanted.append((("areas", "fence"), rules.areas.fence))
+    if rules.areas.weight is not None:
+        wanted.append((("areas", "weight"), rules.areas.weight))
+    for path, col in wanted:
+        if col in present:
+            continue
+        lower = {c.lower(): c for c in present}
+        near = lower.get(col.lower()) or next(iter(difflib.get_close_matches(col, present, 1)), None)
+        hint = f"; did you mean {near!r}?" if near else ""
+        check.fail(path, f"column {col!r} is not in {where}{hint}")
+    _raise(check.problems)
+
+
+# ---------------------------------------------------------------- writing
+
+
+def rules_to_toml(rules: Rules) -> str:
+    """The rules as TOML text; parse_rules reads it back to equal records."""
+    data = _rules_data(rules)
+    out = ["[areas]"]
+    out += [f"{k} = {_toml_value(v)}" for k, v in data["areas"].items()]
+    out += ["", "[graph]"]
+    out += [f"{k} = {_toml_value(v)}" for k, v in data["graph"].items()]
+    for tier in data["tier"]:
+        out += ["", "[[tier]]"]
+        out += [f"{k} = {_toml_value(v)}" for k, v in tier.items()]
+    out += ["", "[search]"]
+    out += [f"{k} = {_toml_value(v)}" for k, v in data["search"].items()]
+    return "\n".join(out) + "\n"
+
+
+def _rules_data(rules: Rules) -> dict:
+    """The rules as the plain tables a TOML file holds, defaults written out."""
+    a = rules.areas
+    areas: dict[str, object] = {"id": a.id, "counts": list(a.counts), "attributes": list(a.attributes)}
+    for key in ("fence", "weight", "layer", "crs"):
+        if getattr(a, key) is not None:
+            areas[key] = getattr(a, key)
+    g = rules.graph
+    graph: dict[str, object] = {
+        "contiguity": g.contiguity,
+        "min_shared_length": g.min_shared_length,
+        "tolerance": g.tolerance,
+    }
+    if g.links is not None:
+        graph["links"] = str(g.links)
+    tiers = [
+        {
+            "name": t.name,
+            "min": dict(t.min),
+            "max": dict(t.max),
+            "target": dict(t.target),
+            "weights": dict(t.weights),
+            "homogeneity": t.homogeneity,
+            "compactness": t.compactness,
+        }
+        for t in rules.tiers
+    ]
+    search = {key: getattr(rules.search, key) for key in SEARCH_KEYS}
+    return {"areas": areas, "graph": graph, "tier": tiers, "search": search}
+
+
+def _toml_value(value: object) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        return _num(value)
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, str):
+        return _toml_string(value)
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    if isinstance(value, dict):
+        if not value:
+            return "{}"
+        return "{ " + ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items()) + " }"
+    raise TypeError(f"no TOML form for {type(value).__name__}")
+
+
+def _toml_string(text: str) -> str:
+    # JSON escapes are TOML escapes; TOML also wants DEL escaped
+    return json.dumps(text, ensure_ascii=False).replace("\x7f", "\\u007f")
+
+
+def _toml_key(key: str) -> str:
+    return key if _BARE_KEY.fullmatch(key) else _toml_string(key)
+
+
+# ---------------------------------------------------------------- overrides (sweeps)
+
+OVERRIDE_FORMS = (
+    "tier.<N or name>.<min|max|target>.<count column>",
+    "tier.<N or name>.weights.<size|homogeneity|compactness|stability>",
+    "tier.<N or name>.<homogeneity|compactness>",
+    f"search.<{'|'.join(SEARCH_KEYS)}>",
+    f"graph.<{'|'.join(GRAPH_KEYS)}>",
+)
+
+
+def apply_override(rules: Rules, key: str, value: str) -> Rules:
+    """The rules with one value changed, checked like a rules file.
+
+    Keys: `tier.<N or name>.<min|max|target|weights>.<column or term>` (N counts from 1),
+    `tier.<N or name>.<homogeneity|compactness>`, `search.<field>`, `graph.<field>`.
+    `none` as the value of a min, max or target removes that bound. Example:
+
+    >>> r = apply_override(rules, "tier.1.min.households", "30")
+    """
+    parts = key.split(".")
+    data = _rules_data(rules)
+    parsed = _override_value(value)
+    head = parts[0]
+    if head == "tier" and len(parts) in (3, 4):
+        k = _tier_position(rules, parts[1], key)
+        tier = data["tier"][k]
+        field = parts[2]
+        if field in (*BOUND_KEYS, "weights") and len(parts) == 4:
+            if parsed is None and field in BOUND_KEYS:
+                tier[field].pop(parts[3], None)
+            else:
+                tier[field][parts[3]] = parsed
+        elif field in ("homogeneity", "compactness") and len(parts) == 3:
+            tier[field] = parsed
+        else:
+            _bad_key(key, f"tier field {field!r} with {len(parts)} parts")
+    elif head in ("search", "graph") and len(parts) == 2:
+        allowed = SEARCH_KEYS if head == "search" else GRAPH_KEYS
+        if parts[1] not in allowed:
+            _bad_key(key, f"no field {parts[1]!r} in [{head}]")
+        data[head][parts[1]] = parsed
+    else:
+        _bad_key(key, "not a sweep key")
+    built = _build(data, _Check(f"override {key}={value}", None), None)
+    return replace(built, source=rules.source, text=rules.text)
+
+
+def _override_value(value: str) -> object:
+    """A TOML value (30, 0.5, "tabu"); bare words are text; `none` or nothing means absent."""
+    text = value.strip()
+    if text.lower() in ("", "none"):
+        return None
+    try:
+        return tomllib.loads(f"v = {text}")["v"]
+    except tomllib.TOMLDecodeError:
+        return text
+
+
+def _tier_position(rules: Rules, selector: str, key: str) -> int:
+    listed = ", ".join(f"{k + 1} {t.name!r}" for k, t in enumerate(rules.tiers))
+    if selector.isdigit():
+        k = int(selector) - 1
+        if 0 <= k < len(rules.tiers):
+            return k
+        raise RulesError(f"override key {key!r}: no tier {selector} (tiers: {listed})")
+    for k, t in enumerate(rules.tiers):
+        if t.name == selector:
+            return k
+    raise RulesError(f"override key {key!r}: no tier named {selector!r} (tiers: {listed})")
+
+
+def _bad_key(key: str, why: str) -> None:
+    raise RulesError(f"override key {key!r}: {why}; allowed: {'; '.join(OVERRIDE_FORMS)}")
+
+
+# ---------------------------------------------------------------- starter file
+
+_ID_NAME = re.compile(r"(^id$|_id$|^id_|code|key|^fid$|^geoid)", re.I)
+_FENCE_NAME = re.compile(r"(district|county|region|ward|munic|borough|parish|province|state|fence)", re.I)
+_PERSONS_NAME = re.compile(r"(pop|person|people|resid|inhab)", re.I)
+_HOUSEHOLDS_NAME = re.compile(r"(household|hhold|^hh|dwell)", re.I)
+_NOT_ATTRIBUTE = re.compile(
+    r"^(x|y|xm|ym|lon|lat|long|longitude|latitude|easting|northing|area|shape_area|shape_leng|"
+    r"shape_length|objectid|fid|perimeter)$",
+    re.I,
+)
+
+# Census-style sizes per tier (households, persons): the finest tier's 40-250 households and
+# 100-625 persons with a target of 125 households follow Cockings et al. (2011); the two
+# upper tiers follow the same census practice (from memory).
+_STARTER_TIERS = (
+    ("block", {"households": (40, 250, 125), "persons": (100, 625, 300)}),
+    ("quarter", {"households": (400, 1200, 600), "persons": (1000, 3000, 1500)}),
+    ("sector", {"households": (2000, 6000, 3000), "persons": (5000, 15000, 7500)}),
+)
+
+
+def starter_rules(columns: Sequence[str], dtypes: Sequence[str], sample: pd.DataFrame) -> str:
+    """A commented starter rules file for an areas file with these columns.
+
+    Numeric columns are offered as counts and attributes, a unique column is taken as the
+    id and a text column with few, large groups as the fence; the three example tiers carry
+    census-style bounds. The result parses; the user edits names and numbers.
+    """
+    columns = [str(c) for c in columns]
+    kinds = dict(zip(columns, (_dtype_kind(d) for d in dtypes)))
+    numeric = [c for c in columns if kinds.get(c) in ("i", "u", "f")]
+    id_col = _guess_id(columns, kinds, sample)
+    fence = _guess_fence(columns, kinds, sample, id_col)
+    persons = next((c for c in numeric if c != id_col and _PERSONS_NAME.search(c)), None)
+    households = next((c for c in numeric if c != id_col and _HOUSEHOLDS_NAME.search(c)), None)
+    if persons is None and households is None:
+        persons = next((c for c in numeric if c != id_col and _non_negative(sample, c)), None)
+    roles = {"persons": persons, "households": households}
+    counts = [c for c in (persons, households) if c is not None]
+    attributes = [
+        c
+        for c in numeric
+        if c != id_col and c not in counts and not _NOT_ATTRIBUTE.match(c) and _varies(sample, c)
+    ]
+    q = _toml_string
+    out = [
+        "# zonedesign rules: tiers, bounds, targets, weights and search settings.",
+        f"# Started from a file with columns: {', '.join(columns)}.",
+        "# Check every guessed name and every number before use.",
+        "",
+        "[areas]",
+    ]
+    if id_col is None:
+        id_col = columns[0] if columns else "id"
+        out.append("# no column with a unique value per row was found: set the id column here")
+    out.append(f"id = {q(id_col)}")
+    if counts:
+        out.append(f"counts = [{', '.join(q(c) for c in counts)}]   # numeric columns: {', '.join(numeric)}")
+    else:
+        out.append("# no numeric column was found; name the count columns here")
+        out.append('counts = ["set-me"]')
+    offered = ", ".join(q(c) for c in attributes)
+    out.append(f"attributes = [{offered}]   # for homogeneity; drop any that do not describe people")
+    if fence is not None:
+        groups = sample[fence].nunique(dropna=True)
+        out.append(f"fence = {q(fence)}   # {groups} codes in the first {len(sample)} rows; zones never cross it")
+    else:
+        out.append('# fence = "district"   # a code column zones must never cross')
+    if persons is not None:
+        out.append(f"weight = {q(persons)}   # homogeneity weight per area")
+    out += [
+        "",
+        "[graph]",
+        'contiguity = "rook"   # "rook" (shared edge) or "queen" (a shared corner is enough)',
+        "min_shared_length = 0.0",
+        "tolerance = 0.0   # metres; > 0 for boundaries that do not meet exactly",
+    ]
+    medians = {}
+    for role, col in roles.items():
+        if col is not None and len(sample) and col in sample:
+            medians[role] = float(pd.to_numeric(sample[col], errors="coerce").median())
+            out.insert(len(out) - 5, f"# {role} per area ({col}): median {medians[role]:g} in the first {len(sample)} rows")
+    for name, sizes in _STARTER_TIERS:
+        out += ["", "[[tier]]   # bottom tier first" if name == "block" else "[[tier]]", f"name = {q(name)}"]
+        if any(med > sizes[role][1] for role, med in medians.items()):
+            out.append("# a typical area is already above this tier's max: scale the bounds to your data")
+        lo = {roles[r]: v[0] for r, v in sizes.items() if roles[r]}
+        hi = {roles[r]: v[1] for r, v in sizes.items() if roles[r]}
+        aim = {roles[r]: v[2] for r, v in sizes.items() if roles[r]}
+        if households is not None:
+            aim = {households: sizes["households"][2]}
+        for key, table in (("min", lo), ("max", hi), ("target", aim)):
+            out.append(f"{key} = {_toml_value(table)}")
+        out += [
+            "weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 0.0 }",
+            'homogeneity = "ssd"   # or "pairwise"',
+            'compactness = "polsby"   # or "cut"',
+        ]
+    out += [
+        "",
+        "[search]",
+        'method = "annealing"   # "descent", "annealing" or "tabu"',
+        "seed = 1",
+        "constructions = 4",
+        "time_limit_fence = 10.0   # seconds per fence and tier",
+        "time_limit_total = 600.0   # seconds for the whole run",
+    ]
+    return "\n".join(out) + "\n"
+
+
+def _dtype_kind(dtype: str) -> str:
+    try:
+        return np.dtype(dtype).kind
+    except TypeError:
+        return "O"
+
+
+def _guess_id(columns: list[str], kinds: dict[str, str], sample: pd.DataFrame) -> str | None:
+    unique = [
+        c
+        for c in columns
+        if kinds.get(c) in ("O", "U", "i", "u")
+        and c in sample
+        and len(sample)
+        and sample[c].notna().all()
+        and sample[c].is_unique
+    ]
+    ranked = sorted(unique, key=lambda c: (not _ID_NAME.search(c), kinds.get(c) != "O", columns.index(c)))
+    return ranked[0] if ranked else None
+
+
+def _guess_fence(columns: list[str], kinds: dict[str, str], sample: pd.DataFrame, id_col: str | None) -> str | None:
+    n = len(sample)
+    found = []
+    for c in columns:
+        if c == id_col or kinds.get(c) not in ("O", "U") or c not in sample or n == 0:
+            continue
+        sizes = sample[c].value_counts(dropna=True)
+        if sample[c].isna().any() or not 2 <= sizes.size <= max(2, n // 5) or sizes.min() < 3:
+            continue
+        found.append(c)
+    found.sort(key=lambda c: (not _FENCE_NAME.search(c), columns.index(c)))
+    return found[0] if found else None
+
+
+def _non_negative(sample: pd.DataFrame, col: str) -> bool:
+    vals = pd.to_numeric(sample[col], errors="coerce") if col in sample else pd.Series(dtype=float)
+    return bool(len(vals)) and bool((vals.dropna() >= 0).all())
+
+
+def _varies(sample: pd.DataFrame, col: str) -> bool:
+    return col in sample and pd.to_numeric(sample[col], errors="coerce").nunique(dropna=True) > 1

@@ -26,7 +26,7 @@ ORIGIN = (452_000.0, 6_176_000.0)  # south-west corner of the map frame, metres
 WIDTH, HEIGHT = 64_000.0, 48_000.0
 N_DISTRICTS = 10
 N_TOWNS = 8
-GROWTH_PUSH = 3.0
+GROWTH_PUSH = 8.0
 # generated files carry this date instead of the clock, so equal seeds give equal bytes
 FILE_DATE = "2000-01-01T00:00:00.000Z"
 
@@ -237,7 +237,7 @@ def demo_region(seed: int = 7, n: int = 5000) -> gpd.GeoDataFrame:
     layout = _Layout(rng)
     xy = _generators(layout, n, rng)
     box = (0.0, 0.0, WIDTH, HEIGHT)
-    cells = voronoi_cells(xy, box)
+    cells = voronoi_cells(xy, box, grid=0.001)
     isle = layout.island(xy)
     land = layout.mainland(xy) | (isle >= 0)
     cells, xy, isle = cells[land], xy[land], isle[land]
@@ -304,7 +304,7 @@ def _districts(graph, xy, isle, side, weight, rng, tries: int = 6) -> np.ndarray
         centres, seeds = [], []
         for mask, k in ((north, k_north), (south, N_DISTRICTS - k_north)):
             pos = np.flatnonzero(mask)
-            c = _weighted_kmeans(xy[pos], weight[pos] ** POWER, k, rng)
+            c = _weighted_kmeans(xy[pos], np.sqrt(weight[pos]), k, rng)
             d2 = ((xy[pos][:, None] - c[None]) ** 2).sum(axis=2)
             seeds.extend(pos[d2.argmin(axis=0)].tolist())
             centres.append(c)
@@ -332,43 +332,57 @@ def _districts(graph, xy, isle, side, weight, rng, tries: int = 6) -> np.ndarray
 def _claim(n, a, b, seeds, centres, xy, allowed, weight, push: float = GROWTH_PUSH) -> np.ndarray:
     """Multi-source growth over edges (a, b); a node goes to the first district reaching it.
 
-    Districts reach nodes in order of squared distance to their centre, stretched by
-    exp(push * households so far / mean households): heavy districts slow down and
-    light ones spread, which evens households out while every district stays connected.
+    Each step the district whose nearest frontier node is cheapest takes it, the cost
+    being the squared distance to the district's centre stretched by
+    exp(push * households so far / mean households): heavy districts slow down and light
+    ones spread, which evens households out while every district stays connected.
     """
     import heapq
+    import math
 
     nbrs: list[list[int]] = [[] for _ in range(n)]
     for x, y in zip(a.tolist(), b.tolist(), strict=True):
         nbrs[x].append(y)
         nbrs[y].append(x)
     k = len(seeds)
-    goal = weight[allowed].sum() / k
-    label = np.full(n, -1)
-    total = np.zeros(k)
-    # seeds are taken up front, so no district loses its seed to a faster neighbour
-    label[np.asarray(seeds)] = np.arange(k)
-    total += weight[np.asarray(seeds)]
+    goal = float(weight[allowed].sum()) / k
+    pts = xy.tolist()
+    cen = np.asarray(centres).tolist()
+    wt = weight.tolist()
+    ok = allowed.tolist()
+    label = [-1] * n
+    total = [0.0] * k
+    fronts: list[list[tuple[float, int]]] = [[] for _ in range(k)]
 
-    def cost(v: int, d: int) -> float:
-        return float(((xy[v] - centres[d]) ** 2).sum() + 1.0) * float(np.exp(push * total[d] / goal))
-
-    heap = [(cost(w, d), w, d) for d, s in enumerate(seeds) for w in nbrs[s] if allowed[w]]
-    heapq.heapify(heap)
-    while heap:
-        c, v, d = heapq.heappop(heap)
-        if label[v] >= 0:
-            continue
-        now = cost(v, d)
-        if now > c * (1 + 1e-12):
-            heapq.heappush(heap, (now, v, d))  # the district grew since: requeue
-            continue
+    def take(v: int, d: int) -> None:
         label[v] = d
-        total[d] += weight[v]
+        total[d] += wt[v]
+        cx, cy = cen[d]
         for w in nbrs[v]:
-            if label[w] < 0 and allowed[w]:
-                heapq.heappush(heap, (cost(w, d), w, d))
-    return label
+            if label[w] < 0 and ok[w]:
+                px, py = pts[w]
+                heapq.heappush(fronts[d], ((px - cx) ** 2 + (py - cy) ** 2 + 1.0, w))
+
+    # seeds are taken up front, so no district loses its seed to a faster neighbour
+    for d, s in enumerate(seeds):
+        label[s] = d
+    for d, s in enumerate(seeds):
+        label[s] = -1
+        take(s, d)
+    while True:
+        best, best_cost = -1, math.inf
+        for d in range(k):
+            front = fronts[d]
+            while front and label[front[0][1]] >= 0:
+                heapq.heappop(front)
+            if front:
+                c = front[0][0] * math.exp(push * total[d] / goal)
+                if c < best_cost:
+                    best, best_cost = d, c
+        if best < 0:
+            break
+        take(heapq.heappop(fronts[best])[1], best)
+    return np.array(label)
 
 
 def _weighted_kmeans(xy, weight, k, rng, rounds: int = 30) -> np.ndarray:
@@ -389,11 +403,18 @@ def _counts_and_shares(xy, tau, rng):
     mean = 8.0 + 40.0 * tau
     households = np.maximum(1, np.rint(mean * rng.gamma(6.0, 1 / 6.0, n))).astype(np.int64)
     ratio = np.clip(2.75 - 0.6 * tau + rng.normal(0, 0.08, n), 2.0, 2.8)
-    persons = np.rint(households * ratio).astype(np.int64)
+    persons = _persons(households, ratio)
     field = _field(xy, rng)
     flat = np.clip(0.04 + 0.75 * tau**0.8 + 0.1 * field + rng.normal(0, 0.04, n), 0.0, 0.98)
     owner = np.clip(0.85 - 0.55 * flat + 0.06 * _field(xy, rng) + rng.normal(0, 0.04, n), 0.05, 0.98)
     return households, persons, np.round(owner, 3), np.round(flat, 3)
+
+
+def _persons(households: np.ndarray, ratio: np.ndarray) -> np.ndarray:
+    """Persons from households at `ratio` per household, kept within 2.0-2.8 per household."""
+    persons = np.rint(households * ratio)
+    persons = np.clip(persons, np.ceil(2.0 * households), np.floor(2.8 * households))
+    return persons.astype(np.int64)
 
 
 def _field(xy, rng) -> np.ndarray:
@@ -441,7 +462,7 @@ def later_counts(gdf: gpd.GeoDataFrame, seed: int = 11) -> gpd.GeoDataFrame:
     later_hh = np.maximum(np.rint(hh * factor), 0).astype(np.int64)
     ratio = per_household * rng.normal(1.0, 0.02, hh.shape[0])
     out["households"] = later_hh
-    out["persons"] = np.rint(later_hh * ratio).astype(np.int64)
+    out["persons"] = _persons(later_hh, ratio)
     return out
 
 
@@ -477,15 +498,18 @@ def write_gpkg(gdf: gpd.GeoDataFrame, path: Path, layer: str) -> None:
         pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": previous})
 
 
-def write_demo_input(folder: str | Path, seed: int = 7, *, later: bool = False) -> dict[str, Path]:
+def write_demo_input(
+    folder: str | Path, seed: int = 7, *, n: int = 5000, later: bool = False
+) -> dict[str, Path]:
     """Write the demo's input: areas.gpkg (layer "areas"), rules.toml and links.csv.
 
-    With `later`, areas_later.gpkg holds the counts ten years on for a redraw. The same
-    seed gives byte-identical files. Returns the written paths by name.
+    With `later`, areas.later.gpkg (layer "areas") holds the same areas ten years on, for
+    a redraw. The same seed and n give byte-identical files. Returns the paths by name
+    ("areas", "rules", "links" and, with `later`, "later").
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    gdf = demo_region(seed)
+    gdf = demo_region(seed, n)
     paths = {
         "areas": folder / "areas.gpkg",
         "rules": folder / "rules.toml",
@@ -495,6 +519,6 @@ def write_demo_input(folder: str | Path, seed: int = 7, *, later: bool = False) 
     paths["rules"].write_text(demo_rules_text(), encoding="utf-8")
     demo_links(gdf).to_csv(paths["links"], index=False, lineterminator="\n")
     if later:
-        paths["later"] = folder / "areas_later.gpkg"
+        paths["later"] = folder / "areas.later.gpkg"
         write_gpkg(later_counts(gdf, seed + 4), paths["later"], "areas")
     return paths

@@ -14,12 +14,15 @@ import shapely
 CRS = "EPSG:3857"
 
 
-def voronoi_cells(points: np.ndarray, box: tuple[float, float, float, float]) -> np.ndarray:
+def voronoi_cells(
+    points: np.ndarray, box: tuple[float, float, float, float], grid: float | None = None
+) -> np.ndarray:
     """Voronoi cells of `points` (inside `box`), one per point in input order, filling the box.
 
     Points are mirrored across every box side their cell reaches, so the cells end on the
     sides themselves: nothing is clipped, and every vertex two cells share is one
-    circumcentre written identically into both.
+    circumcentre written identically into both. Vertices are then snapped to `grid`
+    (default 1e-7 of the box's larger side) measured from the box's lower-left corner.
     """
     points = np.asarray(points, dtype=np.float64)
     n = points.shape[0]
@@ -41,7 +44,7 @@ def voronoi_cells(points: np.ndarray, box: tuple[float, float, float, float]) ->
         mirrors.append(m)
     outer = shapely.box(x0 - span, y0 - span, x1 + span, y1 + span)
     cells = _cells(np.concatenate(mirrors), outer)[:n]
-    return snap_polygons(cells, box, grid=1e-7 * span)
+    return snap_polygons(cells, box, grid=1e-7 * span if grid is None else grid)
 
 
 def snap_polygons(cells: np.ndarray, box: tuple[float, float, float, float], grid: float) -> np.ndarray:

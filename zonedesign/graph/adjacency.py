@@ -76,52 +76,68 @@ def boundary_segments(geometry) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     Exterior and interior rings of all polygon parts are included; the owner is the
     position of the input geometry. Zero-length segments are kept here.
     """
-    geoms = geometry_array(geometry)
+    coords, ring, ring_owner = _ring_coordinates(geometry_array(geometry))
+    seg = np.flatnonzero(ring[1:] == ring[:-1])
+    return coords[seg], coords[seg + 1], ring_owner[ring[seg]]
+
+
+def _ring_coordinates(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Coordinates of all rings, the ring of each coordinate and the owner of each ring."""
     parts, owner = polygon_parts(geoms)
-    rings, ring_part = shapely.get_rings(parts, return_index=True)
-    coords, ring = shapely.get_coordinates(rings, return_index=True)
-    # consecutive coordinates of one ring form a segment; rings are closed, so the last
-    # coordinate repeats the first and the closing segment comes for free
-    same = ring[1:] == ring[:-1]
-    start = coords[:-1][same]
-    end = coords[1:][same]
-    return start, end, owner[ring_part[ring[:-1][same]]]
+    holed = shapely.get_num_interior_rings(parts) > 0
+    # a polygon without holes lists exactly its one ring: no need to split it into rings
+    coords, ring = shapely.get_coordinates(parts[~holed], return_index=True)
+    ring_owner = owner[~holed]
+    if holed.any():
+        rings, ring_part = shapely.get_rings(parts[holed], return_index=True)
+        more, more_ring = shapely.get_coordinates(rings, return_index=True)
+        coords = np.concatenate([coords, more])
+        ring = np.concatenate([ring, more_ring + ring_owner.shape[0]])
+        ring_owner = np.concatenate([ring_owner, owner[holed][ring_part]])
+    return coords, ring, ring_owner
 
 
-class _Hashed:
-    """Segments of a polygon set keyed by snapped vertex ids."""
+class SegmentHash:
+    """Segments of a polygon set, their end points numbered by snapped position."""
 
-    def __init__(self, geometry, grid: float | None = None):
-        start, end, owner = boundary_segments(geometry)
-        self.start, self.end, self.owner = start, end, owner
-        if start.shape[0] == 0:
+    def __init__(self, geoms: np.ndarray, grid: float | None = None):
+        coords, ring, ring_owner = _ring_coordinates(geoms)
+        # consecutive coordinates of one ring form a segment; rings are closed, so the
+        # last coordinate repeats the first and the closing segment comes for free
+        seg = np.flatnonzero(ring[1:] == ring[:-1])
+        self.start, self.end = coords[seg], coords[seg + 1]
+        self.owner = ring_owner[ring[seg]]
+        if coords.shape[0] == 0:
             self.grid = 1.0 if grid is None else float(grid)
             self.va = self.vb = np.zeros(0, dtype=np.int64)
+            self.n_vertices = 0
             return
-        lo = np.minimum(start.min(axis=0), end.min(axis=0))
-        hi = np.maximum(start.max(axis=0), end.max(axis=0))
+        lo = coords.min(axis=0)
+        hi = coords.max(axis=0)
         extent = float(max(hi[0] - lo[0], hi[1] - lo[1], 1e-300))
         self.grid = extent * GRID_SHARE if grid is None else float(grid)
         if extent / self.grid >= 2.0**31:
             raise ValueError(f"grid {self.grid} is too fine for an extent of {extent}")
-        self.va = _vertex_key(start, lo, self.grid)
-        self.vb = _vertex_key(end, lo, self.grid)
+        q = np.rint((coords - lo) / self.grid).astype(np.int64)
+        keys, vertex = np.unique((q[:, 0] << 31) | q[:, 1], return_inverse=True)
+        vertex = vertex.reshape(-1)
+        self.n_vertices = int(keys.shape[0])
+        self.va, self.vb = vertex[seg], vertex[seg + 1]
 
     def segment_groups(self) -> tuple[np.ndarray, np.ndarray]:
         """Segment positions sorted so identical segments are adjacent, and group starts."""
         keep = np.flatnonzero(self.va != self.vb)
-        a = np.minimum(self.va[keep], self.vb[keep])
-        b = np.maximum(self.va[keep], self.vb[keep])
-        order = np.lexsort((self.owner[keep], b, a))
-        a, b = a[order], b[order]
-        change = np.flatnonzero((a[1:] != a[:-1]) | (b[1:] != b[:-1])) + 1
-        starts = np.concatenate([[0], change]) if a.size else np.zeros(0, dtype=np.int64)
+        lo = np.minimum(self.va[keep], self.vb[keep])
+        hi = np.maximum(self.va[keep], self.vb[keep])
+        key = lo * self.n_vertices + hi
+        order = np.argsort(key, kind="stable")
+        key = key[order]
+        starts = np.flatnonzero(np.concatenate([[True], key[1:] != key[:-1]])) if key.size else key
         return keep[order], starts
 
-
-def _vertex_key(xy: np.ndarray, origin: np.ndarray, grid: float) -> np.ndarray:
-    q = np.rint((xy - origin) / grid).astype(np.int64)
-    return (q[:, 0] << 31) | q[:, 1]
+    def lengths(self, seg: np.ndarray) -> np.ndarray:
+        d = self.end[seg] - self.start[seg]
+        return np.hypot(d[:, 0], d[:, 1])
 
 
 def _pairs_in_groups(starts: np.ndarray, total: int) -> tuple[np.ndarray, np.ndarray]:
@@ -143,21 +159,35 @@ def sum_pairs(
     n: int, i: np.ndarray, j: np.ndarray, w: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Unordered pairs (a < b) of nodes 0..n-1 with the weights of their copies summed."""
+    i = np.asarray(i, dtype=np.int64)
+    j = np.asarray(j, dtype=np.int64)
     a = np.minimum(i, j)
     b = np.maximum(i, j)
     key, inv = np.unique(a * n + b, return_inverse=True)
-    total = np.bincount(inv.reshape(-1), weights=w, minlength=key.shape[0])
-    return key // n, key % n, total
+    total = np.bincount(inv.reshape(-1), weights=np.asarray(w, dtype=np.float64), minlength=key.shape[0])
+    return key // n, key % n, total.astype(np.float64)
 
 
-def _segment_pairs(hashed: _Hashed, n: int):
+def graph_from_pairs(n: int, a: np.ndarray, b: np.ndarray, w: np.ndarray) -> Graph:
+    """The Graph of distinct pairs (a[k] != b[k], each pair once), as Graph.from_edges
+    builds it, without its de-duplication pass."""
+    a = np.asarray(a, dtype=np.int64)
+    b = np.asarray(b, dtype=np.int64)
+    src = np.concatenate([a, b])
+    dst = np.concatenate([b, a])
+    order = np.argsort(src * n + dst, kind="stable")
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    indptr[1:] = np.cumsum(np.bincount(src, minlength=n))
+    length = np.concatenate([w, w]).astype(np.float64)[order]
+    return Graph(indptr=indptr, indices=dst[order], length=length)
+
+
+def _segment_pairs(hashed: SegmentHash, n: int):
     pos, starts = hashed.segment_groups()
     p, q = _pairs_in_groups(starts, pos.shape[0])
     oi, oj = hashed.owner[pos[p]], hashed.owner[pos[q]]
     other = oi != oj
-    seg = pos[p[other]]
-    length = np.hypot(*(hashed.end[seg] - hashed.start[seg]).T)
-    return sum_pairs(n, oi[other], oj[other], length)
+    return sum_pairs(n, oi[other], oj[other], hashed.lengths(pos[p[other]]))
 
 
 def rook_graph(geometry, min_shared_length: float = 0.0, *, grid: float | None = None) -> Graph:
@@ -177,10 +207,13 @@ def rook_graph(geometry, min_shared_length: float = 0.0, *, grid: float | None =
     if min_shared_length < 0:
         raise ValueError(f"min_shared_length must be >= 0, got {min_shared_length}")
     geoms = geometry_array(geometry)
-    n = geoms.shape[0]
-    a, b, length = _segment_pairs(_Hashed(geoms, grid), n)
+    return rook_from_hash(SegmentHash(geoms, grid), geoms.shape[0], min_shared_length)
+
+
+def rook_from_hash(hashed: SegmentHash, n: int, min_shared_length: float) -> Graph:
+    a, b, length = _segment_pairs(hashed, n)
     keep = length > min_shared_length
-    return Graph.from_edges(n, a[keep], b[keep], length[keep])
+    return graph_from_pairs(n, a[keep], b[keep], length[keep])
 
 
 def queen_graph(geometry, *, grid: float | None = None) -> Graph:
@@ -190,21 +223,24 @@ def queen_graph(geometry, *, grid: float | None = None) -> Graph:
     pairs that meet only at a point carry length 0.
     """
     geoms = geometry_array(geometry)
-    n = geoms.shape[0]
-    hashed = _Hashed(geoms, grid)
+    return queen_from_hash(SegmentHash(geoms, grid), geoms.shape[0])
+
+
+def queen_from_hash(hashed: SegmentHash, n: int) -> Graph:
     ra, rb, rlen = _segment_pairs(hashed, n)
     # each segment's start vertex covers every vertex of a closed ring
-    vid = np.unique(np.stack([hashed.va, hashed.owner], axis=1), axis=0)
-    change = np.flatnonzero(vid[1:, 0] != vid[:-1, 0]) + 1
-    starts = np.concatenate([[0], change]) if vid.shape[0] else np.zeros(0, dtype=np.int64)
-    p, q = _pairs_in_groups(starts, vid.shape[0])
-    va, vb = vid[p, 1], vid[q, 1]
+    key = np.unique(hashed.va * n + hashed.owner)
+    vertex, owner = key // n, key % n
+    starts = np.flatnonzero(np.concatenate([[True], vertex[1:] != vertex[:-1]])) if key.size else key
+    p, q = _pairs_in_groups(starts, key.shape[0])
+    va, vb = owner[p], owner[q]
     other = va != vb
     pa, pb, _ = sum_pairs(n, va[other], vb[other], np.zeros(int(other.sum())))
-    a = np.concatenate([pa, ra])
-    b = np.concatenate([pb, rb])
-    w = np.concatenate([np.zeros(pa.shape[0]), rlen])
-    return Graph.from_edges(n, a, b, w)
+    # vertex pairs include every rook pair; their lengths come from the segments
+    a, b, w = sum_pairs(
+        n, np.concatenate([pa, ra]), np.concatenate([pb, rb]), np.concatenate([np.zeros(pa.shape[0]), rlen])
+    )
+    return graph_from_pairs(n, a, b, w)
 
 
 def unmatched_contacts(
@@ -219,21 +255,20 @@ def unmatched_contacts(
     segment. Stretches shorter than 10 * tolerance are taken for end-to-end contacts.
     """
     geoms = geometry_array(geometry)
-    n = geoms.shape[0]
-    hashed = _Hashed(geoms, grid)
+    return unmatched_from_hash(SegmentHash(geoms, grid), geoms.shape[0], tolerance)
+
+
+def unmatched_from_hash(hashed: SegmentHash, n: int, tolerance: float | None):
     eps = 100.0 * hashed.grid if tolerance is None else float(tolerance)
-    pos, starts = hashed.segment_groups()
     empty = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), np.zeros(0))
+    pos, starts = hashed.segment_groups()
     if pos.shape[0] == 0:
         return empty
-    ends = np.concatenate([starts[1:], [pos.shape[0]]])
     owners = hashed.owner[pos]
     # a group is matched when it holds segments of at least two polygons
-    first_owner = owners[starts]
-    mixed = np.zeros(starts.shape[0], dtype=bool)
-    np.logical_or.at(mixed, np.repeat(np.arange(starts.shape[0]), ends - starts),
-                     owners != np.repeat(first_owner, ends - starts))
-    lone = pos[starts[~mixed]]
+    lo = np.minimum.reduceat(owners, starts)
+    hi = np.maximum.reduceat(owners, starts)
+    lone = pos[starts[lo == hi]]
     if lone.shape[0] < 2:
         return empty
     s0, s1, own = hashed.start[lone], hashed.end[lone], hashed.owner[lone]
@@ -244,8 +279,7 @@ def unmatched_contacts(
     u, v = u[keep], v[keep]
     overlap = _collinear_overlap(s0[u], s1[u], s0[v], s1[v], eps)
     hit = overlap > 10.0 * eps
-    a, b, w = sum_pairs(n, own[u[hit]], own[v[hit]], overlap[hit])
-    return a, b, w
+    return sum_pairs(n, own[u[hit]], own[v[hit]], overlap[hit])
 
 
 def _collinear_overlap(a0, a1, b0, b1, eps: float) -> np.ndarray:

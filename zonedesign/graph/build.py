@@ -5,11 +5,13 @@ from __future__ import annotations
 import numpy as np
 
 from zonedesign.graph.adjacency import (
+    SegmentHash,
     geometry_array,
-    queen_graph,
-    rook_graph,
+    graph_from_pairs,
+    queen_from_hash,
+    rook_from_hash,
     sum_pairs,
-    unmatched_contacts,
+    unmatched_from_hash,
 )
 from zonedesign.graph.links import add_links, read_links
 from zonedesign.graph.tolerant import tolerant_graph
@@ -44,21 +46,24 @@ def build_graph(
             geoms, graph_rules.tolerance, graph_rules.min_shared_length, queen=queen
         )
     else:
-        graph = queen_graph(geoms) if queen else rook_graph(geoms, 0.0)
+        # one hashing pass serves the graph and the check
+        hashed = SegmentHash(geoms)
+        n = geoms.shape[0]
+        graph = queen_from_hash(hashed, n) if queen else rook_from_hash(hashed, n, 0.0)
         if check:
-            graph = _add_unmatched(graph, geoms, ids, notes)
+            graph = _add_unmatched(graph, hashed, ids, notes)
         if not queen and graph_rules.min_shared_length > 0:
             a, b, w = graph.edges()
             keep = w > graph_rules.min_shared_length
-            graph = Graph.from_edges(graph.n, a[keep], b[keep], w[keep])
+            graph = graph_from_pairs(graph.n, a[keep], b[keep], w[keep])
     if ids is not None and graph_rules.links is not None:
         i, j = read_links(graph_rules.links, ids)
         graph = add_links(graph, i, j)
     return graph
 
 
-def _add_unmatched(graph: Graph, geoms: np.ndarray, ids, notes: list[str] | None) -> Graph:
-    ui, uj, uw = unmatched_contacts(geoms)
+def _add_unmatched(graph: Graph, hashed: SegmentHash, ids, notes: list[str] | None) -> Graph:
+    ui, uj, uw = unmatched_from_hash(hashed, graph.n, None)
     if ui.shape[0] == 0:
         return graph
     a, b, w = graph.edges()
@@ -75,4 +80,4 @@ def _add_unmatched(graph: Graph, geoms: np.ndarray, ids, notes: list[str] | None
     a, b, w = sum_pairs(
         graph.n, np.concatenate([a, ui]), np.concatenate([b, uj]), np.concatenate([w, uw])
     )
-    return Graph.from_edges(graph.n, a, b, w)
+    return graph_from_pairs(graph.n, a, b, w)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from zonedesign.graph.adjacency import sum_pairs
+from zonedesign.graph.adjacency import graph_from_pairs, sum_pairs
 from zonedesign.measures import zone_perimeter, zone_sums
 from zonedesign.records import Graph
 
@@ -34,7 +34,7 @@ def collapse(graph: Graph, labels: np.ndarray, k: int) -> Graph:
     zi, zj = labels[i], labels[j]
     cross = zi != zj
     a, b, total = sum_pairs(k, zi[cross], zj[cross], w[cross])
-    return Graph.from_edges(k, a, b, total)
+    return graph_from_pairs(k, a, b, total)
 
 
 def collapse_values(labels: np.ndarray, k: int, values: np.ndarray) -> np.ndarray:

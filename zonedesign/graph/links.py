@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from zonedesign.errors import InputError
+from zonedesign.graph.adjacency import graph_from_pairs
 from zonedesign.records import Graph
 
 
@@ -78,4 +79,4 @@ def fence_graph(graph: Graph, fence: np.ndarray) -> Graph:
         raise ValueError(f"fence has {fence.shape[0]} codes for a graph of {graph.n} areas")
     a, b, w = graph.edges()
     keep = fence[a] == fence[b]
-    return Graph.from_edges(graph.n, a[keep], b[keep], w[keep])
+    return graph_from_pairs(graph.n, a[keep], b[keep], w[keep])

@@ -4,7 +4,7 @@ Candidate pairs come from an STRtree query; the shared length of a pair is measu
 the boundaries themselves. With `tolerance == 0` this is the exact intersection of the
 two boundaries and agrees with segment hashing on clean data. With `tolerance > 0` gaps
 and overlaps up to `tolerance` are bridged: the length of A's boundary lying within
-`tolerance` of B, averaged with the same measured from B. Such lengths run long by up to
+`tolerance` of B's boundary, averaged with the same measured from B. Such lengths run long by up to
 about a tolerance at each end of a shared stretch, and polygons meeting at a corner show
 a contact of a few tolerances; contacts up to `POINT_CONTACT * tolerance` are therefore
 taken for point contacts (length 0, queen only).
@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from zonedesign.graph.adjacency import as_polygonal
+from zonedesign.graph.adjacency import as_polygonal, graph_from_pairs
 from zonedesign.records import Graph
 
 POINT_CONTACT = 4.0
@@ -39,7 +39,9 @@ def shared_lengths(polys: np.ndarray, i: np.ndarray, j: np.ndarray, tolerance: f
         return shapely.length(shapely.intersection(bound[i], bound[j]))
     used = np.unique(np.concatenate([i, j]))
     halo = np.empty(polys.shape[0], dtype=object)
-    halo[used] = shapely.buffer(polys[used], tolerance)
+    # a band around the other's boundary, not its whole polygon: where two polygons
+    # overlap, the part of A's boundary deep inside B is not shared boundary
+    halo[used] = shapely.buffer(bound[used], tolerance)
     one_way = shapely.length(shapely.intersection(bound[i], halo[j]))
     other_way = shapely.length(shapely.intersection(bound[j], halo[i]))
     return 0.5 * (one_way + other_way)
@@ -71,6 +73,6 @@ def tolerant_graph(
     point = length <= POINT_CONTACT * tolerance
     length = np.where(point, 0.0, length)
     if queen:
-        return Graph.from_edges(n, i, j, length)
+        return graph_from_pairs(n, i, j, length)
     keep = ~point & (length > min_shared_length)
-    return Graph.from_edges(n, i[keep], j[keep], length[keep])
+    return graph_from_pairs(n, i[keep], j[keep], length[keep])

@@ -58,7 +58,11 @@ def read_areas(
     path = Path(path)
     where = path.name
     wanted = _wanted_columns(areas_rules)
-    frame, present = _read_frame(path, layer or areas_rules.layer, list(wanted))
+    try:
+        frame, present = _read_frame(path, layer or areas_rules.layer, list(wanted))
+    except InputError as exc:
+        exc.problems = exc.problems or [str(exc)]
+        raise
     problems = v.missing_columns(present, wanted, where)
     n = len(frame)
     if n == 0:
@@ -83,7 +87,9 @@ def read_areas(
             )
             problems += found
     weight = np.ones(n)
-    if areas_rules.weight is not None and areas_rules.weight in frame:
+    if areas_rules.weight in areas_rules.counts:
+        weight = counts[:, areas_rules.counts.index(areas_rules.weight)].copy()  # checked above
+    elif areas_rules.weight is not None and areas_rules.weight in frame:
         weight, found = v.numeric_column(
             frame[areas_rules.weight], areas_rules.weight, where, labels, negative_ok=False
         )

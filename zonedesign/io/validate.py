@@ -40,22 +40,34 @@ def raise_problems(problems: list[str], cls: type[InputError] = InputError, wher
     raise err
 
 
-def row_labels(ids: np.ndarray | None, n: int) -> np.ndarray:
-    """Display label per row: the quoted id, or `#k` where there is no usable id."""
-    labels = np.array([f"#{k}" for k in range(1, n + 1)], dtype=object)
-    if ids is not None:
-        ok = np.array([isinstance(v, str) for v in ids], dtype=bool)
-        labels[ok] = [repr(v) for v in ids[ok]]
-    return labels
+class RowLabels:
+    """Display label per row, made on demand: the quoted id, or `#k` where it has none."""
+
+    def __init__(self, ids: np.ndarray | None, n: int):
+        self.ids = ids
+        self.n = n
+
+    def __getitem__(self, rows: int | np.ndarray) -> object:
+        if np.ndim(rows) == 0:
+            return self._one(int(rows))
+        return np.array([self._one(int(r)) for r in np.asarray(rows)], dtype=object)
+
+    def _one(self, row: int) -> str:
+        value = None if self.ids is None else self.ids[row]
+        return repr(value) if isinstance(value, str) else f"#{row + 1}"
 
 
-def rows_text(labels: np.ndarray, rows: np.ndarray) -> str:
+def row_labels(ids: np.ndarray | None, n: int) -> RowLabels:
+    return RowLabels(ids, n)
+
+
+def rows_text(labels: RowLabels, rows: np.ndarray) -> str:
     """`row 'A1'` or `rows 'A1', 'A2', ... and 7 more` for positions `rows`."""
     rows = np.asarray(rows)
     return f"{'row' if rows.size == 1 else 'rows'} {listed(labels, rows)}"
 
 
-def listed(labels: np.ndarray, rows: np.ndarray) -> str:
+def listed(labels: RowLabels, rows: np.ndarray) -> str:
     """The first few labels at positions `rows`, and how many more there are."""
     rows = np.asarray(rows)
     shown = ", ".join(str(x) for x in labels[rows[:SHOW]])
@@ -139,7 +151,7 @@ def numeric_column(
     values: pd.Series,
     column: str,
     where: str,
-    labels: np.ndarray,
+    labels: RowLabels,
     *,
     negative_ok: bool,
     constant_ok: bool = True,
@@ -172,7 +184,7 @@ def numeric_column(
         if neg.any():
             rows = np.flatnonzero(neg)
             problems.append(f"{where}: column {column!r}, {rows_text(labels, rows)}: negative {values_text(nums[rows])}")
-    if not constant_ok and not problems and n > 0 and np.ptp(nums) == 0:
+    if not constant_ok and not problems and n > 1 and np.ptp(nums) == 0:
         problems.append(
             f"{where}: column {column!r}: the same value ({_plain(nums[0])!r}) in every row, so it "
             "cannot tell zones apart; drop it from [areas].attributes"
@@ -180,7 +192,7 @@ def numeric_column(
     return nums, problems
 
 
-def fence_codes(values: pd.Series, column: str, where: str, labels: np.ndarray) -> tuple[np.ndarray, list[str]]:
+def fence_codes(values: pd.Series, column: str, where: str, labels: RowLabels) -> tuple[np.ndarray, list[str]]:
     codes, missing = id_strings(values)
     if missing.any():
         rows = np.flatnonzero(missing)
@@ -192,7 +204,7 @@ def fence_codes(values: pd.Series, column: str, where: str, labels: np.ndarray) 
 
 
 def check_polygons(
-    geoms: np.ndarray, where: str, labels: np.ndarray
+    geoms: np.ndarray, where: str, labels: RowLabels
 ) -> tuple[np.ndarray, np.ndarray, list[str]]:
     """Polygons with invalid ones repaired, the repaired positions, and the problems.
 
@@ -241,7 +253,7 @@ def polygonal_part(geom: shapely.Geometry) -> shapely.Geometry:
 
 
 def clip_repaired(
-    geoms: np.ndarray, repaired: np.ndarray, where: str, labels: np.ndarray
+    geoms: np.ndarray, repaired: np.ndarray, where: str, labels: RowLabels
 ) -> tuple[np.ndarray, list[str]]:
     """Cut from each repaired polygon what it covers of valid neighbours.
 
@@ -273,7 +285,7 @@ def clip_repaired(
     return geoms, notes
 
 
-def overlap_problems(geoms: np.ndarray, where: str, labels: np.ndarray) -> list[str]:
+def overlap_problems(geoms: np.ndarray, where: str, labels: RowLabels) -> list[str]:
     """Pairs of polygons whose common area exceeds OVERLAP_SHARE of the smaller one.
 
     An exact segment count settles the usual case (a coverage whose neighbours share
@@ -315,12 +327,11 @@ def disjoint_interiors(geoms: np.ndarray) -> bool:
     face they enclose must lie on the same side of all its segments. False means "not
     shown", not "overlapping".
     """
-    a, b, _ = oriented_segments(geoms)
-    if a.shape[0] == 0:
+    xy, pk, s, e, _ = oriented_segments(geoms)
+    if s.size == 0:
         return True
-    ka, kb = point_keys(a), point_keys(b)
-    fwd = ka < kb
-    und = directed_keys(np.where(fwd, ka, kb), np.where(fwd, kb, ka))
+    ka, kb = pk[s], pk[e]
+    und = directed_keys(np.minimum(ka, kb), np.maximum(ka, kb))
     order = np.argsort(und)
     su = und[order]
     start = np.r_[True, su[1:] != su[:-1]]
@@ -331,21 +342,24 @@ def disjoint_interiors(geoms: np.ndarray) -> bool:
     # a cancelled pair must be one segment run both ways (keys alone could collide)
     second = np.flatnonzero(~start)
     p, q = order[second - 1], order[second]
-    if not (np.array_equal(a[p], b[q]) and np.array_equal(b[p], a[q])):
+    if not (_same_points(xy, s[p], e[q]) and _same_points(xy, e[p], s[q])):
         return False
     rest = order[(size == 1)[group]]
     if rest.size == 0:
         return True
-    ra, rb = a[rest], b[rest]
-    lines = shapely.linestrings(np.stack([ra, rb], axis=1))
+    rs, re = s[rest], e[rest]
+    lines = shapely.linestrings(np.stack([np.take(xy, rs, axis=0), np.take(xy, re, axis=0)], axis=1))
     if not shapely.is_simple(shapely.multilinestrings(lines)):
         return False  # remaining segments cross or touch mid-segment
     faces = shapely.get_parts(shapely.polygonize(lines))
     if faces.size == 0:
         return False
-    fa, fb, face_of = oriented_segments(faces)
-    along = _find_segments(fa, fb, ra, rb)
-    against = _find_segments(fb, fa, ra, rb)
+    fxy, fpk, fs, fe, face_of = oriented_segments(faces)
+    take = np.take
+    remaining = (take(xy, rs, axis=0), take(xy, re, axis=0), directed_keys(pk[rs], pk[re]))
+    fa, fb = take(fxy, fs, axis=0), take(fxy, fe, axis=0)
+    along = _find_segments(fa, fb, directed_keys(fpk[fs], fpk[fe]), *remaining)
+    against = _find_segments(fb, fa, directed_keys(fpk[fe], fpk[fs]), *remaining)
     if np.any((along >= 0) == (against >= 0)):
         return False  # a face edge that is not exactly one remaining segment
     used = np.zeros(rest.size, dtype=bool)
@@ -358,33 +372,40 @@ def disjoint_interiors(geoms: np.ndarray) -> bool:
     return bool(np.all((inside == 0) | (inside == total)))
 
 
-def _find_segments(a: np.ndarray, b: np.ndarray, ra: np.ndarray, rb: np.ndarray) -> np.ndarray:
+def _same_points(xy: np.ndarray, i: np.ndarray, j: np.ndarray) -> bool:
+    x, y = xy[:, 0], xy[:, 1]
+    return bool(np.array_equal(x[i], x[j]) and np.array_equal(y[i], y[j]))
+
+
+def _find_segments(
+    a: np.ndarray, b: np.ndarray, keys: np.ndarray, ra: np.ndarray, rb: np.ndarray, rkeys: np.ndarray
+) -> np.ndarray:
     """Position of each directed segment a->b among the directed segments ra->rb, or -1."""
-    keys = directed_keys(point_keys(ra), point_keys(rb))
-    order = np.argsort(keys)
-    sk = keys[order]
-    want = directed_keys(point_keys(a), point_keys(b))
-    at = np.minimum(np.searchsorted(sk, want), sk.size - 1)
+    order = np.argsort(rkeys)
+    sk = rkeys[order]
+    at = np.minimum(np.searchsorted(sk, keys), sk.size - 1)
     hit = order[at]
-    found = (sk[at] == want) & np.all(ra[hit] == a, axis=1) & np.all(rb[hit] == b, axis=1)
+    found = (sk[at] == keys) & np.all(np.take(ra, hit, axis=0) == a, axis=1)
+    found &= np.all(np.take(rb, hit, axis=0) == b, axis=1)
     return np.where(found, hit, -1)
 
 
-def oriented_segments(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Start point, end point and geometry index of every ring segment of non-zero length,
-    shells counter-clockwise and holes clockwise."""
+def oriented_segments(geoms: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Every ring segment of non-zero length, shells counter-clockwise, holes clockwise.
+
+    Returns (xy, point keys, start index, end index, geometry index): segment k runs from
+    xy[start[k]] to xy[end[k]].
+    """
     xy, ring, shell, owner = ring_coordinates(geoms)
-    if xy.shape[0] < 2:
-        return np.zeros((0, 2)), np.zeros((0, 2)), np.zeros(0, dtype=np.int64)
-    inner = ring[1:] == ring[:-1]
-    a, b = xy[:-1][inner], xy[1:][inner]
-    seg_ring = ring[:-1][inner]
-    twice_area = np.bincount(seg_ring, weights=a[:, 0] * b[:, 1] - b[:, 0] * a[:, 1], minlength=shell.size)
-    flip = np.where(shell, twice_area < 0, twice_area > 0)
-    swap = flip[seg_ring][:, None]
-    a, b = np.where(swap, b, a), np.where(swap, a, b)
-    keep = np.any(a != b, axis=1)
-    return a[keep], b[keep], owner[seg_ring[keep]]
+    s = np.flatnonzero(ring[1:] == ring[:-1])
+    e = s + 1
+    seg_ring = ring[s]
+    x, y = xy[:, 0], xy[:, 1]
+    twice_area = np.bincount(seg_ring, weights=x[s] * y[e] - x[e] * y[s], minlength=shell.size)
+    flip = np.where(shell, twice_area < 0, twice_area > 0)[seg_ring]
+    s, e = np.where(flip, e, s), np.where(flip, s, e)
+    keep = (x[s] != x[e]) | (y[s] != y[e])
+    return xy, point_keys(xy), s[keep], e[keep], owner[seg_ring[keep]]
 
 
 def ring_coordinates(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:

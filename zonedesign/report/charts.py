@@ -52,11 +52,20 @@ def svg_uri(fig) -> str:
     return "data:image/svg+xml;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
-def _margins(fig, *, left: float = 0.6, right: float = 0.15, bottom: float = 0.45, top: float = 0.35,
-             wspace: float = 0.3) -> None:
+def _margins(
+    fig,
+    *,
+    left: float = 0.6,
+    right: float = 0.15,
+    bottom: float = 0.45,
+    top: float = 0.35,
+    wspace: float = 0.3,
+) -> None:
     """Margins in inches (a fixed layout draws the figure once, unlike tight_layout)."""
     w, h = fig.get_size_inches()
-    fig.subplots_adjust(left=left / w, right=1 - right / w, bottom=bottom / h, top=1 - top / h, wspace=wspace)
+    fig.subplots_adjust(
+        left=left / w, right=1 - right / w, bottom=bottom / h, top=1 - top / h, wspace=wspace
+    )
 
 
 def png_uri(data: bytes) -> str:
@@ -110,7 +119,9 @@ def shape_boxplots(series: Mapping[str, Mapping[str, np.ndarray]]) -> str | None
     if not measures:
         return None
     plt = _pyplot()
-    fig, axes = plt.subplots(1, len(measures), figsize=(3.4 * len(measures) + 0.4, 2.5), squeeze=False)
+    fig, axes = plt.subplots(
+        1, len(measures), figsize=(3.4 * len(measures) + 0.4, 2.5), squeeze=False
+    )
     for ax, m in zip(axes[0], measures):
         tiers = [t for t, v in series[m].items() if np.asarray(v).size]
         data = [np.asarray(series[m][t], dtype=float) for t in tiers]
@@ -149,7 +160,9 @@ def share_bars(shares: Mapping[str, float], title: str) -> str | None:
     return svg_uri(fig)
 
 
-def limits_from_rules(text: str | None, tiers: Sequence[str]) -> dict[str, dict[str, dict[str, float]]]:
+def limits_from_rules(
+    text: str | None, tiers: Sequence[str]
+) -> dict[str, dict[str, dict[str, float]]]:
     """Floor, target and ceiling per tier and count from the rules TOML text.
 
     Returns {tier: {count: {"min"|"target"|"max": value}}}; tiers are matched by name,

@@ -2,10 +2,12 @@
 
 Zones are coloured on their adjacency graph (any shared boundary or corner counts, so
 that two zones drawn touching always look apart). The order is smallest-last: a zone is
-coloured after every zone with fewer uncoloured neighbours, which bounds the number of
-colours by the graph's degeneracy plus one (at most six for a map whose zones meet only
-along edges, since such a graph is planar). Among the free colours the least used one is
-taken, so the palette is spread evenly over the map instead of piling onto its first entry.
+coloured after every zone with fewer uncoloured neighbours, so when its turn comes it has
+at most `degeneracy` coloured neighbours and the palette always has a free fill when it is
+larger than that (a map whose zones meet only along edges is planar: degeneracy at most
+five). Among the free fills the least used one is taken, so the palette is spread evenly
+over the map instead of piling onto its first entry. Only a graph of higher degeneracy
+(many zones meeting at one point) gets fills beyond the palette.
 """
 
 from __future__ import annotations
@@ -64,7 +66,9 @@ def zone_neighbours(geometries: Sequence | np.ndarray, *, tolerance: float = 0.0
     return np.unique(pairs, axis=0) if pairs.size else pairs.reshape(0, 2)
 
 
-def colour_graph(n: int, pairs: np.ndarray | Iterable[tuple[int, int]], *, colours: int = len(PALETTE)) -> np.ndarray:
+def colour_graph(
+    n: int, pairs: np.ndarray | Iterable[tuple[int, int]], *, colours: int = len(PALETTE)
+) -> np.ndarray:
     """A proper colouring of nodes 0..n-1: adjacent nodes get different colour indices.
 
     Tries to stay within `colours` indices; a graph that needs more (a clique of zones all

@@ -63,7 +63,13 @@ def frame_for(bounds: Sequence[float], size: int = MAP_SIZE) -> Frame:
     scale = (size - 2 * MARGIN) / span
     width = int(np.ceil((maxx - minx) * scale)) + 2 * MARGIN
     height = int(np.ceil((maxy - miny) * scale)) + 2 * MARGIN
-    return Frame(minx=minx, maxy=maxy, scale=scale, width=max(width, 2 * MARGIN + 1), height=max(height, 2 * MARGIN + 1))
+    return Frame(
+        minx=minx,
+        maxy=maxy,
+        scale=scale,
+        width=max(width, 2 * MARGIN + 1),
+        height=max(height, 2 * MARGIN + 1),
+    )
 
 
 def simplify(geoms: np.ndarray, tolerance: float) -> np.ndarray:
@@ -151,7 +157,12 @@ _UNSAFE_STRICT = re.compile(r"[^A-Za-z0-9]")
 
 def _escape(pattern: re.Pattern, s: str) -> str:
     # fixed-width escapes keep the mapping one-to-one
-    return pattern.sub(lambda m: f"_{ord(m.group()):04x}" if ord(m.group()) < 0x10000 else f"_u{ord(m.group()):06x}", s)
+    return pattern.sub(
+        lambda m: (
+            f"_{ord(m.group()):04x}" if ord(m.group()) < 0x10000 else f"_u{ord(m.group()):06x}"
+        ),
+        s,
+    )
 
 
 def element_id(prefix: str, tier: str, zone: str) -> str:
@@ -236,5 +247,9 @@ def _fence_outline(drawn: np.ndarray, fences: np.ndarray, frame: Frame) -> str:
         if merged is None or merged.is_empty or not merged.is_valid:
             merged = shapely.union_all(shapely.make_valid(part))
         outlines.append(merged)
-    d = "".join(path_data(np.asarray(outlines, dtype=object), frame))
+    # dissolving leaves the zones' corners along straight fence lines; drop them
+    lines = shapely.simplify(
+        np.asarray(outlines, dtype=object), 0.1 * frame.unit, preserve_topology=True
+    )
+    d = "".join(path_data(lines, frame))
     return f'<path class="fence" d="{d}"/>' if d else ""

@@ -36,24 +36,24 @@ CT_SIZE = 8
 
 
 @njit(cache=True)
-def sample_uphill(d, z, seed, nsamp):
+def sample_uphill(st, seed, nsamp):
     """Mean objective rise over random moves that keep the breaks (0 when none rise)."""
     np.random.seed(seed)
     tot = 0.0
     cnt = 0
     for _ in range(nsamp):
-        nb = z.iv[IV_NB]
+        nb = st.iv[IV_NB]
         if nb == 0:
             break
-        i = z.blist[np.random.randint(nb)]
-        a = z.labels[i]
-        la, nda, nt = unit_links(d, z, i, a)
-        if nt == 0 or z.size[a] <= 1:
+        i = st.blist[np.random.randint(nb)]
+        a = st.labels[i]
+        la, nda, nt = unit_links(st, i, a)
+        if nt == 0 or st.size[a] <= 1:
             continue
-        b = z.ztouch[np.random.randint(nt)]
-        ca, ka, cb, kb = move_values(d, z, i, a, b, la, z.zacc[b])
-        db = (ka + kb) - (z.brk[a] + z.brk[b])
-        do = (ca + cb) - (z.cost[a] + z.cost[b])
+        b = st.ztouch[np.random.randint(nt)]
+        ca, ka, cb, kb = move_values(st, i, a, b, la, st.zacc[b])
+        db = (ka + kb) - (st.brk[a] + st.brk[b])
+        do = (ca + cb) - (st.cost[a] + st.cost[b])
         if db <= EPS_BRK and do > EPS_OBJ:
             tot += do
             cnt += 1
@@ -61,23 +61,24 @@ def sample_uphill(d, z, seed, nsamp):
 
 
 @njit(cache=True)
-def keep_best(z, db, do, best_labels, ctl, cti):
+def keep_best(st, db, do, best_labels, ctl, cti):
     """Before leaving the current labelling: save it if it is the best seen and unsaved.
 
     Returns True when the move (db, do) about to be made yields a new best.
     """
-    newbest = key_less(z.fv[FV_BRK] + db, z.fv[FV_TOTAL] + do, ctl[0], ctl[1])
+    newbest = key_less(st.fv[FV_BRK] + db, st.fv[FV_TOTAL] + do, ctl[0], ctl[1])
     if cti[CT_CUR_BEST] == 1 and cti[CT_SAVED] == 0 and not newbest:
-        best_labels[:] = z.labels
+        for u in range(best_labels.shape[0]):
+            best_labels[u] = st.labels[u]
         cti[CT_SAVED] = 1
     return newbest
 
 
 @njit(cache=True)
-def note_best(z, newbest, ctl, cti):
+def note_best(st, newbest, ctl, cti):
     if newbest:
-        ctl[0] = z.fv[FV_BRK]
-        ctl[1] = z.fv[FV_TOTAL]
+        ctl[0] = st.fv[FV_BRK]
+        ctl[1] = st.fv[FV_TOTAL]
         cti[CT_CUR_BEST] = 1
         cti[CT_SAVED] = 0
         cti[CT_IMPROVED] += 1
@@ -86,39 +87,39 @@ def note_best(z, newbest, ctl, cti):
 
 
 @njit(cache=True)
-def anneal_block(d, z, seed, temp, nmoves, best_labels, ctl, cti):
+def anneal_block(st, seed, temp, nmoves, best_labels, ctl, cti):
     """nmoves Metropolis trials at temperature temp.
 
     ctl: [best breaks, best total]; cti: control counters (CT_*); best_labels: (n,).
     """
     np.random.seed(seed)
     for _ in range(nmoves):
-        nb = z.iv[IV_NB]
+        nb = st.iv[IV_NB]
         if nb == 0:
             break
-        i = z.blist[np.random.randint(nb)]
-        a = z.labels[i]
-        if z.size[a] <= 1:
+        i = st.blist[np.random.randint(nb)]
+        a = st.labels[i]
+        if st.size[a] <= 1:
             continue
-        la, nda, nt = unit_links(d, z, i, a)
+        la, nda, nt = unit_links(st, i, a)
         if nt == 0:
             continue
-        b = z.ztouch[np.random.randint(nt)]
-        lb = z.zacc[b]
-        ca, ka, cb, kb = move_values(d, z, i, a, b, la, lb)
-        db = (ka + kb) - (z.brk[a] + z.brk[b])
-        do = (ca + cb) - (z.cost[a] + z.cost[b])
+        b = st.ztouch[np.random.randint(nt)]
+        lb = st.zacc[b]
+        ca, ka, cb, kb = move_values(st, i, a, b, la, lb)
+        db = (ka + kb) - (st.brk[a] + st.brk[b])
+        do = (ca + cb) - (st.cost[a] + st.cost[b])
         cti[CT_TRIED] += 1
         if db > EPS_BRK:
             continue
         if db >= -EPS_BRK and do > 0.0:
             if temp <= 0.0 or np.random.random() >= np.exp(-do / temp):
                 continue
-        if not donor_ok(d, z, i):
+        if not donor_ok(st, i):
             continue
-        newbest = keep_best(z, db, do, best_labels, ctl, cti)
-        apply_move(d, z, i, b, la, lb)
+        newbest = keep_best(st, db, do, best_labels, ctl, cti)
+        apply_move(st, i, b, la, lb)
         cti[CT_ACCEPTED] += 1
         if db < -EPS_BRK or abs(do) > EPS_OBJ:
             cti[CT_CHANGED] += 1
-        note_best(z, newbest, ctl, cti)
+        note_best(st, newbest, ctl, cti)

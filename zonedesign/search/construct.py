@@ -28,18 +28,18 @@ from zonedesign.search.kernels import (
 
 
 @njit(cache=True)
-def grow_zones(d, seed, alpha, beta, labels):
+def grow_zones(st, seed, alpha, beta, labels):
     """Region growing; writes zone ids 0..k-1 to labels (-1 for enclaves) and returns k."""
     np.random.seed(seed)
     n = labels.shape[0]
-    nc = d.counts.shape[1]
-    na = d.x.shape[1]
+    nc = st.counts.shape[1]
+    na = st.x.shape[1]
     for i in range(n):
         labels[i] = -1
     enclave = -2
     tcol = -1
     for c in range(nc):
-        if d.tmask[c] == 1:
+        if st.tmask[c] == 1:
             tcol = c
             break
     tc = np.zeros(nc)
@@ -67,11 +67,11 @@ def grow_zones(d, seed, alpha, beta, labels):
             mem[m] = u
             m += 1
             for c in range(nc):
-                tc[c] += d.counts[u, c]
+                tc[c] += st.counts[u, c]
             for t in range(na):
-                xs[t] += d.x[u, t]
-            for p in range(d.indptr[u], d.indptr[u + 1]):
-                j = d.indices[p]
+                xs[t] += st.x[u, t]
+            for p in range(st.indptr[u], st.indptr[u + 1]):
+                j = st.indices[p]
                 if labels[j] != -1:
                     continue
                 if fmark[j] != stamp:
@@ -79,10 +79,10 @@ def grow_zones(d, seed, alpha, beta, labels):
                     flen[j] = 0.0
                     fr[nf] = j
                     nf += 1
-                flen[j] += d.length[p]
+                flen[j] += st.length[p]
             floors = True
             for c in range(nc):
-                if np.isfinite(d.lo[c]) and tc[c] < d.lo[c]:
+                if np.isfinite(st.lo[c]) and tc[c] < st.lo[c]:
                     floors = False
             if floors and tcol < 0:
                 break
@@ -98,24 +98,24 @@ def grow_zones(d, seed, alpha, beta, labels):
                 keep += 1
                 ok = True
                 for c in range(nc):
-                    if np.isfinite(d.hi[c]) and tc[c] + d.counts[j, c] > d.hi[c]:
+                    if np.isfinite(st.hi[c]) and tc[c] + st.counts[j, c] > st.hi[c]:
                         ok = False
                 if not ok:
                     continue
                 if floors:
-                    now = abs(tc[tcol] - d.target[tcol])
-                    after = abs(tc[tcol] + d.counts[j, tcol] - d.target[tcol])
+                    now = abs(tc[tcol] - st.target[tcol])
+                    after = abs(tc[tcol] + st.counts[j, tcol] - st.target[tcol])
                     if after >= now:
                         continue
                 sc = 0.0
                 if alpha > 0.0 and na > 0:
                     dd = 0.0
                     for t in range(na):
-                        v = d.x[j, t] - xs[t] / m
+                        v = st.x[j, t] - xs[t] / m
                         dd += v * v
                     sc += alpha * dd / na
                 if beta > 0.0:
-                    share = flen[j] / d.perim[j] if d.perim[j] > 0.0 else 0.0
+                    share = flen[j] / st.perim[j] if st.perim[j] > 0.0 else 0.0
                     sc += beta * (1.0 - min(share, 1.0))
                 if sc < bscore:
                     bscore = sc
@@ -124,7 +124,7 @@ def grow_zones(d, seed, alpha, beta, labels):
             u = best
         floors = True
         for c in range(nc):
-            if np.isfinite(d.lo[c]) and tc[c] < d.lo[c]:
+            if np.isfinite(st.lo[c]) and tc[c] < st.lo[c]:
                 floors = False
         if floors:
             k += 1
@@ -138,22 +138,24 @@ def grow_zones(d, seed, alpha, beta, labels):
 
 
 @njit(cache=True)
-def absorb_enclaves(d, z, seed):
+def absorb_enclaves(st, seed):
     """Give every unassigned unit a zone; returns the number of zones made for lone components.
 
-    z must hold the partial labelling (unassigned units labelled -1).
+    st must hold the partial labelling (unassigned units labelled -1).
     """
     np.random.seed(seed)
-    n = z.labels.shape[0]
+    n = st.labels.shape[0]
     cand = np.empty(n, dtype=np.int64)
-    pairwise = d.kind[0] == 1 and d.coef[1] != 0.0
+    pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
+    # typed, not literal, so callees compile once (numba specialises on literal ints)
+    none = np.int64(-1)
     while True:
         nc = 0
         for i in range(n):
-            if z.labels[i] >= 0:
+            if st.labels[i] >= 0:
                 continue
-            for p in range(d.indptr[i], d.indptr[i + 1]):
-                if z.labels[d.indices[p]] >= 0:
+            for p in range(st.indptr[i], st.indptr[i + 1]):
+                if st.labels[st.indices[p]] >= 0:
                     cand[nc] = i
                     nc += 1
                     break
@@ -166,44 +168,44 @@ def absorb_enclaves(d, z, seed):
             cand[r] = tmp
         for t in range(nc):
             i = cand[t]
-            if z.labels[i] >= 0:
+            if st.labels[i] >= 0:
                 continue
-            la, nda, nt = unit_links(d, z, i, -1)
-            bb = -1
+            la, nda, nt = unit_links(st, i, none)
+            bb = none
             bdb = 0.0
             bdo = 0.0
             blen = 0.0
             for q in range(nt):
-                b = z.ztouch[q]
-                hb = dist_to_zone(d, z, i, b) if pairwise else 0.0
-                cb, kb = value_with(d, z, b, i, 1.0, z.zacc[b], hb)
-                db = kb - z.brk[b]
-                do = cb - z.cost[b]
+                b = st.ztouch[q]
+                hb = dist_to_zone(st, i, b) if pairwise else 0.0
+                cb, kb = value_with(st, b, i, 1.0, st.zacc[b], hb)
+                db = kb - st.brk[b]
+                do = cb - st.cost[b]
                 if bb < 0 or key_less(db, do, bdb, bdo):
                     bb = b
                     bdb = db
                     bdo = do
-                    blen = z.zacc[b]
-            apply_move(d, z, i, bb, 0.0, blen)
+                    blen = st.zacc[b]
+            apply_move(st, i, bb, 0.0, blen)
     # what is left are whole components without a zone: one zone each
     made = 0
     for s in range(n):
-        if z.labels[s] >= 0:
+        if st.labels[s] >= 0:
             continue
-        nz = pop_free(z)
+        nz = pop_free(st)
         made += 1
-        move_unit(d, z, s, nz)
+        move_unit(st, s, nz)
         head = 0
         tail = 0
-        z.queue[tail] = s
+        st.queue[tail] = s
         tail += 1
         while head < tail:
-            u = z.queue[head]
+            u = st.queue[head]
             head += 1
-            for p in range(d.indptr[u], d.indptr[u + 1]):
-                v = d.indices[p]
-                if z.labels[v] < 0:
-                    move_unit(d, z, v, nz)
-                    z.queue[tail] = v
+            for p in range(st.indptr[u], st.indptr[u + 1]):
+                v = st.indices[p]
+                if st.labels[v] < 0:
+                    move_unit(st, v, nz)
+                    st.queue[tail] = v
                     tail += 1
     return made

@@ -235,7 +235,7 @@ def _prepare_start(problem: Problem, start: np.ndarray, anchors: np.ndarray | No
 def _construct(run: _Run, rounds: int) -> tuple[np.ndarray, int]:
     """Best of `rounds` region growings by (breaks, total); returns (labels, tried)."""
     state = run.state
-    d, z = state.data, state.zones
+    st = state.st
     tw = state.problem.term_weights
     alpha = 1.0 if tw.get("homogeneity", 0.0) > 0 else 0.0
     beta = 1.0 if tw.get("compactness", 0.0) > 0 or alpha == 0.0 else 0.0
@@ -245,9 +245,9 @@ def _construct(run: _Run, rounds: int) -> tuple[np.ndarray, int]:
     best_key = None
     tried = 0
     for _ in range(rounds):
-        grow_zones(d, run.seed(), alpha, beta, labels)
+        grow_zones(st, run.seed(), alpha, beta, labels)
         state.load(labels)
-        absorb_enclaves(d, z, run.seed())
+        absorb_enclaves(st, run.seed())
         tried += 1
         state.resync()
         key = state.key()
@@ -260,11 +260,11 @@ def _construct(run: _Run, rounds: int) -> tuple[np.ndarray, int]:
 
 
 def _descent(run: _Run) -> None:
-    d, z = run.state.data, run.state.zones
+    st = run.state.st
     order = np.empty(run.state.problem.n, dtype=np.int64)
     stats = np.zeros(2, dtype=np.int64)
     for _ in range(MAX_SWEEPS):
-        if descent_sweep(d, z, run.seed(), order, stats) == 0 or run.out_of_time():
+        if descent_sweep(st, run.seed(), order, stats) == 0 or run.out_of_time():
             break
     run.info["moves_tried"] += int(stats[0])
     run.info["moves_accepted"] += int(stats[1])
@@ -272,7 +272,7 @@ def _descent(run: _Run) -> None:
 
 def _improve(run: _Run) -> None:
     """Descent, merges and splits until none of them changes anything."""
-    d, z = run.state.data, run.state.zones
+    st = run.state.st
     changed = 1
     for _ in range(MAX_ROUNDS):
         run.state.resync()
@@ -281,8 +281,8 @@ def _improve(run: _Run) -> None:
         run.info["rounds"] += 1
         if run.out_of_time():
             return
-        m = int(merge_pass(d, z, run.seed()))
-        s = int(split_pass(d, z, run.seed(), N_TREES, FAR_ABOVE_TARGET))
+        m = int(merge_pass(st, run.seed()))
+        s = int(split_pass(st, run.seed(), N_TREES, FAR_ABOVE_TARGET))
         run.info["merges"] += m
         run.info["splits"] += s
         changed = m + s
@@ -315,10 +315,10 @@ def _back_to_best(run: _Run, best: np.ndarray, cti: np.ndarray) -> None:
 def _anneal(run: _Run) -> None:
     """Simulated annealing from the current labelling; ends on the best labelling seen."""
     state = run.state
-    d, z = state.data, state.zones
+    st = state.st
     n = state.problem.n
     best, ctl, cti = _search_control(state)
-    uphill = float(sample_uphill(d, z, run.seed(), max(MIN_WORK, min(20 * n, 5000))))
+    uphill = float(sample_uphill(st, run.seed(), max(MIN_WORK, min(20 * n, 5000))))
     if uphill <= 0.0:
         return
     temp = uphill / -math.log(ANNEAL_START_ACCEPT)
@@ -331,7 +331,7 @@ def _anneal(run: _Run) -> None:
     while done < budget and not run.out_of_time():
         block = min(per_temp, budget - done)
         changed0, improved0 = cti[CT_CHANGED], cti[CT_IMPROVED]
-        anneal_block(d, z, run.seed(), temp, block, best, ctl, cti)
+        anneal_block(st, run.seed(), temp, block, best, ctl, cti)
         done += block
         temps += 1
         quiet = cti[CT_CHANGED] - changed0 <= block // 500 and cti[CT_IMPROVED] == improved0
@@ -346,7 +346,7 @@ def _anneal(run: _Run) -> None:
 def _tabu(run: _Run) -> None:
     """Tabu search from the current labelling; ends on the best labelling seen."""
     state = run.state
-    d, z = state.data, state.zones
+    st = state.st
     n = state.problem.n
     best, ctl, cti = _search_control(state)
     no_improve = int(run.rules.max_no_improve) or max(MIN_WORK, TABU_NO_IMPROVE * n)
@@ -359,7 +359,7 @@ def _tabu(run: _Run) -> None:
         block = min(BLOCK, max_iter - it)
         it = int(
             tabu_block(
-                d, z, run.seed(), it, block, TABU_SAMPLE, tenure, no_improve, tabu_zone, tabu_until, best, ctl, cti
+                st, run.seed(), it, block, TABU_SAMPLE, tenure, no_improve, tabu_zone, tabu_until, best, ctl, cti
             )
         )
     run.info["tabu_iterations"] = int(cti[CT_ACCEPTED])

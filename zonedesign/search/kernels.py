@@ -1,6 +1,8 @@
 """Compiled zone state: per-zone sums kept incrementally over the CSR graph.
 
-Everything here runs under numba over flat arrays. Two named tuples carry the arrays:
+Everything here runs under numba over flat arrays. Two named tuples hold the arrays on the
+Python side, and the kernels see all of them through one structref (`State`), passed by
+reference so that calls between kernels stay cheap and compile quickly:
 
 - `Data`: the problem, fixed during a search (graph, unit counts and attributes, bounds,
   and the weight of each objective term already divided by its normaliser).
@@ -19,7 +21,8 @@ from __future__ import annotations
 from collections import namedtuple
 
 import numpy as np
-from numba import njit
+from numba import njit, types
+from numba.experimental import structref
 
 # tolerances: a change smaller than these is no change (float noise of incremental sums)
 EPS_BRK = 1e-12
@@ -92,6 +95,32 @@ Zones = namedtuple(
 )
 
 
+@structref.register
+class StateType(types.StructRef):
+    """numba type of the compiled state: every array of Data and Zones, by reference."""
+
+    def preprocess_fields(self, fields):
+        return tuple((name, types.unliteral(typ)) for name, typ in fields)
+
+
+class State(structref.StructRefProxy):
+    """Python handle of the compiled state (the arrays stay reachable through Data/Zones)."""
+
+
+structref.define_boxing(StateType, State)
+
+_I1 = types.Array(types.int64, 1, "C")
+_F1 = types.Array(types.float64, 1, "C")
+_F2 = types.Array(types.float64, 2, "C")
+_FIELD_TYPES = {
+    "counts": _F2, "x": _F2, "csum": _F2, "S": _F2,
+    "length": _F1, "lo": _F1, "hi": _F1, "target": _F1, "w": _F1, "q": _F1, "area": _F1,
+    "perim": _F1, "coef": _F1, "W": _F1, "Q": _F1, "H": _F1, "A": _F1, "P": _F1, "cost": _F1,
+    "brk": _F1, "fv": _F1, "zacc": _F1, "tc": _F1,
+}  # fmt: skip
+STATE_TYPE = StateType([(f, _FIELD_TYPES.get(f, _I1)) for f in Data._fields + Zones._fields])
+
+
 def make_data(
     indptr, indices, length, counts, lo, hi, target, x, w, area, perim, prev, coef, kind
 ) -> Data:
@@ -158,20 +187,76 @@ def make_zones(n: int, c: int, a: int) -> Zones:
     )
 
 
+@njit(cache=True)
+def _new_state(d, z):
+    st = structref.new(STATE_TYPE)
+    st.indptr = d.indptr
+    st.indices = d.indices
+    st.length = d.length
+    st.counts = d.counts
+    st.lo = d.lo
+    st.hi = d.hi
+    st.target = d.target
+    st.tmask = d.tmask
+    st.x = d.x
+    st.w = d.w
+    st.q = d.q
+    st.area = d.area
+    st.perim = d.perim
+    st.prev = d.prev
+    st.coef = d.coef
+    st.kind = d.kind
+    st.labels = z.labels
+    st.nxt = z.nxt
+    st.prv = z.prv
+    st.head = z.head
+    st.size = z.size
+    st.csum = z.csum
+    st.W = z.W
+    st.npos = z.npos
+    st.S = z.S
+    st.Q = z.Q
+    st.H = z.H
+    st.A = z.A
+    st.P = z.P
+    st.anchor = z.anchor
+    st.nstab = z.nstab
+    st.cost = z.cost
+    st.brk = z.brk
+    st.free = z.free
+    st.nbdiff = z.nbdiff
+    st.blist = z.blist
+    st.bpos = z.bpos
+    st.iv = z.iv
+    st.fv = z.fv
+    st.mark = z.mark
+    st.queue = z.queue
+    st.zmark = z.zmark
+    st.zacc = z.zacc
+    st.ztouch = z.ztouch
+    st.tc = z.tc
+    return st
+
+
+def new_state(d: Data, z: Zones) -> State:
+    """The compiled state over the arrays of d and z (shared, not copied)."""
+    return _new_state(d, z)
+
+
 # ---------------------------------------------------------------- zone value
 
 
 @njit(cache=True)
-def count_value(d, s):
+def count_value(st, s):
     """(size cost, bound break) of a zone whose count sums are s (measures' formulas)."""
     size = 0.0
     brk = 0.0
     for c in range(s.shape[0]):
         v = s[c]
-        if d.tmask[c] == 1:
-            size += abs(v - d.target[c]) / d.target[c]
-        lo = d.lo[c]
-        hi = d.hi[c]
+        if st.tmask[c] == 1:
+            size += abs(v - st.target[c]) / st.target[c]
+        lo = st.lo[c]
+        hi = st.hi[c]
         under = 0.0
         over = 0.0
         if np.isfinite(lo) and v < lo:
@@ -183,10 +268,10 @@ def count_value(d, s):
 
 
 @njit(cache=True)
-def zone_value(d, s, npos, W, Ssq, Q, H, A, P, nstab):
+def zone_value(st, s, npos, W, Ssq, Q, H, A, P, nstab):
     """(weighted normalised cost, bound break) of a zone from its sums."""
-    size, brk = count_value(d, s)
-    if d.kind[0] == 1:
+    size, brk = count_value(st, s)
+    if st.kind[0] == 1:
         hom = H
     elif npos > 0:
         hom = Q - Ssq / W
@@ -194,13 +279,13 @@ def zone_value(d, s, npos, W, Ssq, Q, H, A, P, nstab):
             hom = 0.0
     else:
         hom = 0.0
-    if d.kind[1] == 1:
+    if st.kind[1] == 1:
         comp = P / 2.0
     elif P > 0.0:
         comp = 1.0 - 4.0 * np.pi * A / (P * P)
     else:
         comp = 1.0
-    cost = d.coef[0] * size + d.coef[1] * hom + d.coef[2] * comp + d.coef[3] * nstab
+    cost = st.coef[0] * size + st.coef[1] * hom + st.coef[2] * comp + st.coef[3] * nstab
     return cost, brk
 
 
@@ -214,57 +299,57 @@ def dist(x, i, j):
 
 
 @njit(cache=True)
-def dist_to_zone(d, z, i, zone):
+def dist_to_zone(st, i, zone):
     """Sum of attribute distances from unit i to the members of zone (i itself excluded)."""
     s = 0.0
     if zone < 0:
         return s
-    j = z.head[zone]
+    j = st.head[zone]
     while j >= 0:
         if j != i:
-            s += dist(d.x, i, j)
-        j = z.nxt[j]
+            s += dist(st.x, i, j)
+        j = st.nxt[j]
     return s
 
 
 @njit(cache=True)
-def value_with(d, z, zone, i, sign, lz, hz):
+def value_with(st, zone, i, sign, lz, hz):
     """(cost, break) of `zone` after adding (sign=+1) or removing (sign=-1) unit i.
 
     lz: i's shared boundary with the other members of zone; hz: i's distance sum to them.
     """
-    if z.size[zone] + int(sign) == 0:
+    if st.size[zone] + int(sign) == 0:
         return 0.0, 0.0
-    tc = z.tc
+    tc = st.tc
     for c in range(tc.shape[0]):
-        tc[c] = z.csum[zone, c] + sign * d.counts[i, c]
-    wi = d.w[i]
-    W = z.W[zone] + sign * wi
-    npos = z.npos[zone] + (int(sign) if wi > 0.0 else 0)
+        tc[c] = st.csum[zone, c] + sign * st.counts[i, c]
+    wi = st.w[i]
+    W = st.W[zone] + sign * wi
+    npos = st.npos[zone] + (int(sign) if wi > 0.0 else 0)
     Ssq = 0.0
-    for t in range(d.x.shape[1]):
-        v = z.S[zone, t] + sign * (wi * d.x[i, t])
+    for t in range(st.x.shape[1]):
+        v = st.S[zone, t] + sign * (wi * st.x[i, t])
         Ssq += v * v
-    Q = z.Q[zone] + sign * d.q[i]
-    H = z.H[zone] + sign * hz
-    A = z.A[zone] + sign * d.area[i]
-    P = z.P[zone] + sign * (d.perim[i] - 2.0 * lz)
-    ns = z.nstab[zone]
-    if d.kind[2] == 1 and d.prev[i] != z.anchor[zone]:
+    Q = st.Q[zone] + sign * st.q[i]
+    H = st.H[zone] + sign * hz
+    A = st.A[zone] + sign * st.area[i]
+    P = st.P[zone] + sign * (st.perim[i] - 2.0 * lz)
+    ns = st.nstab[zone]
+    if st.kind[2] == 1 and st.prev[i] != st.anchor[zone]:
         ns += int(sign)
-    return zone_value(d, tc, npos, W, Ssq, Q, H, A, P, ns)
+    return zone_value(st, tc, npos, W, Ssq, Q, H, A, P, ns)
 
 
 @njit(cache=True)
-def stored_value(d, z, zone):
+def stored_value(st, zone):
     """(cost, break) of zone from its kept sums."""
-    if z.size[zone] == 0:
+    if st.size[zone] == 0:
         return 0.0, 0.0
     Ssq = 0.0
-    for t in range(z.S.shape[1]):
-        Ssq += z.S[zone, t] * z.S[zone, t]
+    for t in range(st.S.shape[1]):
+        Ssq += st.S[zone, t] * st.S[zone, t]
     return zone_value(
-        d, z.csum[zone], z.npos[zone], z.W[zone], Ssq, z.Q[zone], z.H[zone], z.A[zone], z.P[zone], z.nstab[zone]
+        st, st.csum[zone], st.npos[zone], st.W[zone], Ssq, st.Q[zone], st.H[zone], st.A[zone], st.P[zone], st.nstab[zone]
     )
 
 
@@ -272,391 +357,391 @@ def stored_value(d, z, zone):
 
 
 @njit(cache=True)
-def _link(z, i, zone):
-    h = z.head[zone]
-    z.nxt[i] = h
-    z.prv[i] = -1
+def _link(st, i, zone):
+    h = st.head[zone]
+    st.nxt[i] = h
+    st.prv[i] = -1
     if h >= 0:
-        z.prv[h] = i
-    z.head[zone] = i
+        st.prv[h] = i
+    st.head[zone] = i
 
 
 @njit(cache=True)
-def _unlink(z, i, zone):
-    p = z.prv[i]
-    q = z.nxt[i]
+def _unlink(st, i, zone):
+    p = st.prv[i]
+    q = st.nxt[i]
     if p >= 0:
-        z.nxt[p] = q
+        st.nxt[p] = q
     else:
-        z.head[zone] = q
+        st.head[zone] = q
     if q >= 0:
-        z.prv[q] = p
-    z.nxt[i] = -1
-    z.prv[i] = -1
+        st.prv[q] = p
+    st.nxt[i] = -1
+    st.prv[i] = -1
 
 
 @njit(cache=True)
-def _bl_update(z, j):
-    if z.nbdiff[j] > 0:
-        if z.bpos[j] < 0:
-            nb = z.iv[IV_NB]
-            z.blist[nb] = j
-            z.bpos[j] = nb
-            z.iv[IV_NB] = nb + 1
-    elif z.bpos[j] >= 0:
-        nb = z.iv[IV_NB] - 1
-        p = z.bpos[j]
-        last = z.blist[nb]
-        z.blist[p] = last
-        z.bpos[last] = p
-        z.bpos[j] = -1
-        z.iv[IV_NB] = nb
+def _bl_update(st, j):
+    if st.nbdiff[j] > 0:
+        if st.bpos[j] < 0:
+            nb = st.iv[IV_NB]
+            st.blist[nb] = j
+            st.bpos[j] = nb
+            st.iv[IV_NB] = nb + 1
+    elif st.bpos[j] >= 0:
+        nb = st.iv[IV_NB] - 1
+        p = st.bpos[j]
+        last = st.blist[nb]
+        st.blist[p] = last
+        st.bpos[last] = p
+        st.bpos[j] = -1
+        st.iv[IV_NB] = nb
 
 
 @njit(cache=True)
-def refresh_unit(d, z, i):
+def refresh_unit(st, i):
     """Recount i's neighbours in other zones and update the boundary list."""
-    lab = z.labels[i]
+    lab = st.labels[i]
     cnt = 0
-    for p in range(d.indptr[i], d.indptr[i + 1]):
-        if z.labels[d.indices[p]] != lab:
+    for p in range(st.indptr[i], st.indptr[i + 1]):
+        if st.labels[st.indices[p]] != lab:
             cnt += 1
-    z.nbdiff[i] = cnt
-    _bl_update(z, i)
+    st.nbdiff[i] = cnt
+    _bl_update(st, i)
 
 
 @njit(cache=True)
-def refresh_zone_boundary(d, z, zone):
+def refresh_zone_boundary(st, zone):
     """Recount the boundary status of zone's members and of their neighbours."""
-    u = z.head[zone]
+    u = st.head[zone]
     while u >= 0:
-        refresh_unit(d, z, u)
-        for p in range(d.indptr[u], d.indptr[u + 1]):
-            v = d.indices[p]
-            if z.labels[v] != zone:
-                refresh_unit(d, z, v)
-        u = z.nxt[u]
+        refresh_unit(st, u)
+        for p in range(st.indptr[u], st.indptr[u + 1]):
+            v = st.indices[p]
+            if st.labels[v] != zone:
+                refresh_unit(st, v)
+        u = st.nxt[u]
 
 
 # ---------------------------------------------------------------- building
 
 
 @njit(cache=True)
-def pop_free(z):
-    nf = z.iv[IV_NFREE] - 1
-    z.iv[IV_NFREE] = nf
-    zone = z.free[nf]
-    z.anchor[zone] = -1
+def pop_free(st):
+    nf = st.iv[IV_NFREE] - 1
+    st.iv[IV_NFREE] = nf
+    zone = st.free[nf]
+    st.anchor[zone] = -1
     return zone
 
 
 @njit(cache=True)
-def push_free(z, zone):
-    z.free[z.iv[IV_NFREE]] = zone
-    z.iv[IV_NFREE] += 1
+def push_free(st, zone):
+    st.free[st.iv[IV_NFREE]] = zone
+    st.iv[IV_NFREE] += 1
 
 
 @njit(cache=True)
-def recompute_zone(d, z, zone):
+def recompute_zone(st, zone):
     """Recompute zone's sums from its members (exact), keeping the running totals."""
-    z.fv[FV_TOTAL] -= z.cost[zone]
-    z.fv[FV_BRK] -= z.brk[zone]
-    c = z.csum.shape[1]
-    a = z.S.shape[1]
+    st.fv[FV_TOTAL] -= st.cost[zone]
+    st.fv[FV_BRK] -= st.brk[zone]
+    c = st.csum.shape[1]
+    a = st.S.shape[1]
     for t in range(c):
-        z.csum[zone, t] = 0.0
+        st.csum[zone, t] = 0.0
     for t in range(a):
-        z.S[zone, t] = 0.0
-    z.W[zone] = 0.0
-    z.npos[zone] = 0
-    z.Q[zone] = 0.0
-    z.A[zone] = 0.0
-    z.H[zone] = 0.0
-    z.nstab[zone] = 0
+        st.S[zone, t] = 0.0
+    st.W[zone] = 0.0
+    st.npos[zone] = 0
+    st.Q[zone] = 0.0
+    st.A[zone] = 0.0
+    st.H[zone] = 0.0
+    st.nstab[zone] = 0
     m = 0
     per = 0.0
     internal = 0.0
-    anc = z.anchor[zone]
-    u = z.head[zone]
+    anc = st.anchor[zone]
+    u = st.head[zone]
     while u >= 0:
         m += 1
         for t in range(c):
-            z.csum[zone, t] += d.counts[u, t]
-        wu = d.w[u]
-        z.W[zone] += wu
+            st.csum[zone, t] += st.counts[u, t]
+        wu = st.w[u]
+        st.W[zone] += wu
         if wu > 0.0:
-            z.npos[zone] += 1
+            st.npos[zone] += 1
         for t in range(a):
-            z.S[zone, t] += wu * d.x[u, t]
-        z.Q[zone] += d.q[u]
-        z.A[zone] += d.area[u]
-        per += d.perim[u]
-        for p in range(d.indptr[u], d.indptr[u + 1]):
-            v = d.indices[p]
-            if v > u and z.labels[v] == zone:
-                internal += d.length[p]
-        if d.kind[2] == 1 and d.prev[u] != anc:
-            z.nstab[zone] += 1
-        if d.kind[0] == 1 and d.coef[1] != 0.0:
-            v = z.nxt[u]
+            st.S[zone, t] += wu * st.x[u, t]
+        st.Q[zone] += st.q[u]
+        st.A[zone] += st.area[u]
+        per += st.perim[u]
+        for p in range(st.indptr[u], st.indptr[u + 1]):
+            v = st.indices[p]
+            if v > u and st.labels[v] == zone:
+                internal += st.length[p]
+        if st.kind[2] == 1 and st.prev[u] != anc:
+            st.nstab[zone] += 1
+        if st.kind[0] == 1 and st.coef[1] != 0.0:
+            v = st.nxt[u]
             while v >= 0:
-                z.H[zone] += dist(d.x, u, v)
-                v = z.nxt[v]
-        u = z.nxt[u]
-    z.size[zone] = m
-    z.P[zone] = per - 2.0 * internal
-    cost, brk = stored_value(d, z, zone)
-    z.cost[zone] = cost
-    z.brk[zone] = brk
-    z.fv[FV_TOTAL] += cost
-    z.fv[FV_BRK] += brk
+                st.H[zone] += dist(st.x, u, v)
+                v = st.nxt[v]
+        u = st.nxt[u]
+    st.size[zone] = m
+    st.P[zone] = per - 2.0 * internal
+    cost, brk = stored_value(st, zone)
+    st.cost[zone] = cost
+    st.brk[zone] = brk
+    st.fv[FV_TOTAL] += cost
+    st.fv[FV_BRK] += brk
 
 
 @njit(cache=True)
-def build_state(d, z, labels, anchors):
-    """Fill z from a labelling (slots 0..k-1, -1 for unassigned units) and zone anchors."""
+def build_state(st, labels, anchors):
+    """Fill st from a labelling (slots 0..k-1, -1 for unassigned units) and zone anchors."""
     n = labels.shape[0]
-    K = z.head.shape[0]
+    K = st.head.shape[0]
     for zone in range(K):
-        z.head[zone] = -1
-        z.size[zone] = 0
-        z.cost[zone] = 0.0
-        z.brk[zone] = 0.0
-        z.anchor[zone] = -1
+        st.head[zone] = -1
+        st.size[zone] = 0
+        st.cost[zone] = 0.0
+        st.brk[zone] = 0.0
+        st.anchor[zone] = -1
     for zone in range(anchors.shape[0]):
-        z.anchor[zone] = anchors[zone]
-    z.fv[FV_TOTAL] = 0.0
-    z.fv[FV_BRK] = 0.0
+        st.anchor[zone] = anchors[zone]
+    st.fv[FV_TOTAL] = 0.0
+    st.fv[FV_BRK] = 0.0
     # members linked in descending unit order so each list reads ascending
     for i in range(n - 1, -1, -1):
-        z.labels[i] = labels[i]
-        z.nxt[i] = -1
-        z.prv[i] = -1
+        st.labels[i] = labels[i]
+        st.nxt[i] = -1
+        st.prv[i] = -1
         if labels[i] >= 0:
-            _link(z, i, labels[i])
-            z.size[labels[i]] += 1
+            _link(st, i, labels[i])
+            st.size[labels[i]] += 1
     nf = 0
     for zone in range(K - 1, -1, -1):
-        if z.size[zone] > 0:
-            recompute_zone(d, z, zone)
+        if st.size[zone] > 0:
+            recompute_zone(st, zone)
         else:
-            z.free[nf] = zone
+            st.free[nf] = zone
             nf += 1
-    z.iv[IV_NFREE] = nf
+    st.iv[IV_NFREE] = nf
     # recompute_zone accumulated the totals zone by zone; restart them from a clean sum
     tot = 0.0
     brk = 0.0
     for zone in range(K):
-        tot += z.cost[zone]
-        brk += z.brk[zone]
-    z.fv[FV_TOTAL] = tot
-    z.fv[FV_BRK] = brk
-    z.iv[IV_NB] = 0
+        tot += st.cost[zone]
+        brk += st.brk[zone]
+    st.fv[FV_TOTAL] = tot
+    st.fv[FV_BRK] = brk
+    st.iv[IV_NB] = 0
     for i in range(n):
-        z.bpos[i] = -1
+        st.bpos[i] = -1
     for i in range(n):
-        refresh_unit(d, z, i)
+        refresh_unit(st, i)
 
 
 # ---------------------------------------------------------------- single-unit moves
 
 
 @njit(cache=True)
-def unit_links(d, z, i, a):
+def unit_links(st, i, a):
     """Scan i's row: (shared length with zone a, neighbours in a, touched other zones).
 
-    The other zones go to z.ztouch[:nt] with their shared length in z.zacc[zone].
+    The other zones go to st.ztouch[:nt] with their shared length in st.zacc[zone].
     """
-    z.iv[IV_ZSTAMP] += 1
-    stamp = z.iv[IV_ZSTAMP]
+    st.iv[IV_ZSTAMP] += 1
+    stamp = st.iv[IV_ZSTAMP]
     la = 0.0
     nda = 0
     nt = 0
-    for p in range(d.indptr[i], d.indptr[i + 1]):
-        lab = z.labels[d.indices[p]]
+    for p in range(st.indptr[i], st.indptr[i + 1]):
+        lab = st.labels[st.indices[p]]
         if lab == a:
-            la += d.length[p]
+            la += st.length[p]
             nda += 1
         elif lab >= 0:
-            if z.zmark[lab] != stamp:
-                z.zmark[lab] = stamp
-                z.zacc[lab] = 0.0
-                z.ztouch[nt] = lab
+            if st.zmark[lab] != stamp:
+                st.zmark[lab] = stamp
+                st.zacc[lab] = 0.0
+                st.ztouch[nt] = lab
                 nt += 1
-            z.zacc[lab] += d.length[p]
+            st.zacc[lab] += st.length[p]
     return la, nda, nt
 
 
 @njit(cache=True)
-def donor_ok(d, z, i):
+def donor_ok(st, i):
     """True when taking i out of its zone leaves the zone non-empty and connected.
 
     Searches the donor zone from one of i's neighbours in it, never entering i, and stops
     as soon as every one of i's neighbours in the zone has been reached.
     """
-    a = z.labels[i]
+    a = st.labels[i]
     if a < 0:
         return True
-    if z.size[a] <= 1:
+    if st.size[a] <= 1:
         return False
-    z.iv[IV_STAMP] += 2
-    target = z.iv[IV_STAMP]
+    st.iv[IV_STAMP] += 2
+    target = st.iv[IV_STAMP]
     seen = target + 1
     want = 0
     first = -1
-    for p in range(d.indptr[i], d.indptr[i + 1]):
-        j = d.indices[p]
-        if z.labels[j] == a and z.mark[j] != target:
-            z.mark[j] = target
+    for p in range(st.indptr[i], st.indptr[i + 1]):
+        j = st.indices[p]
+        if st.labels[j] == a and st.mark[j] != target:
+            st.mark[j] = target
             want += 1
             if first < 0:
                 first = j
     if want <= 1:
         return True
-    z.mark[first] = seen
+    st.mark[first] = seen
     found = 1
     head = 0
     tail = 0
-    z.queue[tail] = first
+    st.queue[tail] = first
     tail += 1
     while head < tail:
-        u = z.queue[head]
+        u = st.queue[head]
         head += 1
-        for p in range(d.indptr[u], d.indptr[u + 1]):
-            v = d.indices[p]
-            if v == i or z.labels[v] != a:
+        for p in range(st.indptr[u], st.indptr[u + 1]):
+            v = st.indices[p]
+            if v == i or st.labels[v] != a:
                 continue
-            mv = z.mark[v]
+            mv = st.mark[v]
             if mv == seen:
                 continue
             if mv == target:
                 found += 1
                 if found == want:
                     return True
-            z.mark[v] = seen
-            z.queue[tail] = v
+            st.mark[v] = seen
+            st.queue[tail] = v
             tail += 1
     return False
 
 
 @njit(cache=True)
-def move_values(d, z, i, a, b, la, lb):
+def move_values(st, i, a, b, la, lb):
     """(donor cost, donor break, receiver cost, receiver break) after moving i from a to b."""
     ha = 0.0
     hb = 0.0
-    if d.kind[0] == 1 and d.coef[1] != 0.0:
-        ha = dist_to_zone(d, z, i, a)
-        hb = dist_to_zone(d, z, i, b)
+    if st.kind[0] == 1 and st.coef[1] != 0.0:
+        ha = dist_to_zone(st, i, a)
+        hb = dist_to_zone(st, i, b)
     ca = 0.0
     ba = 0.0
     if a >= 0:
-        ca, ba = value_with(d, z, a, i, -1.0, la, ha)
-    cb, bb = value_with(d, z, b, i, 1.0, lb, hb)
+        ca, ba = value_with(st, a, i, -1.0, la, ha)
+    cb, bb = value_with(st, b, i, 1.0, lb, hb)
     return ca, ba, cb, bb
 
 
 @njit(cache=True)
-def apply_move(d, z, i, b, la, lb):
+def apply_move(st, i, b, la, lb):
     """Move unit i to zone b (i may be unassigned); la, lb: i's shared length with each."""
-    a = z.labels[i]
-    track_h = d.kind[0] == 1 and d.coef[1] != 0.0
-    wi = d.w[i]
+    a = st.labels[i]
+    track_h = st.kind[0] == 1 and st.coef[1] != 0.0
+    wi = st.w[i]
     if a >= 0:
-        ha = dist_to_zone(d, z, i, a) if track_h else 0.0
-        for c in range(z.csum.shape[1]):
-            z.csum[a, c] -= d.counts[i, c]
-        z.W[a] -= wi
+        ha = dist_to_zone(st, i, a) if track_h else 0.0
+        for c in range(st.csum.shape[1]):
+            st.csum[a, c] -= st.counts[i, c]
+        st.W[a] -= wi
         if wi > 0.0:
-            z.npos[a] -= 1
-        for t in range(z.S.shape[1]):
-            z.S[a, t] -= wi * d.x[i, t]
-        z.Q[a] -= d.q[i]
-        z.H[a] -= ha
-        z.A[a] -= d.area[i]
-        z.P[a] -= d.perim[i] - 2.0 * la
-        if d.kind[2] == 1 and d.prev[i] != z.anchor[a]:
-            z.nstab[a] -= 1
-        z.size[a] -= 1
-        _unlink(z, i, a)
-        z.fv[FV_TOTAL] -= z.cost[a]
-        z.fv[FV_BRK] -= z.brk[a]
-        if z.size[a] == 0:
-            z.cost[a] = 0.0
-            z.brk[a] = 0.0
-            push_free(z, a)
+            st.npos[a] -= 1
+        for t in range(st.S.shape[1]):
+            st.S[a, t] -= wi * st.x[i, t]
+        st.Q[a] -= st.q[i]
+        st.H[a] -= ha
+        st.A[a] -= st.area[i]
+        st.P[a] -= st.perim[i] - 2.0 * la
+        if st.kind[2] == 1 and st.prev[i] != st.anchor[a]:
+            st.nstab[a] -= 1
+        st.size[a] -= 1
+        _unlink(st, i, a)
+        st.fv[FV_TOTAL] -= st.cost[a]
+        st.fv[FV_BRK] -= st.brk[a]
+        if st.size[a] == 0:
+            st.cost[a] = 0.0
+            st.brk[a] = 0.0
+            push_free(st, a)
         else:
-            ca, ba = stored_value(d, z, a)
-            z.cost[a] = ca
-            z.brk[a] = ba
-            z.fv[FV_TOTAL] += ca
-            z.fv[FV_BRK] += ba
-    hb = dist_to_zone(d, z, i, b) if track_h else 0.0
-    for c in range(z.csum.shape[1]):
-        z.csum[b, c] += d.counts[i, c]
-    z.W[b] += wi
+            ca, ba = stored_value(st, a)
+            st.cost[a] = ca
+            st.brk[a] = ba
+            st.fv[FV_TOTAL] += ca
+            st.fv[FV_BRK] += ba
+    hb = dist_to_zone(st, i, b) if track_h else 0.0
+    for c in range(st.csum.shape[1]):
+        st.csum[b, c] += st.counts[i, c]
+    st.W[b] += wi
     if wi > 0.0:
-        z.npos[b] += 1
-    for t in range(z.S.shape[1]):
-        z.S[b, t] += wi * d.x[i, t]
-    z.Q[b] += d.q[i]
-    z.H[b] += hb
-    z.A[b] += d.area[i]
-    z.P[b] += d.perim[i] - 2.0 * lb
-    if d.kind[2] == 1 and d.prev[i] != z.anchor[b]:
-        z.nstab[b] += 1
-    z.size[b] += 1
-    _link(z, i, b)
-    z.labels[i] = b
-    z.fv[FV_TOTAL] -= z.cost[b]
-    z.fv[FV_BRK] -= z.brk[b]
-    cb, bb = stored_value(d, z, b)
-    z.cost[b] = cb
-    z.brk[b] = bb
-    z.fv[FV_TOTAL] += cb
-    z.fv[FV_BRK] += bb
+        st.npos[b] += 1
+    for t in range(st.S.shape[1]):
+        st.S[b, t] += wi * st.x[i, t]
+    st.Q[b] += st.q[i]
+    st.H[b] += hb
+    st.A[b] += st.area[i]
+    st.P[b] += st.perim[i] - 2.0 * lb
+    if st.kind[2] == 1 and st.prev[i] != st.anchor[b]:
+        st.nstab[b] += 1
+    st.size[b] += 1
+    _link(st, i, b)
+    st.labels[i] = b
+    st.fv[FV_TOTAL] -= st.cost[b]
+    st.fv[FV_BRK] -= st.brk[b]
+    cb, bb = stored_value(st, b)
+    st.cost[b] = cb
+    st.brk[b] = bb
+    st.fv[FV_TOTAL] += cb
+    st.fv[FV_BRK] += bb
     # boundary bookkeeping: only i and its neighbours can change status
     cnt = 0
-    for p in range(d.indptr[i], d.indptr[i + 1]):
-        j = d.indices[p]
-        lj = z.labels[j]
+    for p in range(st.indptr[i], st.indptr[i + 1]):
+        j = st.indices[p]
+        lj = st.labels[j]
         if lj != b:
             cnt += 1
         before = 1 if lj != a else 0
         after = 1 if lj != b else 0
         if before != after:
-            z.nbdiff[j] += after - before
-            _bl_update(z, j)
-    z.nbdiff[i] = cnt
-    _bl_update(z, i)
+            st.nbdiff[j] += after - before
+            _bl_update(st, j)
+    st.nbdiff[i] = cnt
+    _bl_update(st, i)
 
 
 @njit(cache=True)
-def move_unit(d, z, i, b):
+def move_unit(st, i, b):
     """Move unit i to zone b, computing the shared lengths."""
-    a = z.labels[i]
-    la, nda, nt = unit_links(d, z, i, a)
+    a = st.labels[i]
+    la, nda, nt = unit_links(st, i, a)
     lb = 0.0
     for t in range(nt):
-        if z.ztouch[t] == b:
-            lb = z.zacc[b]
-    apply_move(d, z, i, b, la, lb)
+        if st.ztouch[t] == b:
+            lb = st.zacc[b]
+    apply_move(st, i, b, la, lb)
 
 
 @njit(cache=True)
-def move_delta(d, z, i, b):
+def move_delta(st, i, b):
     """(break change, objective change) of moving unit i to zone b."""
-    a = z.labels[i]
-    la, nda, nt = unit_links(d, z, i, a)
+    a = st.labels[i]
+    la, nda, nt = unit_links(st, i, a)
     lb = 0.0
     for t in range(nt):
-        if z.ztouch[t] == b:
-            lb = z.zacc[b]
-    ca, ba, cb, bb = move_values(d, z, i, a, b, la, lb)
-    old_c = z.cost[b]
-    old_b = z.brk[b]
+        if st.ztouch[t] == b:
+            lb = st.zacc[b]
+    ca, ba, cb, bb = move_values(st, i, a, b, la, lb)
+    old_c = st.cost[b]
+    old_b = st.brk[b]
     if a >= 0:
-        old_c += z.cost[a]
-        old_b += z.brk[a]
+        old_c += st.cost[a]
+        old_b += st.brk[a]
     return (ba + bb) - old_b, (ca + cb) - old_c
 
 
@@ -673,14 +758,14 @@ def key_less(b1, t1, b2, t2):
 
 
 @njit(cache=True)
-def exact_totals(z):
+def exact_totals(st):
     """(total, breaks) summed afresh over zones, without the drift of running sums."""
     tot = 0.0
     brk = 0.0
-    for zone in range(z.cost.shape[0]):
-        if z.size[zone] > 0:
-            tot += z.cost[zone]
-            brk += z.brk[zone]
+    for zone in range(st.cost.shape[0]):
+        if st.size[zone] > 0:
+            tot += st.cost[zone]
+            brk += st.brk[zone]
     return tot, brk
 
 

@@ -38,119 +38,119 @@ N_EXACT = 8  # cuts priced exactly per tree when the pairwise term needs the mem
 
 
 @njit(cache=True)
-def zone_neighbours(d, z, a):
-    """Zones adjacent to a: z.ztouch[:nt] with shared length in z.zacc; returns nt."""
-    z.iv[IV_ZSTAMP] += 1
-    stamp = z.iv[IV_ZSTAMP]
+def zone_neighbours(st, a):
+    """Zones adjacent to a: st.ztouch[:nt] with shared length in st.zacc; returns nt."""
+    st.iv[IV_ZSTAMP] += 1
+    stamp = st.iv[IV_ZSTAMP]
     nt = 0
-    u = z.head[a]
+    u = st.head[a]
     while u >= 0:
-        for p in range(d.indptr[u], d.indptr[u + 1]):
-            lab = z.labels[d.indices[p]]
+        for p in range(st.indptr[u], st.indptr[u + 1]):
+            lab = st.labels[st.indices[p]]
             if lab == a or lab < 0:
                 continue
-            if z.zmark[lab] != stamp:
-                z.zmark[lab] = stamp
-                z.zacc[lab] = 0.0
-                z.ztouch[nt] = lab
+            if st.zmark[lab] != stamp:
+                st.zmark[lab] = stamp
+                st.zacc[lab] = 0.0
+                st.ztouch[nt] = lab
                 nt += 1
-            z.zacc[lab] += d.length[p]
-        u = z.nxt[u]
+            st.zacc[lab] += st.length[p]
+        u = st.nxt[u]
     return nt
 
 
 @njit(cache=True)
-def merge_value(d, z, a, b, shared, anc):
+def merge_value(st, a, b, shared, anc):
     """(cost, break) of the union of zones a and b with anchor anc."""
-    tc = z.tc
+    tc = st.tc
     for c in range(tc.shape[0]):
-        tc[c] = z.csum[a, c] + z.csum[b, c]
+        tc[c] = st.csum[a, c] + st.csum[b, c]
     Ssq = 0.0
-    for t in range(z.S.shape[1]):
-        v = z.S[a, t] + z.S[b, t]
+    for t in range(st.S.shape[1]):
+        v = st.S[a, t] + st.S[b, t]
         Ssq += v * v
     H = 0.0
-    if d.kind[0] == 1 and d.coef[1] != 0.0:
-        H = z.H[a] + z.H[b]
-        u = z.head[a]
+    if st.kind[0] == 1 and st.coef[1] != 0.0:
+        H = st.H[a] + st.H[b]
+        u = st.head[a]
         while u >= 0:
-            v = z.head[b]
+            v = st.head[b]
             while v >= 0:
-                H += dist(d.x, u, v)
-                v = z.nxt[v]
-            u = z.nxt[u]
-    ns = 0
-    if d.kind[2] == 1:
+                H += dist(st.x, u, v)
+                v = st.nxt[v]
+            u = st.nxt[u]
+    ns = np.int64(0)
+    if st.kind[2] == 1:
         for zone in (a, b):
-            u = z.head[zone]
+            u = st.head[zone]
             while u >= 0:
-                if d.prev[u] != anc:
+                if st.prev[u] != anc:
                     ns += 1
-                u = z.nxt[u]
+                u = st.nxt[u]
     return zone_value(
-        d,
+        st,
         tc,
-        z.npos[a] + z.npos[b],
-        z.W[a] + z.W[b],
+        st.npos[a] + st.npos[b],
+        st.W[a] + st.W[b],
         Ssq,
-        z.Q[a] + z.Q[b],
+        st.Q[a] + st.Q[b],
         H,
-        z.A[a] + z.A[b],
-        z.P[a] + z.P[b] - 2.0 * shared,
+        st.A[a] + st.A[b],
+        st.P[a] + st.P[b] - 2.0 * shared,
         ns,
     )
 
 
 @njit(cache=True)
-def merge_zones(d, z, keep, gone, anc):
+def merge_zones(st, keep, gone, anc):
     """Move every member of zone `gone` into zone `keep`, whose anchor becomes anc."""
-    u = z.head[gone]
+    u = st.head[gone]
     while u >= 0:
-        nxt = z.nxt[u]
-        z.labels[u] = keep
-        _link(z, u, keep)
+        nxt = st.nxt[u]
+        st.labels[u] = keep
+        _link(st, u, keep)
         u = nxt
-    z.head[gone] = -1
-    z.size[keep] += z.size[gone]
-    z.size[gone] = 0
-    z.fv[0] -= z.cost[gone]
-    z.fv[1] -= z.brk[gone]
-    z.cost[gone] = 0.0
-    z.brk[gone] = 0.0
-    push_free(z, gone)
-    z.anchor[keep] = anc
-    recompute_zone(d, z, keep)
-    refresh_zone_boundary(d, z, keep)
+    st.head[gone] = -1
+    st.size[keep] += st.size[gone]
+    st.size[gone] = 0
+    st.fv[0] -= st.cost[gone]
+    st.fv[1] -= st.brk[gone]
+    st.cost[gone] = 0.0
+    st.brk[gone] = 0.0
+    push_free(st, gone)
+    st.anchor[keep] = anc
+    recompute_zone(st, keep)
+    refresh_zone_boundary(st, keep)
 
 
 @njit(cache=True)
-def merge_delta(d, z, a, b):
+def merge_delta(st, a, b):
     """(break change, objective change, anchor) of the best way to merge zones a and b."""
     shared = 0.0
-    nt = zone_neighbours(d, z, a)
+    nt = zone_neighbours(st, a)
     for q in range(nt):
-        if z.ztouch[q] == b:
-            shared = z.zacc[b]
-    cost, brk = merge_value(d, z, a, b, shared, z.anchor[a])
-    anc = z.anchor[a]
-    if d.kind[2] == 1 and z.anchor[b] != z.anchor[a]:
-        cost2, brk2 = merge_value(d, z, a, b, shared, z.anchor[b])
+        if st.ztouch[q] == b:
+            shared = st.zacc[b]
+    cost, brk = merge_value(st, a, b, shared, st.anchor[a])
+    anc = st.anchor[a]
+    if st.kind[2] == 1 and st.anchor[b] != st.anchor[a]:
+        cost2, brk2 = merge_value(st, a, b, shared, st.anchor[b])
         if key_less(brk2, cost2, brk, cost):
             cost = cost2
             brk = brk2
-            anc = z.anchor[b]
-    return brk - z.brk[a] - z.brk[b], cost - z.cost[a] - z.cost[b], anc
+            anc = st.anchor[b]
+    return brk - st.brk[a] - st.brk[b], cost - st.cost[a] - st.cost[b], anc
 
 
 @njit(cache=True)
-def merge_pass(d, z, seed):
+def merge_pass(st, seed):
     """Merge each zone (in random order) with its best adjacent partner when that improves."""
     np.random.seed(seed)
-    K = z.size.shape[0]
+    K = st.size.shape[0]
     order = np.empty(K, dtype=np.int64)
     nz = 0
     for zone in range(K):
-        if z.size[zone] > 0:
+        if st.size[zone] > 0:
             order[nz] = zone
             nz += 1
     for t in range(nz - 1, 0, -1):
@@ -163,31 +163,31 @@ def merge_pass(d, z, seed):
     merges = 0
     for t in range(nz):
         a = order[t]
-        if z.size[a] == 0:
+        if st.size[a] == 0:
             continue
-        nt = zone_neighbours(d, z, a)
+        nt = zone_neighbours(st, a)
         for q in range(nt):
-            nb_zone[q] = z.ztouch[q]
-            nb_len[q] = z.zacc[z.ztouch[q]]
-        best = -1
+            nb_zone[q] = st.ztouch[q]
+            nb_len[q] = st.zacc[st.ztouch[q]]
+        best = np.int64(-1)
         bdb = 0.0
         bdo = 0.0
-        banc = -1
+        banc = np.int64(-1)
         for q in range(nt):
             b = nb_zone[q]
             fits = True
-            for c in range(z.csum.shape[1]):
-                if np.isfinite(d.hi[c]) and z.csum[a, c] + z.csum[b, c] > d.hi[c]:
+            for c in range(st.csum.shape[1]):
+                if np.isfinite(st.hi[c]) and st.csum[a, c] + st.csum[b, c] > st.hi[c]:
                     fits = False
             if not fits:
                 continue
             for option in range(2):
-                anc = z.anchor[a] if option == 0 else z.anchor[b]
-                if option == 1 and (d.kind[2] == 0 or anc == z.anchor[a]):
+                anc = st.anchor[a] if option == 0 else st.anchor[b]
+                if option == 1 and (st.kind[2] == 0 or anc == st.anchor[a]):
                     continue
-                cost, brk = merge_value(d, z, a, b, nb_len[q], anc)
-                db = brk - z.brk[a] - z.brk[b]
-                do = cost - z.cost[a] - z.cost[b]
+                cost, brk = merge_value(st, a, b, nb_len[q], anc)
+                db = brk - st.brk[a] - st.brk[b]
+                do = cost - st.cost[a] - st.cost[b]
                 if better(db, do) and (best < 0 or key_less(db, do, bdb, bdo)):
                     best = b
                     bdb = db
@@ -196,12 +196,12 @@ def merge_pass(d, z, seed):
         if best >= 0:
             # the larger zone keeps its slot unless the smaller one's anchor was chosen
             keep, gone = a, best
-            if d.kind[2] == 1:
-                if banc != z.anchor[a]:
+            if st.kind[2] == 1:
+                if banc != st.anchor[a]:
                     keep, gone = best, a
-            elif z.size[best] > z.size[a]:
+            elif st.size[best] > st.size[a]:
                 keep, gone = best, a
-            merge_zones(d, z, keep, gone, banc)
+            merge_zones(st, keep, gone, banc)
             merges += 1
     return merges
 
@@ -210,15 +210,15 @@ def merge_pass(d, z, seed):
 
 
 @njit(cache=True)
-def _part_value(d, s, npos, W, Svec, Q, H, A, P, ns):
+def _part_value(st, s, npos, W, Svec, Q, H, A, P, ns):
     Ssq = 0.0
     for t in range(Svec.shape[0]):
         Ssq += Svec[t] * Svec[t]
-    return zone_value(d, s, npos, W, Ssq, Q, H, A, P, ns)
+    return zone_value(st, s, npos, W, Ssq, Q, H, A, P, ns)
 
 
 @njit(cache=True)
-def _pair_sum(d, mem, part, side):
+def _pair_sum(st, mem, part, side):
     """Pairwise distance sum over members whose part flag equals side."""
     m = mem.shape[0]
     h = 0.0
@@ -227,31 +227,45 @@ def _pair_sum(d, mem, part, side):
             continue
         for q in range(p + 1, m):
             if part[q] == side:
-                h += dist(d.x, mem[p], mem[q])
+                h += dist(st.x, mem[p], mem[q])
     return h
 
 
 @njit(cache=True)
-def try_split(d, z, zone, ntrees, loc, force):
+def try_split(st, zone, ntrees, loc, force):
     """Cut zone in two along the best edge of ntrees random spanning trees.
 
     Makes the cut when it improves (breaks, objective), or always when force is set.
     Returns the new zone's slot, or -1. loc: (n,) int64 scratch.
     """
-    m = z.size[zone]
+    indptr = st.indptr
+    indices = st.indices
+    length = st.length
+    labels = st.labels
+    counts = st.counts
+    wt = st.w
+    x = st.x
+    qq = st.q
+    area = st.area
+    perim = st.perim
+    prev = st.prev
+    nxt = st.nxt
+    m = st.size[zone]
     if m < 2:
         return -1
-    nc = z.csum.shape[1]
-    na = z.S.shape[1]
-    stab = d.kind[2] == 1
-    pairwise = d.kind[0] == 1 and d.coef[1] != 0.0
-    anc = z.anchor[zone]
+    nc = st.csum.shape[1]
+    na = st.S.shape[1]
+    stab = st.kind[2] == 1
+    pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
+    anc = st.anchor[zone]
+    one = np.int64(1)
+    zero = np.int64(0)
     mem = np.empty(m, dtype=np.int64)
-    u = z.head[zone]
+    u = st.head[zone]
     for p in range(m):
         mem[p] = u
         loc[u] = p
-        u = z.nxt[u]
+        u = nxt[u]
     # per-member values, summed up each tree afterwards
     sc = np.empty((m, nc))
     sS = np.empty((m, na))
@@ -297,9 +311,9 @@ def try_split(d, z, zone, ntrees, loc, force):
         v = r
         while True:
             uu = mem[v]
-            for p in range(d.indptr[uu], d.indptr[uu + 1]):
-                w = d.indices[p]
-                if z.labels[w] != zone:
+            for p in range(indptr[uu], indptr[uu + 1]):
+                w = indices[p]
+                if labels[w] != zone:
                     continue
                 lw = loc[w]
                 if intree[lw] == 0:
@@ -322,27 +336,27 @@ def try_split(d, z, zone, ntrees, loc, force):
         for p in range(m):
             uu = mem[p]
             for c in range(nc):
-                sc[p, c] = d.counts[uu, c]
-            wu = d.w[uu]
+                sc[p, c] = counts[uu, c]
+            wu = wt[uu]
             for t in range(na):
-                sS[p, t] = wu * d.x[uu, t]
+                sS[p, t] = wu * x[uu, t]
             sW[p] = wu
             snp[p] = 1 if wu > 0.0 else 0
-            sQ[p] = d.q[uu]
-            sA[p] = d.area[uu]
-            sper[p] = d.perim[uu]
-            sstA[p] = 1 if d.prev[uu] != anc else 0
-            sstN[p] = 1 if d.prev[uu] != -1 else 0
+            sQ[p] = qq[uu]
+            sA[p] = area[uu]
+            sper[p] = perim[uu]
+            sstA[p] = 1 if prev[uu] != anc else 0
+            sstN[p] = 1 if prev[uu] != -1 else 0
             sdeg[p] = 0.0
             sint[p] = 0.0
         # internal boundary: each zone edge counts at the lowest common ancestor of its ends
         for p in range(m):
             uu = mem[p]
-            for e in range(d.indptr[uu], d.indptr[uu + 1]):
-                w = d.indices[e]
-                if z.labels[w] != zone:
+            for e in range(indptr[uu], indptr[uu + 1]):
+                w = indices[e]
+                if labels[w] != zone:
                     continue
-                sdeg[p] += d.length[e]
+                sdeg[p] += length[e]
                 if w < uu:
                     continue
                 x1 = p
@@ -352,7 +366,7 @@ def try_split(d, z, zone, ntrees, loc, force):
                         x1 = parent[x1]
                     else:
                         x2 = parent[x2]
-                sint[x1] += d.length[e]
+                sint[x1] += length[e]
         for k in range(m - 1, 0, -1):
             v = order[k]
             pv = parent[v]
@@ -377,7 +391,7 @@ def try_split(d, z, zone, ntrees, loc, force):
         ncand = 0
         tdb = 0.0
         tdo = 0.0
-        tt = -1
+        tt = np.int64(-1)
         tkeep_x = 0
         for k in range(1, m):
             v = order[k]
@@ -400,12 +414,12 @@ def try_split(d, z, zone, ntrees, loc, force):
                 if not stab:
                     nsx = 0
                     nsy = 0
-                cx, kx = _part_value(d, sc[v], snp[v], sW[v], sS[v], sQ[v], 0.0, sA[v], px, nsx)
+                cx, kx = _part_value(st, sc[v], snp[v], sW[v], sS[v], sQ[v], 0.0, sA[v], px, nsx)
                 cy, ky = _part_value(
-                    d, yc, snp[r] - snp[v], sW[r] - sW[v], yS, sQ[r] - sQ[v], 0.0, sA[r] - sA[v], py, nsy
+                    st, yc, snp[r] - snp[v], sW[r] - sW[v], yS, sQ[r] - sQ[v], 0.0, sA[r] - sA[v], py, nsy
                 )
-                db = (kx + ky) - z.brk[zone]
-                do = (cx + cy) - z.cost[zone]
+                db = (kx + ky) - st.brk[zone]
+                do = (cx + cy) - st.cost[zone]
                 if pairwise:
                     # keep the N_EXACT best by everything but the pairwise term
                     if ncand < N_EXACT:
@@ -432,10 +446,10 @@ def try_split(d, z, zone, ntrees, loc, force):
         if pairwise:
             for s in range(ncand):
                 _mark_part(order, parent, cand_t[s], part, m)
-                hx = _pair_sum(d, mem, part, 1)
-                hy = _pair_sum(d, mem, part, 0)
+                hx = _pair_sum(st, mem, part, one)
+                hy = _pair_sum(st, mem, part, zero)
                 # the pairwise term enters through H; the other terms were priced already
-                do = cand_do[s] + d.coef[1] * (hx + hy)
+                do = cand_do[s] + st.coef[1] * (hx + hy)
                 if tt < 0 or key_less(cand_db[s], do, tdb, tdo):
                     tt = cand_t[s]
                     tdb = cand_db[s]
@@ -449,24 +463,24 @@ def try_split(d, z, zone, ntrees, loc, force):
             _mark_part(order, parent, tt, part, m)
             for p in range(m):
                 best_part[p] = part[p]
-    if not have or not (force or better(gdb, gdo)):
+    if not have or not (force != 0 or better(gdb, gdo)):
         return -1
     # the part that keeps the anchor keeps the slot; the other becomes a new zone
     new_side = 0 if gkeep_x == 1 else 1
-    nz = pop_free(z)
-    z.cost[nz] = 0.0
-    z.brk[nz] = 0.0
-    z.head[zone] = -1
-    z.head[nz] = -1
+    nz = pop_free(st)
+    st.cost[nz] = 0.0
+    st.brk[nz] = 0.0
+    st.head[zone] = -1
+    st.head[nz] = -1
     for p in range(m - 1, -1, -1):
         uu = mem[p]
         lab = nz if best_part[p] == new_side else zone
-        z.labels[uu] = lab
-        _link(z, uu, lab)
-    recompute_zone(d, z, zone)
-    recompute_zone(d, z, nz)
-    refresh_zone_boundary(d, z, zone)
-    refresh_zone_boundary(d, z, nz)
+        st.labels[uu] = lab
+        _link(st, uu, lab)
+    recompute_zone(st, zone)
+    recompute_zone(st, nz)
+    refresh_zone_boundary(st, zone)
+    refresh_zone_boundary(st, nz)
     return nz
 
 
@@ -483,29 +497,29 @@ def _mark_part(order, parent, k, part, m):
 
 
 @njit(cache=True)
-def split_pass(d, z, seed, ntrees, far):
+def split_pass(st, seed, ntrees, far):
     """Try to split every zone above a ceiling or `far` times above a target."""
     np.random.seed(seed)
-    K = z.size.shape[0]
-    n = z.labels.shape[0]
+    K = st.size.shape[0]
+    n = st.labels.shape[0]
     loc = np.empty(n, dtype=np.int64)
     todo = np.empty(K, dtype=np.int64)
     nt = 0
     for zone in range(K):
-        if z.size[zone] < 2:
+        if st.size[zone] < 2:
             continue
         want = False
-        for c in range(z.csum.shape[1]):
-            s = z.csum[zone, c]
-            if np.isfinite(d.hi[c]) and s > d.hi[c]:
+        for c in range(st.csum.shape[1]):
+            s = st.csum[zone, c]
+            if np.isfinite(st.hi[c]) and s > st.hi[c]:
                 want = True
-            if d.tmask[c] == 1 and d.target[c] > 0.0 and s > far * d.target[c]:
+            if st.tmask[c] == 1 and st.target[c] > 0.0 and s > far * st.target[c]:
                 want = True
         if want:
             todo[nt] = zone
             nt += 1
     splits = 0
     for t in range(nt):
-        if try_split(d, z, todo[t], ntrees, loc, False) >= 0:
+        if try_split(st, todo[t], ntrees, loc, np.int64(0)) >= 0:
             splits += 1
     return splits

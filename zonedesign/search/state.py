@@ -89,6 +89,7 @@ class ZoneState:
         self.data = problem_data(problem, self.norm)
         n = problem.n
         self.zones = K.make_zones(n, self.data.counts.shape[1], self.data.x.shape[1])
+        self.st = K.new_state(self.data, self.zones)
         if labels is not None:
             self.load(labels, anchors)
 
@@ -98,7 +99,7 @@ class ZoneState:
         """Set the labelling (slots, -1 for unassigned) and the anchor of each slot."""
         labels = np.ascontiguousarray(labels, dtype=np.int64)
         anchors = np.zeros(0, dtype=np.int64) if anchors is None else np.ascontiguousarray(anchors, dtype=np.int64)
-        K.build_state(self.data, self.zones, labels, anchors)
+        K.build_state(self.st, labels, anchors)
 
     def resync(self) -> None:
         """Recompute every zone's sums from its members (drops float drift)."""
@@ -123,7 +124,7 @@ class ZoneState:
 
     def key(self) -> tuple[float, float]:
         """(breaks, total) summed afresh over the zones' kept costs."""
-        tot, brk = K.exact_totals(self.zones)
+        tot, brk = K.exact_totals(self.st)
         return float(brk), float(tot)
 
     def running_key(self) -> tuple[float, float]:
@@ -138,32 +139,32 @@ class ZoneState:
 
     def can_move(self, i: int) -> bool:
         """Taking unit i out of its zone leaves that zone non-empty and connected."""
-        return bool(K.donor_ok(self.data, self.zones, int(i)))
+        return bool(K.donor_ok(self.st, int(i)))
 
     def neighbour_zones(self, i: int) -> np.ndarray:
         """Zones other than i's own that hold a neighbour of i."""
-        _, _, nt = K.unit_links(self.data, self.zones, int(i), int(self.zones.labels[i]))
+        _, _, nt = K.unit_links(self.st, int(i), int(self.zones.labels[i]))
         return np.sort(self.zones.ztouch[:nt].copy())
 
     def move_delta(self, i: int, b: int) -> tuple[float, float]:
         """(break change, objective change) of moving unit i into zone b."""
-        db, do = K.move_delta(self.data, self.zones, int(i), int(b))
+        db, do = K.move_delta(self.st, int(i), int(b))
         return float(db), float(do)
 
     def move(self, i: int, b: int) -> None:
-        K.move_unit(self.data, self.zones, int(i), int(b))
+        K.move_unit(self.st, int(i), int(b))
 
     # ------------------------------------------------------------ merges and splits
 
     def merge_delta(self, a: int, b: int) -> tuple[float, float, int]:
         """(break change, objective change, anchor kept) of merging zones a and b."""
-        db, do, anc = MS.merge_delta(self.data, self.zones, int(a), int(b))
+        db, do, anc = MS.merge_delta(self.st, int(a), int(b))
         return float(db), float(do), int(anc)
 
     def merge(self, a: int, b: int) -> int:
         """Merge zone b into zone a (keeping the better anchor); returns a."""
-        _, _, anc = MS.merge_delta(self.data, self.zones, int(a), int(b))
-        MS.merge_zones(self.data, self.zones, int(a), int(b), int(anc))
+        _, _, anc = MS.merge_delta(self.st, int(a), int(b))
+        MS.merge_zones(self.st, int(a), int(b), int(anc))
         return int(a)
 
     def split(self, zone: int, seed: int = 0, force: bool = True, trees: int = MS.N_TREES) -> int:
@@ -173,7 +174,7 @@ class ZoneState:
         """
         loc = np.empty(self.problem.n, dtype=np.int64)
         K.seed_rng(int(seed) % (2**31 - 1))
-        return int(MS.try_split(self.data, self.zones, int(zone), int(trees), loc, bool(force)))
+        return int(MS.try_split(self.st, int(zone), int(trees), loc, int(bool(force))))
 
 
 def full_score(problem: Problem, labels: np.ndarray, anchors: np.ndarray | None = None) -> Score:

@@ -36,7 +36,7 @@ from zonedesign.search.kernels import (
 
 @njit(cache=True)
 def tabu_block(
-    d, z, seed, it0, niter, sample, tenure, max_no_improve, tabu_zone, tabu_until, best_labels, ctl, cti
+    st, seed, it0, niter, sample, tenure, max_no_improve, tabu_zone, tabu_until, best_labels, ctl, cti
 ):
     """Run iterations it0 .. it0+niter-1; returns the next iteration, or -1 when stopped.
 
@@ -45,44 +45,44 @@ def tabu_block(
     and the iteration that ban ends.
     """
     np.random.seed(seed)
-    pairwise = d.kind[0] == 1 and d.coef[1] != 0.0
+    pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
     for it in range(it0, it0 + niter):
-        nb = z.iv[IV_NB]
+        nb = st.iv[IV_NB]
         if nb == 0:
             return -1
         full = nb <= sample
         cnt = nb if full else sample
-        bi = -1
-        bb = -1
+        bi = np.int64(-1)
+        bb = np.int64(-1)
         bdb = 0.0
         bdo = 0.0
         bla = 0.0
         blb = 0.0
         for s in range(cnt):
-            i = z.blist[s] if full else z.blist[np.random.randint(nb)]
-            a = z.labels[i]
-            if z.size[a] <= 1:
+            i = st.blist[s] if full else st.blist[np.random.randint(nb)]
+            a = st.labels[i]
+            if st.size[a] <= 1:
                 continue
-            la, nda, nt = unit_links(d, z, i, a)
-            ha = dist_to_zone(d, z, i, a) if pairwise else 0.0
-            ca, ka = value_with(d, z, a, i, -1.0, la, ha)
+            la, nda, nt = unit_links(st, i, a)
+            ha = dist_to_zone(st, i, a) if pairwise else 0.0
+            ca, ka = value_with(st, a, i, -1.0, la, ha)
             conn = -1
             for q in range(nt):
-                b = z.ztouch[q]
-                hb = dist_to_zone(d, z, i, b) if pairwise else 0.0
-                cb, kb = value_with(d, z, b, i, 1.0, z.zacc[b], hb)
-                db = (ka + kb) - (z.brk[a] + z.brk[b])
-                do = (ca + cb) - (z.cost[a] + z.cost[b])
+                b = st.ztouch[q]
+                hb = dist_to_zone(st, i, b) if pairwise else 0.0
+                cb, kb = value_with(st, b, i, 1.0, st.zacc[b], hb)
+                db = (ka + kb) - (st.brk[a] + st.brk[b])
+                do = (ca + cb) - (st.cost[a] + st.cost[b])
                 cti[CT_TRIED] += 1
                 if db > EPS_BRK:
                     continue
                 if bi >= 0 and not key_less(db, do, bdb, bdo):
                     continue
                 if tabu_zone[i] == b and it < tabu_until[i]:
-                    if not key_less(z.fv[FV_BRK] + db, z.fv[FV_TOTAL] + do, ctl[0], ctl[1]):
+                    if not key_less(st.fv[FV_BRK] + db, st.fv[FV_TOTAL] + do, ctl[0], ctl[1]):
                         continue
                 if conn < 0:
-                    conn = 1 if donor_ok(d, z, i) else 0
+                    conn = 1 if donor_ok(st, i) else 0
                 if conn == 0:
                     break
                 bi = i
@@ -90,16 +90,16 @@ def tabu_block(
                 bdb = db
                 bdo = do
                 bla = la
-                blb = z.zacc[b]
+                blb = st.zacc[b]
         if bi < 0:
             return -1
-        a = z.labels[bi]
-        newbest = keep_best(z, bdb, bdo, best_labels, ctl, cti)
-        apply_move(d, z, bi, bb, bla, blb)
+        a = st.labels[bi]
+        newbest = keep_best(st, bdb, bdo, best_labels, ctl, cti)
+        apply_move(st, bi, bb, bla, blb)
         cti[CT_ACCEPTED] += 1
         tabu_zone[bi] = a
         tabu_until[bi] = it + tenure
-        note_best(z, newbest, ctl, cti)
+        note_best(st, newbest, ctl, cti)
         if newbest:
             cti[CT_NO_IMPROVE] = 0
         else:

@@ -1,0 +1,280 @@
+"""What every benchmark shares: the machine header, instance builders and result files.
+
+Timings on a shared machine drift from run to run, so each benchmark reports its figures
+as ratios of times measured in the same run; absolute seconds are given for context only.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as _dt
+import os
+import platform
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import shapely
+
+from zonedesign import measures
+from zonedesign.graph.adjacency import rook_graph
+from zonedesign.records import Bounds, Graph, Problem
+
+RESULTS = Path(__file__).resolve().parent / "results"
+SPDATA_DEFAULT = "/tmp/spd/x/usr/lib/R/site-library/spData/shapes"
+
+
+# ---------------------------------------------------------------- machine
+
+
+def machine() -> dict[str, str]:
+    """Date, cores, CPU model, RAM, load and Python of this run."""
+    cpu = "unknown"
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    ram = "unknown"
+    try:
+        for line in Path("/proc/meminfo").read_text().splitlines():
+            if line.startswith("MemTotal"):
+                ram = f"{int(line.split()[1]) / 1024**2:.1f} GiB"
+                break
+    except OSError:
+        pass
+    try:
+        load = ", ".join(f"{v:.2f}" for v in os.getloadavg())
+    except OSError:
+        load = "unknown"
+    return {
+        "date": _dt.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z"),
+        "nproc": str(os.cpu_count()),
+        "cpu": cpu,
+        "ram": ram,
+        "load": load,
+        "python": platform.python_version(),
+    }
+
+
+class Clock:
+    """Wall-clock seconds of a block: `with Clock() as c: ...; c.seconds`."""
+
+    def __enter__(self) -> Clock:
+        self.t0 = time.perf_counter()
+        self.seconds = 0.0
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.seconds = time.perf_counter() - self.t0
+
+
+# ---------------------------------------------------------------- instances
+
+
+def spdata_folder() -> Path:
+    """The r-cran-spdata shapes folder (ZONEDESIGN_SPDATA, or the project's fetch helper)."""
+    stated = os.environ.get("ZONEDESIGN_SPDATA")
+    if stated:
+        return Path(stated)
+    if (Path(SPDATA_DEFAULT) / "NY8_utm18.shp").is_file():
+        return Path(SPDATA_DEFAULT)
+    from zonedesign.io.opendata import spdata_dir
+
+    return spdata_dir()
+
+
+def read_ny8():
+    """NY8 census tracts (r-cran-spdata NY8_utm18.shp) with invalid polygons repaired and a
+    5-digit county column taken from AREAKEY."""
+    import geopandas as gpd
+
+    gdf = gpd.read_file(spdata_folder() / "NY8_utm18.shp", engine="pyogrio")
+    geom = gdf.geometry.values
+    bad = ~shapely.is_valid(geom)
+    if bad.any():
+        fixed = shapely.make_valid(geom[bad])
+        # make_valid may return a collection with stray lines; keep the polygonal part
+        fixed = np.array([_polygonal(g) for g in fixed], dtype=object)
+        geom = geom.copy()
+        geom[bad] = fixed
+        gdf = gdf.set_geometry(gpd.GeoSeries(geom, crs=gdf.crs))
+    gdf["county"] = gdf["AREAKEY"].astype(str).str[:5]
+    return gdf
+
+
+def _polygonal(g):
+    if g.geom_type in ("Polygon", "MultiPolygon"):
+        return g
+    parts = [p for p in shapely.get_parts(g) if p.geom_type in ("Polygon", "MultiPolygon")]
+    return shapely.union_all(parts) if parts else g
+
+
+def largest_component(graph: Graph) -> np.ndarray:
+    """Positions of the units in the largest connected component, ascending."""
+    from scipy.sparse import csr_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    m = csr_matrix((np.ones(graph.indices.shape[0]), graph.indices, graph.indptr), shape=(graph.n, graph.n))
+    _, comp = connected_components(m, directed=False)
+    big = np.bincount(comp).argmax()
+    return np.flatnonzero(comp == big)
+
+
+def grown_subset(graph: Graph, start: int, size: int) -> np.ndarray:
+    """A connected set of `size` units grown breadth-first from `start`, ascending."""
+    seen = {int(start)}
+    order = [int(start)]
+    head = 0
+    while head < len(order) and len(order) < size:
+        u = order[head]
+        head += 1
+        for v in graph.neighbours(u):
+            v = int(v)
+            if v not in seen and len(order) < size:
+                seen.add(v)
+                order.append(v)
+    return np.array(sorted(order), dtype=np.int64)
+
+
+@dataclass
+class Instance:
+    """One named benchmark problem with its source."""
+
+    name: str
+    family: str
+    problem: Problem
+
+
+def build_problem(
+    geometry,
+    counts: np.ndarray,
+    count_names: Sequence[str],
+    attrs: np.ndarray,
+    weight: np.ndarray,
+    *,
+    lo: Sequence[float],
+    hi: Sequence[float],
+    target: Sequence[float],
+    graph: Graph | None = None,
+) -> Problem:
+    """A Problem straight from polygons: rook graph, standardised attributes (weighted as
+    the hierarchy does: weights scaled to mean 1), area and perimeter from the geometry."""
+    geom = np.asarray(geometry)
+    graph = rook_graph(geom) if graph is None else graph
+    weight = np.asarray(weight, dtype=np.float64)
+    mean_w = weight.mean() if weight.size and weight.mean() > 0 else 1.0
+    weight = weight / mean_w
+    return Problem(
+        graph=graph,
+        counts=np.asarray(counts, dtype=np.float64).reshape(len(geom), -1),
+        bounds=Bounds(
+            count_names=tuple(count_names),
+            lo=np.asarray(lo, dtype=np.float64),
+            hi=np.asarray(hi, dtype=np.float64),
+            target=np.asarray(target, dtype=np.float64),
+        ),
+        attrs=measures.standardise(np.asarray(attrs, dtype=np.float64), weight),
+        weight=weight,
+        area=shapely.area(geom).astype(np.float64),
+        perimeter=shapely.length(geom).astype(np.float64),
+    )
+
+
+def frame_problem(gdf, count: str, attrs: Sequence[str], weight: str, units_per_zone=(3.0, 6.0)) -> Problem:
+    """A one-count Problem of a GeoDataFrame whose bounds let zones hold about
+    units_per_zone[0]..units_per_zone[1] units of median size, target in the middle."""
+    values = gdf[count].to_numpy(dtype=np.float64)
+    med = float(np.median(values))
+    lo, hi = units_per_zone[0] * med, units_per_zone[1] * med
+    return build_problem(
+        gdf.geometry.values,
+        values[:, None],
+        (count,),
+        gdf[list(attrs)].to_numpy(dtype=np.float64),
+        gdf[weight].to_numpy(dtype=np.float64),
+        lo=[lo],
+        hi=[hi],
+        target=[0.5 * (lo + hi)],
+    )
+
+
+# ---------------------------------------------------------------- results
+
+
+def fmt(v, digits: int = 3) -> str:
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, float | np.floating):
+        if np.isnan(v):
+            return "–"
+        if v != 0 and (abs(v) >= 1e5 or abs(v) < 10 ** (-digits)):
+            return f"{v:.{digits}g}"
+        return f"{v:,.{digits}f}"
+    if isinstance(v, int | np.integer):
+        return f"{int(v):,}"
+    return str(v)
+
+
+def md_table(rows: list[dict], columns: Sequence[str] | None = None, digits: int = 3) -> str:
+    if not rows:
+        return "(no rows)\n"
+    columns = list(columns or rows[0].keys())
+    out = ["| " + " | ".join(columns) + " |", "|" + "|".join("---" for _ in columns) + "|"]
+    for r in rows:
+        out.append("| " + " | ".join(fmt(r.get(c, ""), digits) for c in columns) + " |")
+    return "\n".join(out) + "\n"
+
+
+def write_results(
+    name: str,
+    title: str,
+    rows: list[dict],
+    sections: list[tuple[str, str]],
+    *,
+    quick: bool,
+    seconds: float,
+    folder: Path | None = None,
+) -> tuple[Path, Path]:
+    """Write `<name>.md` (machine header, then sections) and `<name>.csv` (rows)."""
+    folder = RESULTS if folder is None else Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    m = machine()
+    head = [
+        f"# Benchmark: {title}",
+        "",
+        f"- date: {m['date']}",
+        f"- machine: {m['nproc']} cores ({m['cpu']}), {m['ram']} RAM, load average {m['load']} at the end",
+        f"- Python {m['python']}; mode: {'--quick' if quick else 'full'}; run time {seconds:.0f} s",
+        f"- command: `python -m benchmarks {name}{' --quick' if quick else ''}`",
+        "",
+    ]
+    body = []
+    for heading, text in sections:
+        body += [f"## {heading}", "", text.rstrip(), ""]
+    md = folder / f"{name}.md"
+    md.write_text("\n".join(head + body), encoding="utf-8")
+    path = folder / f"{name}.csv"
+    columns: list[str] = []
+    for r in rows:
+        for k in r:
+            if k not in columns:
+                columns.append(k)
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.DictWriter(fh, fieldnames=columns, lineterminator="\n")
+        w.writeheader()
+        for r in rows:
+            w.writerow({k: _csv(v) for k, v in r.items()})
+    return md, path
+
+
+def _csv(v):
+    if isinstance(v, float | np.floating):
+        return "" if np.isnan(v) else f"{float(v):.6g}"
+    if isinstance(v, np.integer):
+        return int(v)
+    return v

@@ -1,0 +1,192 @@
+"""The invented demo region: reproducible, clean, with districts, islands, a ferry and
+counts that fit the three tiers of its rules.
+
+Threshold values: Cockings, Harfoot, Martin & Hornby 2011 (Environment and Planning A 43),
+finest tier 40-250 households and 100-625 persons, target 125 households.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import shapely
+
+from zonedesign.graph import (
+    add_links,
+    fence_components,
+    islands,
+    read_links,
+    rook_graph,
+    tolerant_graph,
+    unmatched_contacts,
+)
+from zonedesign.scenarios import (
+    demo_links,
+    demo_region,
+    demo_rules_text,
+    later_counts,
+    write_demo_input,
+)
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="module")
+def demo():
+    gdf = demo_region()
+    return gdf, rook_graph(gdf.geometry)
+
+
+def test_region_is_about_five_thousand_valid_areas_in_a_metric_crs(demo):
+    gdf, _ = demo
+    assert 4500 <= len(gdf) <= 5500
+    assert gdf["code"].is_unique and gdf["code"].str.fullmatch(r"A\d{5}").all()
+    assert shapely.is_valid(gdf.geometry.values).all()
+    assert gdf.crs.to_epsg() == 32631 and gdf.crs.is_projected
+    assert list(gdf.columns) == [
+        "code", "district", "district_name", "town", "persons", "households",
+        "owner_share", "flat_share", "geometry",
+    ]
+
+
+def test_topology_is_clean_so_hashing_finds_every_pair(demo):
+    gdf, rook = demo
+    assert len(unmatched_contacts(gdf.geometry)[0]) == 0
+    tolerant = tolerant_graph(gdf.geometry)
+    assert np.array_equal(rook.indptr, tolerant.indptr)
+    assert np.array_equal(rook.indices, tolerant.indices)
+    assert rook.length == pytest.approx(tolerant.length, rel=1e-6)
+    # no overlaps: the areas add up to the area of their union (shapely, reference library)
+    total = shapely.area(gdf.geometry.values).sum()
+    assert shapely.union_all(gdf.geometry.values).area == pytest.approx(total, rel=1e-9)
+
+
+def test_districts_are_the_fence_and_connected_on_the_mainland(demo):
+    gdf, rook = demo
+    codes = sorted(gdf["district"].unique())
+    assert 8 <= len(codes) <= 12
+    names = gdf.groupby("district")["district_name"].unique()
+    assert all(len(v) == 1 for v in names) and len({v[0] for v in names}) == len(codes)
+    parts = fence_components(rook, gdf["district"].to_numpy())
+    # each district is one piece, plus at most one offshore island of a few areas
+    assert all(p.n_components <= 2 for p in parts)
+    assert sum(p.n_components == 2 for p in parts) == 2
+    assert all(p.sizes[1] <= 20 for p in parts if p.n_components == 2)
+
+
+def test_two_islands_are_reported_and_the_ferry_joins_one(demo, tmp_path):
+    gdf, rook = demo
+    fence = gdf["district"].to_numpy()
+    ids = gdf["code"].to_numpy()
+    found = islands(rook, fence, gdf.geometry, ids)
+    assert len(found) == 2
+    assert all(3 <= len(isl.ids) <= 20 and isl.distance > 1000.0 for isl in found)
+    links = demo_links(gdf)
+    assert list(links.columns) == ["from", "to"] and len(links) == 1
+    path = tmp_path / "links.csv"
+    links.to_csv(path, index=False)
+    i, j = read_links(path, ids)
+    assert fence[i[0]] == fence[j[0]]  # the ferry stays inside its district
+    remaining = islands(add_links(rook, i, j), fence, gdf.geometry, ids)
+    assert len(remaining) == 1
+    assert set(remaining[0].ids) & {links["from"][0], links["to"][0]} == set()
+
+
+def test_counts_fit_the_three_tiers(demo):
+    gdf, _ = demo
+    hh = gdf["households"].to_numpy()
+    persons = gdf["persons"].to_numpy()
+    ratio = persons / hh
+    assert (hh >= 1).all() and ratio.min() >= 1.9 and ratio.max() <= 2.9
+    # no single area breaks the finest ceiling (Cockings et al. 2011: 250 households, 625 persons)
+    assert hh.max() <= 250 and persons.max() <= 625
+    # town areas hold a few dozen households, countryside areas fewer
+    town = gdf["town"].notna().to_numpy()
+    assert 20 <= np.median(hh[town]) <= 60 and np.median(hh[~town]) < np.median(hh[town])
+    by_district = gdf.groupby("district")[["households", "persons"]].sum()
+    # every district holds at least one upper-tier zone (2,000 households, 5,000 persons)
+    assert (by_district["households"] >= 2000).all() and (by_district["persons"] >= 5000).all()
+    # and the region as a whole about 125-household blocks by the hundred
+    assert hh.sum() / 125 > 500
+
+
+def test_towns_have_more_flats_and_fewer_owners(demo):
+    gdf, rook = demo
+    town = gdf["town"].notna()
+    assert gdf.loc[town, "flat_share"].mean() > gdf.loc[~town, "flat_share"].mean() + 0.2
+    assert gdf.loc[town, "owner_share"].mean() < gdf.loc[~town, "owner_share"].mean() - 0.1
+    assert gdf[["owner_share", "flat_share"]].stack().between(0, 1).all()
+    flat = gdf["flat_share"].to_numpy()
+    i, j, _ = rook.edges()
+    # spatial structure: neighbours are far more alike than random pairs
+    rng = np.random.default_rng(0)
+    assert np.abs(flat[i] - flat[j]).mean() < 0.5 * np.abs(flat - rng.permutation(flat)).mean()
+
+
+def test_names_are_invented_from_syllables(demo):
+    gdf, _ = demo
+    names = set(gdf["district_name"]) | set(gdf["town"].dropna())
+    assert len(names) >= 15
+    assert all(n.isalpha() and n[0].isupper() and 8 <= len(n) <= 16 for n in names)
+
+
+def test_later_counts_grow_suburbs_and_shrink_old_centres(demo):
+    gdf, _ = demo
+    later = later_counts(gdf, seed=11)
+    assert later["code"].equals(gdf["code"])
+    assert shapely.equals_exact(later.geometry.values, gdf.geometry.values, tolerance=0).all()
+    factor = later["households"] / gdf["households"]
+    assert (factor >= 1.5).sum() >= 20 and (factor <= 0.8).sum() >= 20
+    # areas of some size that lose a fifth or more lie in old town centres (small areas
+    # can lose one household of four to rounding anywhere)
+    sizeable = gdf["households"] >= 20
+    assert gdf.loc[sizeable & (factor <= 0.8), "town"].notna().all()
+    assert abs(later["households"].sum() / gdf["households"].sum() - 1) < 0.1
+    assert later_counts(gdf, seed=11)["households"].equals(later["households"])
+
+
+def test_rules_text_is_the_shipped_file_and_states_the_three_tiers():
+    text = demo_rules_text()
+    assert (ROOT / "scenarios" / "demo_rules.toml").read_text(encoding="utf-8") == text
+    rules = tomllib.loads(text)
+    assert rules["areas"] == {
+        "id": "code",
+        "counts": ["households", "persons"],
+        "attributes": ["owner_share", "flat_share"],
+        "fence": "district",
+        "weight": "persons",
+    }
+    assert rules["graph"]["links"] == "links.csv"
+    tiers = {t["name"]: t for t in rules["tier"]}
+    assert list(tiers) == ["block", "ward", "sector"]
+    # Cockings, Harfoot, Martin & Hornby 2011: the finest tier's thresholds
+    assert tiers["block"]["min"] == {"households": 40, "persons": 100}
+    assert tiers["block"]["max"] == {"households": 250, "persons": 625}
+    assert tiers["block"]["target"] == {"households": 125}
+    assert (tiers["ward"]["min"], tiers["ward"]["max"]) == (
+        {"households": 400, "persons": 1000}, {"households": 1200, "persons": 3000})
+    assert (tiers["sector"]["min"], tiers["sector"]["max"]) == (
+        {"households": 2000, "persons": 5000}, {"households": 6000, "persons": 15000})
+    assert [t["target"]["households"] for t in rules["tier"]] == [125, 800, 4000]
+    assert rules["search"] == {"method": "annealing", "seed": 1}
+
+
+def test_demo_input_is_byte_identical_for_a_seed(tmp_path):
+    first = write_demo_input(tmp_path / "one", seed=7, n=1500, later=True)
+    second = write_demo_input(tmp_path / "two", seed=7, n=1500, later=True)
+    assert set(first) == {"areas", "rules", "links", "later"}
+    assert first["areas"].name == "areas.gpkg" and first["later"].name == "areas.later.gpkg"
+    for key in first:
+        assert first[key].read_bytes() == second[key].read_bytes(), key
+    import pyogrio
+
+    assert pyogrio.list_layers(first["areas"])[:, 0].tolist() == ["areas"]
+    back = pyogrio.read_dataframe(first["areas"])
+    assert len(back) == len(demo_region(7, 1500))
+    links = pd.read_csv(first["links"])
+    assert set(links["from"]) | set(links["to"]) <= set(back["code"])
+    assert first["rules"].read_text(encoding="utf-8") == demo_rules_text()

@@ -1,0 +1,691 @@
+"""The report's sections, each a function of the plan returning HTML ("" to leave it out)."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from zonedesign.report import charts
+from zonedesign.report.format import (
+    TABLE_ROWS,
+    Raw,
+    dicts,
+    esc,
+    get,
+    html_table,
+    isnan,
+    natural,
+    num,
+    pct,
+    pct_plain,
+    slug,
+    text_of,
+)
+from zonedesign.report.plan import ZONE_LIST_ROWS, ReportPlan, tier_figures
+from zonedesign.report.style import CHANGE_KINDS, KIND_WORDS
+from zonedesign.report.svgmap import element_id
+
+
+def headline(run: ReportPlan) -> str:
+    s = run.summary
+    parts = []
+    n_areas = get(s, "areas", "count")
+    if n_areas is not None:
+        parts.append(f"{num(n_areas)} areas")
+    n_fences = get(s, "areas", "fences")
+    if n_fences is not None:
+        parts.append(f"{num(n_fences)} fences")
+    for t in run.tiers:
+        n = len(run.tables[t]) if t in run.tables else get(s, "tiers", t, "zones")
+        if n is not None:
+            parts.append(f"tier {t}: {num(n)} zones")
+    return f'<p class="lede">{esc(" · ".join(parts))}</p>' if parts else ""
+
+
+def _overview(run: ReportPlan) -> str:
+    s = run.summary
+    items = []
+    if "command" in s:
+        items.append(("Command", str(s["command"])))
+    rc = s.get("exit_code")
+    if rc is not None:
+        meaning = {
+            0: "every rule holds",
+            1: "ran, but a rule is broken",
+            2: "bad input or usage",
+        }.get(rc, "")
+        items.append(("Exit code", f"{rc} ({meaning})" if meaning else str(rc)))
+    audit = s.get("audit")
+    if isinstance(audit, dict):
+        n = len(dicts(audit.get("violations")))
+        ok = audit.get("ok")
+        items.append(
+            (
+                "Independent audit",
+                "passed" if ok else f"found {n:,} problem(s)" if n else "did not pass",
+            )
+        )
+    breaks = dicts(s.get("bound_breaks"))
+    if "bound_breaks" in s:
+        items.append(("Zones outside their bounds", f"{len(breaks):,}"))
+    failures = dicts(s.get("fence_failures"))
+    if "fence_failures" in s:
+        items.append(("Fences that failed", f"{len(failures):,}"))
+    seconds = s.get("seconds")
+    if isinstance(seconds, dict) and "total" in seconds:
+        items.append(("Run time", f"{num(seconds['total'])} s"))
+    if not items:
+        return ""
+    rows = "".join(f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in items)
+    return f'<dl class="facts">{rows}</dl>'
+
+
+def _maps(run: ReportPlan) -> str:
+    if not run.maps:
+        return ""
+    out = [_map_legend()]
+    for tier in run.tiers:
+        plan = run.maps.get(tier)
+        if plan is None:
+            continue
+        sid = f"maps-{slug(tier)}"
+        out.append(
+            f'<section id="{sid}" aria-labelledby="{sid}-h"><h3 id="{sid}-h">Tier {esc(tier)}</h3>'
+        )
+        if plan.note:
+            out.append(f'<p class="note" id="{sid}-note">{esc(plan.note)}</p>')
+        if plan.full is not None:
+            out.append(
+                _figure(
+                    plan.full.svg,
+                    f"Tier {tier}: {plan.full.zones:,} zones; hover a zone for its figures.",
+                )
+            )
+        for i, (fence, drawn, n_breaks) in enumerate(plan.per_fence):
+            flag = f", {n_breaks:,} breaking a rule" if n_breaks else ""
+            opened = " open" if i == 0 else ""
+            out.append(
+                f"<details{opened}><summary>Fence {esc(fence)} ({drawn.zones:,} zones{flag})</summary>"
+                f"{_figure(drawn.svg, f'Tier {tier}, fence {fence}')}</details>"
+            )
+        out.append("</section>")
+    return "".join(out)
+
+
+def _map_legend() -> str:
+    sw = '<svg class="swatch" viewBox="0 0 24 16" aria-hidden="true">{}</svg>'
+    fills = "".join(
+        f'<rect class="zone f{i}" x="{i * 3}" y="0" width="3" height="16"/>' for i in range(8)
+    )
+    items = [
+        (
+            sw.format(fills),
+            "zone fills only tell neighbours apart: no two neighbouring zones share one",
+        ),
+        (
+            sw.format('<rect class="zone h0 broken" x="1" y="1" width="22" height="14"/>'),
+            "hatched with a dark red outline: the zone breaks a rule (hover it, or see Rule breaks)",
+        ),
+        (
+            sw.format('<path class="fence" d="M0 8H24"/>'),
+            "heavy line: fence boundary, never crossed",
+        ),
+    ]
+    lis = "".join(f"<li>{s}<span>{esc(t)}</span></li>" for s, t in items)
+    return f'<ul class="legend" aria-label="Map legend">{lis}</ul>'
+
+
+def _figure(svg: str, caption: str) -> str:
+    return f'<figure class="map">{svg}<figcaption>{esc(caption)}</figcaption></figure>'
+
+
+def _changes(run: ReportPlan) -> str:
+    shares = run.summary.get("changes") if isinstance(run.summary.get("changes"), dict) else {}
+    ch = run.changes if isinstance(run.changes, pd.DataFrame) else None
+    if not shares and (ch is None or ch.empty) and not run.kinds:
+        return ""
+    out = []
+    if run.change_maps:
+        out.append(_kind_legend())
+    for tier in run.tiers:
+        if tier not in run.change_maps:
+            continue
+        drawn, note = run.change_maps[tier]
+        sid = f"changes-{slug(tier)}"
+        out.append(
+            f'<section id="{sid}" aria-labelledby="{sid}-h"><h3 id="{sid}-h">Tier {esc(tier)}: what changed</h3>'
+        )
+        if note:
+            out.append(f'<p class="note">{esc(note)}</p>')
+        if drawn is not None:
+            out.append(_figure(drawn.svg, f"Tier {tier}: each zone by its kind of change"))
+        out.append("</section>")
+    unchanged = {}
+    for tier in run.tiers:
+        if isinstance(shares.get(tier), dict) and "share_unchanged" in shares[tier]:
+            unchanged[tier] = float(shares[tier]["share_unchanged"])
+        elif tier in run.kinds and run.kinds[tier]:
+            ks = list(run.kinds[tier].values())
+            unchanged[tier] = ks.count("kept") / len(ks)
+    if unchanged:
+        out.append('<h3 id="changes-share">Share of zones unchanged</h3>')
+        uri = charts.share_bars(unchanged, "share of zones unchanged")
+        if uri:
+            alt = "; ".join(f"tier {t}: {100 * v:.1f}% unchanged" for t, v in unchanged.items())
+            out.append(f'<img class="chart" src="{uri}" alt="{esc(alt)}">')
+    rows = []
+    kinds_seen: list[str] = []
+    per_tier: dict[str, dict[str, int]] = {}
+    for tier in run.tiers:
+        counts: dict[str, int] = {}
+        if isinstance(shares.get(tier), dict) and isinstance(shares[tier].get("kinds"), dict):
+            counts = {str(k): int(v) for k, v in shares[tier]["kinds"].items()}
+        elif ch is not None and not ch.empty and "tier" in ch and "kind" in ch:
+            counts = ch[ch["tier"].astype(str) == tier]["kind"].astype(str).value_counts().to_dict()
+        elif tier in run.kinds:
+            counts = (
+                pd.Series(list(run.kinds[tier].values()), dtype=object).value_counts().to_dict()
+            )
+        per_tier[tier] = counts
+        for k in counts:
+            if k not in kinds_seen:
+                kinds_seen.append(k)
+    order = [k for k in (*CHANGE_KINDS, "retired") if k in kinds_seen] + [
+        k for k in kinds_seen if k not in CHANGE_KINDS and k != "retired"
+    ]
+    if order:
+        for tier in run.tiers:
+            info = shares.get(tier, {}) if isinstance(shares.get(tier), dict) else {}
+            rows.append(
+                [tier]
+                + [per_tier[tier].get(k, 0) for k in order]
+                + [
+                    pct_plain(unchanged[tier]) if tier in unchanged else "–",
+                    info.get("areas_moved", "–"),
+                ]
+            )
+        out.append(
+            html_table(
+                "Zones by kind of change, per tier",
+                ["tier", *order, "unchanged", "areas moved"],
+                rows,
+            )
+        )
+    return "".join(out)
+
+
+def _kind_legend() -> str:
+    items = []
+    for k in (*CHANGE_KINDS, "other"):
+        sw = f'<svg class="swatch" viewBox="0 0 24 16" aria-hidden="true"><rect class="zone k-{k}" x="1" y="1" width="22" height="14"/></svg>'
+        items.append(f"<li>{sw}<span>{esc(KIND_WORDS[k])}</span></li>")
+    return f'<ul class="legend" aria-label="Change map legend">{"".join(items)}</ul>'
+
+
+def _distributions(run: ReportPlan) -> str:
+    out = []
+    for tier in run.tiers:
+        table = run.tables.get(tier)
+        if table is None or table.empty:
+            continue
+        values = {c: table[c].to_numpy(dtype=float) for c in run.counts if c in table}
+        uri = charts.count_histograms(values, run.limits.get(tier, {}), tier)
+        if uri:
+            lim = run.limits.get(tier, {})
+            desc = "; ".join(
+                f"{c}: zones from {num(np.nanmin(v))} to {num(np.nanmax(v))}"
+                + "".join(
+                    f", {k} {num(lim[c][k])}"
+                    for k in ("min", "target", "max")
+                    if k in lim.get(c, {})
+                )
+                for c, v in values.items()
+                if v.size
+            )
+            out.append(f'<h3 id="dist-{slug(tier)}">Tier {esc(tier)}: zone sizes</h3>')
+            out.append(
+                f'<img class="chart" src="{uri}" alt="{esc(f"Histograms of zone sizes in tier {tier}. {desc}")}">'
+            )
+    series: dict[str, dict[str, np.ndarray]] = {}
+    for col, name in (
+        ("polsby_popper", "Polsby-Popper (1 = circle)"),
+        ("homogeneity", "homogeneity (within-zone variance, 0 = alike)"),
+    ):
+        per = {
+            t: run.tables[t][col].to_numpy(dtype=float)
+            for t in run.tiers
+            if t in run.tables and col in run.tables[t]
+        }
+        if per:
+            series[name] = per
+    uri = charts.shape_boxplots(series)
+    if uri:
+        desc = "; ".join(
+            f"{m} median in tier {t} {num(np.nanmedian(v))}"
+            for m, per in series.items()
+            for t, v in per.items()
+            if v.size
+        )
+        out.append('<h3 id="dist-shape">Shape and homogeneity</h3>')
+        out.append(f'<img class="chart" src="{uri}" alt="{esc(f"Box plots per tier. {desc}")}">')
+    return "".join(out)
+
+
+def _sweep(run: ReportPlan) -> str:
+    table = run.sweep
+    if not isinstance(table, pd.DataFrame) or table.empty:
+        if not run.sweep_charts:
+            return ""
+        table = pd.DataFrame()
+    out = []
+    vary = get(run.summary, "sweep", "vary")
+    if isinstance(vary, dict) and vary:
+        out.append(
+            "<p>Varied: "
+            + esc(
+                "; ".join(
+                    f"{k} = {', '.join(map(str, v)) if isinstance(v, list) else v}"
+                    for k, v in vary.items()
+                )
+            )
+            + "</p>"
+        )
+    if not table.empty:
+        cols = [str(c) for c in table.columns]
+        rows = [[text_of(v) for v in rec] for rec in table.itertuples(index=False, name=None)]
+        out.append(html_table("One row per variant of the rules", cols, rows))
+    for name, data in run.sweep_charts.items():
+        label = Path(str(name)).stem.replace("_", " ")
+        out.append(
+            f'<figure class="chart"><img class="chart" src="{charts.png_uri(data)}" alt="{esc(f"Sweep chart: {label} against the varied rule")}">'
+            f"<figcaption>{esc(label)}</figcaption></figure>"
+        )
+    return "".join(out)
+
+
+def _tiers(run: ReportPlan) -> str:
+    figures = run.summary.get("tiers") if isinstance(run.summary.get("tiers"), dict) else {}
+    names = [t for t in run.tiers] or list(figures)
+    if not names:
+        return ""
+    cols = ["tier", "zones", "outside bounds"]
+    for c in run.counts:
+        cols += [f"{c} mean (min–max)", f"{c} within 10% of target"]
+    cols += ["Polsby-Popper median (p10–p90)", "homogeneity median (p10–p90)"]
+    rows = []
+    for t in names:
+        f = (
+            figures.get(t)
+            if isinstance(figures.get(t), dict)
+            else tier_figures(run.tables.get(t), run.counts)
+        )
+        row = [t, num(f.get("zones")), num(f.get("bound_breaks"))]
+        for c in run.counts:
+            cf = get(f, "counts", c) or {}
+            row.append(
+                f"{num(cf.get('mean'))} ({num(cf.get('min'))}–{num(cf.get('max'))})" if cf else "–"
+            )
+            share = get(f, "share_within_10pct_of_target", c)
+            row.append(pct_plain(share) if share is not None else "no target")
+        for key in ("polsby_popper", "homogeneity"):
+            q = f.get(key) or {}
+            row.append(
+                f"{num(q.get('median'))} ({num(q.get('p10'))}–{num(q.get('p90'))})" if q else "–"
+            )
+        rows.append(row)
+    out = [html_table("Figures per tier", cols, rows, row_headers=True)]
+    obj = run.summary.get("objective")
+    if isinstance(obj, dict) and obj:
+        orows = []
+        for t, o in obj.items():
+            if not isinstance(o, dict):
+                continue
+            w = o.get("weights") if isinstance(o.get("weights"), dict) else {}
+            orows.append(
+                [
+                    t,
+                    o.get("homogeneity", "–"),
+                    o.get("compactness", "–"),
+                    ", ".join(f"{k} {num(v)}" for k, v in w.items()) or "–",
+                ]
+            )
+        if orows:
+            out.append(
+                html_table(
+                    "Objective per tier",
+                    ["tier", "homogeneity measure", "compactness measure", "weights"],
+                    orows,
+                    row_headers=True,
+                )
+            )
+    return "".join(out)
+
+
+def _zones(run: ReportPlan) -> str:
+    out = []
+    for tier in run.tiers:
+        table = run.tables.get(tier)
+        listed = run.listed.get(tier)
+        if table is None or not listed:
+            continue
+        sub = table[table["zone"].astype(str).isin(listed)]
+        sub = sub.assign(zone=sub["zone"].astype(str))
+        sub = sub.iloc[sorted(range(len(sub)), key=lambda i: natural(sub["zone"].iat[i]))]
+        cols = ["zone"] + [c for c in ("fence", "parent") if c in sub]
+        cols += [c for c in run.counts if c in sub] + [
+            f"{c}_vs_target" for c in run.counts if f"{c}_vs_target" in sub
+        ]
+        cols += [
+            c
+            for c in ("polsby_popper", "homogeneity", "n_units", "n_areas", "area_km2", "breaks")
+            if c in sub
+        ]
+        rows = []
+        ids = []
+        plan = run.maps.get(tier)
+        for rec in sub.to_dict("records"):
+            z = str(rec["zone"])
+            cell = esc(z)
+            if plan is not None and z in plan.drawn:
+                cell = f'<a href="#{element_id("zone", tier, z)}">{cell}</a>'
+            row = [Raw(cell)]
+            for c in cols[1:]:
+                v = rec.get(c)
+                row.append(pct(v) if c.endswith("_vs_target") and not isnan(v) else text_of(v))
+            rows.append(row)
+            ids.append(element_id("row", tier, z))
+        if len(table) <= ZONE_LIST_ROWS:
+            caption = f"Every zone of tier {tier} ({len(table):,})"
+        else:
+            caption = f"Zones of tier {tier} that break a rule ({len(sub):,} of {len(table):,} zones; the full list is in zones.gpkg)"
+        out.append(
+            f"<details><summary>Tier {esc(tier)}: {len(sub):,} zone(s) listed</summary>"
+            f"{html_table(caption, [c.replace('_', ' ') for c in cols], rows, row_ids=ids, row_headers=True)}</details>"
+        )
+    return "".join(out)
+
+
+def _fences(run: ReportPlan) -> str:
+    fences = dicts(run.summary.get("fences"))
+    failures = dicts(run.summary.get("fence_failures"))
+    out = []
+    if fences:
+        cols = [
+            "tier",
+            "fence",
+            "zones",
+            "units",
+            "breaks",
+            "objective",
+            "terms",
+            "seconds",
+            "error",
+        ]
+        rows = []
+        for f in fences:
+            terms = f.get("terms")
+            terms = (
+                ", ".join(f"{k} {num(v)}" for k, v in terms.items())
+                if isinstance(terms, dict)
+                else text_of(terms)
+            )
+            rows.append(
+                [
+                    f.get("tier"),
+                    f.get("fence"),
+                    num(f.get("zones")),
+                    num(f.get("units")),
+                    num(f.get("breaks")),
+                    num(f.get("objective")),
+                    terms,
+                    num(f.get("seconds")),
+                    f.get("error") or "",
+                ]
+            )
+        out.append(html_table("Figures per fence and tier", cols, rows))
+    if failures:
+        rows = [[f.get("tier"), f.get("fence"), f.get("error")] for f in failures]
+        out.append(
+            html_table(
+                "Fences that failed (no zoning written for them)", ["tier", "fence", "error"], rows
+            )
+        )
+    return "".join(out)
+
+
+def _violations(run: ReportPlan) -> str:
+    out = []
+    breaks = dicts(run.summary.get("bound_breaks"))
+    if breaks:
+        rows = []
+        for b in breaks:
+            rows.append(
+                [
+                    b.get("tier"),
+                    _zone_link(run, b.get("tier"), b.get("zone")),
+                    b.get("fence"),
+                    b.get("breaks"),
+                ]
+            )
+        out.append(
+            html_table(
+                "Zones outside their bounds",
+                ["tier", "zone", "fence", "what is out of bounds"],
+                rows,
+                row_class="violation",
+            )
+        )
+    audit = run.summary.get("audit")
+    viol = dicts(audit.get("violations")) if isinstance(audit, dict) else []
+    if viol:
+        rows = []
+        for v in viol:
+            areas = v.get("areas")
+            areas = (
+                ", ".join(map(str, areas[:5])) + (" …" if len(areas) > 5 else "")
+                if isinstance(areas, list)
+                else text_of(areas)
+            )
+            rows.append(
+                [
+                    v.get("kind"),
+                    v.get("tier"),
+                    _zone_link(run, v.get("tier"), v.get("zone")),
+                    ", ".join(map(str, v.get("fences") or [])),
+                    areas,
+                    v.get("message"),
+                ]
+            )
+        out.append(
+            html_table(
+                "Problems found by the independent audit",
+                ["kind", "tier", "zone", "fences", "areas", "message"],
+                rows,
+                row_class="violation",
+            )
+        )
+    elif isinstance(audit, dict):
+        out.append(
+            "<p>The independent audit found no problem.</p>"
+            if audit.get("ok")
+            else "<p>The audit did not pass.</p>"
+        )
+    if not out and "bound_breaks" in run.summary:
+        out.append("<p>Every zone is within its bounds.</p>")
+    return "".join(out)
+
+
+def _zone_link(run: ReportPlan, tier: Any, zone: Any) -> Raw:
+    label = esc(zone) if zone not in (None, "") else "(whole tier)" if tier else "(whole input)"
+    href = run.href(tier, zone)
+    hint = "" if href.startswith("#zone-") else ' title="not drawn on a map; see the note there"'
+    return Raw(f'<a href="{href}"{hint}>{label}</a>')
+
+
+_CERT_WORDS = {
+    "OPTIMAL": "confirmed: an independent CP-SAT model accepts these zones under every rule",
+    "FEASIBLE": "confirmed: an independent CP-SAT model accepts these zones under every rule",
+    "INFEASIBLE": "refuted: the independent CP-SAT model finds a rule these zones break",
+    "UNKNOWN": "undecided: the solver stopped before reaching a verdict",
+    "MODEL_INVALID": "not checked: the model could not be built",
+}
+_PROOF_WORDS = {
+    "INFEASIBLE": "proved: no zoning of this fence can meet every bound",
+    "UNKNOWN": "not decided: too large to prove within the time allowed",
+    "no proof": "no proof: the bounds were missed, but no proof says they cannot be met",
+}
+
+
+def _certificate(run: ReportPlan) -> str:
+    out = []
+    certs = dicts(run.summary.get("certificate"))
+    if certs:
+        rows = []
+        for c in certs:
+            status = str(c.get("status", ""))
+            words = _CERT_WORDS.get(status.upper(), status)
+            extra = ", ".join(
+                f"{k} {text_of(v)}"
+                for k, v in c.items()
+                if k not in ("tier", "fence", "status", "seconds", "text", "message")
+            )
+            rows.append(
+                [
+                    c.get("tier"),
+                    c.get("fence"),
+                    words + (f" ({c['text']})" if c.get("text") else ""),
+                    num(c.get("seconds")),
+                    extra,
+                ]
+            )
+        out.append(
+            html_table(
+                "Certificate per fence and tier",
+                ["tier", "fence", "verdict", "seconds", "details"],
+                rows,
+            )
+        )
+    proofs = dicts(run.summary.get("proofs"))
+    if proofs:
+        rows = []
+        for p in proofs:
+            status = str(p.get("status", ""))
+            rows.append(
+                [p.get("tier"), p.get("fence"), _PROOF_WORDS.get(status, status), p.get("text", "")]
+            )
+        out.append(
+            html_table(
+                "Why some bounds could not be met",
+                ["tier", "fence", "verdict", "in plain words"],
+                rows,
+            )
+        )
+    return "".join(out)
+
+
+def _input(run: ReportPlan) -> str:
+    s = run.summary
+    out = []
+    areas = s.get("areas") if isinstance(s.get("areas"), dict) else {}
+    graph = s.get("graph") if isinstance(s.get("graph"), dict) else {}
+    facts = []
+    for label, value in (
+        ("Input files", ", ".join(map(str, s.get("inputs") or [])) if s.get("inputs") else None),
+        ("Areas", num(areas.get("count")) if "count" in areas else None),
+        ("Coordinate reference system", areas.get("crs")),
+        ("Fences", num(areas.get("fences")) if "fences" in areas else None),
+        ("Contiguity", graph.get("contiguity")),
+        ("Neighbour pairs", num(graph.get("edges")) if "edges" in graph else None),
+        ("Declared links", num(graph.get("links")) if "links" in graph else None),
+    ):
+        if value not in (None, ""):
+            facts.append(f"<dt>{esc(label)}</dt><dd>{esc(value)}</dd>")
+    if facts:
+        out.append(f'<dl class="facts">{"".join(facts)}</dl>')
+    notes = areas.get("notes") or []
+    if notes:
+        out.append(
+            '<h3 id="input-notes">Notes from reading the input</h3><ul>'
+            + "".join(f"<li>{esc(n)}</li>" for n in notes[:TABLE_ROWS])
+            + "</ul>"
+        )
+    repaired = areas.get("repaired_polygons")
+    if repaired:
+        shown = ", ".join(map(str, repaired[:200])) + (
+            f" and {len(repaired) - 200:,} more" if len(repaired) > 200 else ""
+        )
+        out.append(
+            f'<h3 id="input-repaired">Repaired polygons</h3><p>{len(repaired):,} invalid polygon(s) were repaired before use: {esc(shown)}.</p>'
+        )
+    islands = dicts(graph.get("islands"))
+    if islands:
+        cols = list(dict.fromkeys(k for d in islands for k in d))
+        rows = [[text_of(d.get(k)) for k in cols] for d in islands]
+        out.append(
+            '<h3 id="input-islands">Islands</h3><p>Parts of a fence with no neighbour path to the rest of it.</p>'
+        )
+        out.append(html_table("Islands found in the area graph", cols, rows))
+    elif "islands" in graph:
+        out.append("<p>No islands: every fence's areas are connected.</p>")
+    return "".join(out)
+
+
+def _rules(run: ReportPlan) -> str:
+    text = run.summary.get("rules")
+    if not text:
+        return ""
+    return f'<pre class="rules" aria-label="Rules file">{esc(text)}</pre>'
+
+
+def _run_details(run: ReportPlan) -> str:
+    s = run.summary
+    out = []
+    search = s.get("search")
+    if isinstance(search, dict) and search:
+        rows = "".join(f"<dt>{esc(k)}</dt><dd>{esc(text_of(v))}</dd>" for k, v in search.items())
+        out.append(f'<h3 id="run-search">Search</h3><dl class="facts">{rows}</dl>')
+    versions = s.get("versions")
+    if isinstance(versions, dict) and versions:
+        out.append('<h3 id="run-versions">Software</h3>')
+        out.append(
+            html_table(
+                "Software versions",
+                ["package", "version"],
+                [[k, v] for k, v in versions.items()],
+                row_headers=True,
+            )
+        )
+    seconds = s.get("seconds")
+    if isinstance(seconds, dict) and seconds:
+        out.append('<h3 id="run-times">Run times</h3>')
+        out.append(
+            html_table(
+                "Seconds per phase",
+                ["phase", "seconds"],
+                [[k, num(v)] for k, v in seconds.items()],
+                row_headers=True,
+            )
+        )
+    return "".join(out)
+
+
+# (anchor id, heading, maker) in page order
+SECTIONS: list[tuple[str, str, Callable[[ReportPlan], str]]] = [
+    ("overview", "At a glance", _overview),
+    ("maps", "Maps", _maps),
+    ("changes", "Changes since the previous zones", _changes),
+    ("distributions", "Distributions", _distributions),
+    ("sweep", "Variants compared", _sweep),
+    ("tiers", "Tiers", _tiers),
+    ("zones", "Zones", _zones),
+    ("fences", "Fences", _fences),
+    ("violations", "Rule breaks", _violations),
+    ("certificate", "Certificate and proofs", _certificate),
+    ("input", "Input", _input),
+    ("rules", "Rules used", _rules),
+    ("run", "Run", _run_details),
+]
