@@ -105,7 +105,8 @@ def prepare(
     seconds["read"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     _say(progress, f"building the {rules.graph.contiguity} graph of {file.areas.n} areas")
-    graph = build_graph(file.geometry, rules.graph)
+    notes = list(file.notes)
+    graph = build_graph(file.geometry, rules.graph, notes=notes)
     n_links = 0
     if rules.graph.links is not None:
         inputs.append(Path(rules.graph.links))
@@ -119,7 +120,7 @@ def prepare(
         areas=file.areas,
         geometry=file.geometry,
         graph=graph,
-        notes=list(file.notes),
+        notes=notes,
         islands=[_island_dict(x) for x in found],
         links=n_links,
         inputs=inputs,

@@ -40,11 +40,12 @@ import tomllib
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-
-import numpy as np
-import pandas as pd
+from typing import TYPE_CHECKING
 
 from zonedesign.errors import InputError, RulesError
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 TERMS = ("size", "homogeneity", "compactness", "stability")
 METHODS = ("descent", "annealing", "tabu")
@@ -754,6 +755,8 @@ def starter_rules(columns: Sequence[str], dtypes: Sequence[str], sample: pd.Data
     id and a text column with few, large groups as the fence; the three example tiers carry
     census-style bounds. The result parses; the user edits names and numbers.
     """
+    import pandas as pd  # here, so that reading rules needs no pandas
+
     columns = [str(c) for c in columns]
     kinds = dict(zip(columns, (_dtype_kind(d) for d in dtypes)))
     numeric = [c for c in columns if kinds.get(c) in ("i", "u", "f")]
@@ -837,6 +840,8 @@ def starter_rules(columns: Sequence[str], dtypes: Sequence[str], sample: pd.Data
 
 
 def _dtype_kind(dtype: str) -> str:
+    import numpy as np
+
     try:
         return np.dtype(dtype).kind
     except TypeError:
@@ -872,9 +877,13 @@ def _guess_fence(columns: list[str], kinds: dict[str, str], sample: pd.DataFrame
 
 
 def _non_negative(sample: pd.DataFrame, col: str) -> bool:
+    import pandas as pd
+
     vals = pd.to_numeric(sample[col], errors="coerce") if col in sample else pd.Series(dtype=float)
     return bool(len(vals)) and bool((vals.dropna() >= 0).all())
 
 
 def _varies(sample: pd.DataFrame, col: str) -> bool:
+    import pandas as pd
+
     return col in sample and pd.to_numeric(sample[col], errors="coerce").nunique(dropna=True) > 1

@@ -17,12 +17,14 @@ import shutil
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import geopandas as gpd
 import numpy as np
-import pyogrio
 
 from zonedesign.errors import InputError
+
+if TYPE_CHECKING:
+    import geopandas as gpd
 
 _SIDE = re.compile(r"^\.(?P<name>.+)\.(?P<kind>tmp|old)-(?P<pid>\d+)-[0-9a-f]+$")
 
@@ -144,6 +146,8 @@ def _plain(obj: object) -> object:
 
 def write_layers_gpkg(path: str | Path, layers: Mapping[str, gpd.GeoDataFrame]) -> None:
     """One GeoPackage layer per entry (e.g. per tier), in order; the file is rewritten."""
+    import pyogrio  # here, so that writing plain outputs needs no GDAL start-up
+
     if not layers:
         raise ValueError("write_layers_gpkg needs at least one layer")
     path = Path(path)

@@ -145,10 +145,10 @@ def path_data(geoms: np.ndarray, frame: Frame) -> list[str]:
 def marker_path(geom: object, frame: Frame) -> str:
     """A one-unit square at the zone's inner point, for zones smaller than a unit."""
     if geom is None or shapely.is_empty(geom):
-        return f"M{MARGIN} {MARGIN}h0"
+        return f"M{MARGIN} {MARGIN}l0 0z"
     p = shapely.get_coordinates(shapely.point_on_surface(geom))
     x, y = frame.apply(p)[0].tolist()
-    return f"M{x} {y}h1v1h-1z"
+    return f"M{x} {y}l1 0 0 1-1 0z"
 
 
 _UNSAFE = re.compile(r"[^A-Za-z0-9-]")

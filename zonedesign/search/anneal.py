@@ -38,22 +38,30 @@ CT_SIZE = 8
 @njit(cache=True)
 def sample_uphill(st, seed, nsamp):
     """Mean objective rise over random moves that keep the breaks (0 when none rise)."""
+    labels = st.labels
+    size = st.size
+    brk = st.brk
+    cost = st.cost
+    ztouch = st.ztouch
+    zacc = st.zacc
+    blist = st.blist
+    iv = st.iv
     np.random.seed(seed)
     tot = 0.0
     cnt = 0
     for _ in range(nsamp):
-        nb = st.iv[IV_NB]
+        nb = iv[IV_NB]
         if nb == 0:
             break
-        i = st.blist[np.random.randint(nb)]
-        a = st.labels[i]
+        i = blist[np.random.randint(nb)]
+        a = labels[i]
         la, nda, nt = unit_links(st, i, a)
-        if nt == 0 or st.size[a] <= 1:
+        if nt == 0 or size[a] <= 1:
             continue
-        b = st.ztouch[np.random.randint(nt)]
-        ca, ka, cb, kb = move_values(st, i, a, b, la, st.zacc[b])
-        db = (ka + kb) - (st.brk[a] + st.brk[b])
-        do = (ca + cb) - (st.cost[a] + st.cost[b])
+        b = ztouch[np.random.randint(nt)]
+        ca, ka, cb, kb = move_values(st, i, a, b, la, zacc[b])
+        db = (ka + kb) - (brk[a] + brk[b])
+        do = (ca + cb) - (cost[a] + cost[b])
         if db <= EPS_BRK and do > EPS_OBJ:
             tot += do
             cnt += 1
@@ -92,23 +100,31 @@ def anneal_block(st, seed, temp, nmoves, best_labels, ctl, cti):
 
     ctl: [best breaks, best total]; cti: control counters (CT_*); best_labels: (n,).
     """
+    labels = st.labels
+    size = st.size
+    brk = st.brk
+    cost = st.cost
+    ztouch = st.ztouch
+    zacc = st.zacc
+    blist = st.blist
+    iv = st.iv
     np.random.seed(seed)
     for _ in range(nmoves):
-        nb = st.iv[IV_NB]
+        nb = iv[IV_NB]
         if nb == 0:
             break
-        i = st.blist[np.random.randint(nb)]
-        a = st.labels[i]
-        if st.size[a] <= 1:
+        i = blist[np.random.randint(nb)]
+        a = labels[i]
+        if size[a] <= 1:
             continue
         la, nda, nt = unit_links(st, i, a)
         if nt == 0:
             continue
-        b = st.ztouch[np.random.randint(nt)]
-        lb = st.zacc[b]
+        b = ztouch[np.random.randint(nt)]
+        lb = zacc[b]
         ca, ka, cb, kb = move_values(st, i, a, b, la, lb)
-        db = (ka + kb) - (st.brk[a] + st.brk[b])
-        do = (ca + cb) - (st.cost[a] + st.cost[b])
+        db = (ka + kb) - (brk[a] + brk[b])
+        do = (ca + cb) - (cost[a] + cost[b])
         cti[CT_TRIED] += 1
         if db > EPS_BRK:
             continue

@@ -29,10 +29,19 @@ def descent_sweep(st, seed, order, stats):
 
     order: (n,) int64 scratch. stats[0] counts moves evaluated, stats[1] moves made.
     """
+    labels = st.labels
+    size = st.size
+    brk = st.brk
+    cost = st.cost
+    ztouch = st.ztouch
+    zacc = st.zacc
+    blist = st.blist
+    bpos = st.bpos
+    iv = st.iv
     np.random.seed(seed)
-    nb = st.iv[IV_NB]
+    nb = iv[IV_NB]
     for t in range(nb):
-        order[t] = st.blist[t]
+        order[t] = blist[t]
     for t in range(nb - 1, 0, -1):
         r = np.random.randint(t + 1)
         tmp = order[t]
@@ -42,10 +51,10 @@ def descent_sweep(st, seed, order, stats):
     made = 0
     for t in range(nb):
         i = order[t]
-        if st.bpos[i] < 0:
+        if bpos[i] < 0:
             continue
-        a = st.labels[i]
-        if st.size[a] <= 1:
+        a = labels[i]
+        if size[a] <= 1:
             continue
         la, nda, nt = unit_links(st, i, a)
         ha = dist_to_zone(st, i, a) if pairwise else 0.0
@@ -55,17 +64,17 @@ def descent_sweep(st, seed, order, stats):
         bdo = 0.0
         blen = 0.0
         for q in range(nt):
-            b = st.ztouch[q]
+            b = ztouch[q]
             hb = dist_to_zone(st, i, b) if pairwise else 0.0
-            cb, kb = value_with(st, b, i, 1.0, st.zacc[b], hb)
-            db = (ka + kb) - (st.brk[a] + st.brk[b])
-            do = (ca + cb) - (st.cost[a] + st.cost[b])
+            cb, kb = value_with(st, b, i, 1.0, zacc[b], hb)
+            db = (ka + kb) - (brk[a] + brk[b])
+            do = (ca + cb) - (cost[a] + cost[b])
             stats[0] += 1
             if better(db, do) and (bb < 0 or key_less(db, do, bdb, bdo)):
                 bb = b
                 bdb = db
                 bdo = do
-                blen = st.zacc[b]
+                blen = zacc[b]
         if bb >= 0 and donor_ok(st, i):
             apply_move(st, i, bb, la, blen)
             stats[1] += 1

@@ -17,10 +17,10 @@ import numpy as np
 from numba import njit
 
 from zonedesign.search.kernels import (
+    IV_ZSTAMP,
     apply_move,
     dist_to_zone,
     key_less,
-    move_unit,
     pop_free,
     unit_links,
     value_with,
@@ -30,16 +30,26 @@ from zonedesign.search.kernels import (
 @njit(cache=True)
 def grow_zones(st, seed, alpha, beta, labels):
     """Region growing; writes zone ids 0..k-1 to labels (-1 for enclaves) and returns k."""
+    indptr = st.indptr
+    indices = st.indices
+    length = st.length
+    counts = st.counts
+    x = st.x
+    lo = st.lo
+    hi = st.hi
+    target = st.target
+    perim = st.perim
+    tmask = st.tmask
     np.random.seed(seed)
     n = labels.shape[0]
-    nc = st.counts.shape[1]
-    na = st.x.shape[1]
+    nc = counts.shape[1]
+    na = x.shape[1]
     for i in range(n):
         labels[i] = -1
     enclave = -2
     tcol = -1
     for c in range(nc):
-        if st.tmask[c] == 1:
+        if tmask[c] == 1:
             tcol = c
             break
     tc = np.zeros(nc)
@@ -67,11 +77,11 @@ def grow_zones(st, seed, alpha, beta, labels):
             mem[m] = u
             m += 1
             for c in range(nc):
-                tc[c] += st.counts[u, c]
+                tc[c] += counts[u, c]
             for t in range(na):
-                xs[t] += st.x[u, t]
-            for p in range(st.indptr[u], st.indptr[u + 1]):
-                j = st.indices[p]
+                xs[t] += x[u, t]
+            for p in range(indptr[u], indptr[u + 1]):
+                j = indices[p]
                 if labels[j] != -1:
                     continue
                 if fmark[j] != stamp:
@@ -79,10 +89,10 @@ def grow_zones(st, seed, alpha, beta, labels):
                     flen[j] = 0.0
                     fr[nf] = j
                     nf += 1
-                flen[j] += st.length[p]
+                flen[j] += length[p]
             floors = True
             for c in range(nc):
-                if np.isfinite(st.lo[c]) and tc[c] < st.lo[c]:
+                if np.isfinite(lo[c]) and tc[c] < lo[c]:
                     floors = False
             if floors and tcol < 0:
                 break
@@ -98,24 +108,24 @@ def grow_zones(st, seed, alpha, beta, labels):
                 keep += 1
                 ok = True
                 for c in range(nc):
-                    if np.isfinite(st.hi[c]) and tc[c] + st.counts[j, c] > st.hi[c]:
+                    if np.isfinite(hi[c]) and tc[c] + counts[j, c] > hi[c]:
                         ok = False
                 if not ok:
                     continue
                 if floors:
-                    now = abs(tc[tcol] - st.target[tcol])
-                    after = abs(tc[tcol] + st.counts[j, tcol] - st.target[tcol])
+                    now = abs(tc[tcol] - target[tcol])
+                    after = abs(tc[tcol] + counts[j, tcol] - target[tcol])
                     if after >= now:
                         continue
                 sc = 0.0
                 if alpha > 0.0 and na > 0:
                     dd = 0.0
                     for t in range(na):
-                        v = st.x[j, t] - xs[t] / m
+                        v = x[j, t] - xs[t] / m
                         dd += v * v
                     sc += alpha * dd / na
                 if beta > 0.0:
-                    share = flen[j] / st.perim[j] if st.perim[j] > 0.0 else 0.0
+                    share = flen[j] / perim[j] if perim[j] > 0.0 else 0.0
                     sc += beta * (1.0 - min(share, 1.0))
                 if sc < bscore:
                     bscore = sc
@@ -124,7 +134,7 @@ def grow_zones(st, seed, alpha, beta, labels):
             u = best
         floors = True
         for c in range(nc):
-            if np.isfinite(st.lo[c]) and tc[c] < st.lo[c]:
+            if np.isfinite(lo[c]) and tc[c] < lo[c]:
                 floors = False
         if floors:
             k += 1
@@ -143,8 +153,12 @@ def absorb_enclaves(st, seed):
 
     st must hold the partial labelling (unassigned units labelled -1).
     """
+    indptr = st.indptr
+    indices = st.indices
+    labels = st.labels
+    queue = st.queue
     np.random.seed(seed)
-    n = st.labels.shape[0]
+    n = labels.shape[0]
     cand = np.empty(n, dtype=np.int64)
     pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
     # typed, not literal, so callees compile once (numba specialises on literal ints)
@@ -152,10 +166,10 @@ def absorb_enclaves(st, seed):
     while True:
         nc = 0
         for i in range(n):
-            if st.labels[i] >= 0:
+            if labels[i] >= 0:
                 continue
-            for p in range(st.indptr[i], st.indptr[i + 1]):
-                if st.labels[st.indices[p]] >= 0:
+            for p in range(indptr[i], indptr[i + 1]):
+                if labels[indices[p]] >= 0:
                     cand[nc] = i
                     nc += 1
                     break
@@ -168,7 +182,7 @@ def absorb_enclaves(st, seed):
             cand[r] = tmp
         for t in range(nc):
             i = cand[t]
-            if st.labels[i] >= 0:
+            if labels[i] >= 0:
                 continue
             la, nda, nt = unit_links(st, i, none)
             bb = none
@@ -190,22 +204,23 @@ def absorb_enclaves(st, seed):
     # what is left are whole components without a zone: one zone each
     made = 0
     for s in range(n):
-        if st.labels[s] >= 0:
+        if labels[s] >= 0:
             continue
         nz = pop_free(st)
         made += 1
-        move_unit(st, s, nz)
+        apply_move(st, s, nz, 0.0, 0.0)
         head = 0
         tail = 0
-        st.queue[tail] = s
+        queue[tail] = s
         tail += 1
         while head < tail:
-            u = st.queue[head]
+            u = queue[head]
             head += 1
-            for p in range(st.indptr[u], st.indptr[u + 1]):
-                v = st.indices[p]
-                if st.labels[v] < 0:
-                    move_unit(st, v, nz)
-                    st.queue[tail] = v
+            for p in range(indptr[u], indptr[u + 1]):
+                v = indices[p]
+                if labels[v] < 0:
+                    la, nda, nt = unit_links(st, v, none)
+                    apply_move(st, v, nz, 0.0, st.zacc[nz] if st.zmark[nz] == st.iv[IV_ZSTAMP] else 0.0)
+                    queue[tail] = v
                     tail += 1
     return made

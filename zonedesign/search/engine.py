@@ -251,7 +251,7 @@ def _construct(run: _Run, rounds: int) -> tuple[np.ndarray, int]:
         tried += 1
         state.resync()
         key = state.key()
-        if best is None or K.key_less(key[0], key[1], best_key[0], best_key[1]):
+        if best is None or K.is_less(key[0], key[1], best_key[0], best_key[1]):
             best = state.compact()[0]
             best_key = key
         if run.out_of_time():
@@ -281,8 +281,8 @@ def _improve(run: _Run) -> None:
         run.info["rounds"] += 1
         if run.out_of_time():
             return
-        m = int(merge_pass(st, run.seed()))
-        s = int(split_pass(st, run.seed(), N_TREES, FAR_ABOVE_TARGET))
+        m = merge_pass(st, run.state.zones, run.rng)
+        s = split_pass(st, run.state.data, run.state.zones, run.seed(), N_TREES, FAR_ABOVE_TARGET)
         run.info["merges"] += m
         run.info["splits"] += s
         changed = m + s

@@ -243,53 +243,23 @@ def new_state(d: Data, z: Zones) -> State:
     return _new_state(d, z)
 
 
-# ---------------------------------------------------------------- zone value
+# ---------------------------------------------------------------- small helpers
+# (inlined into their callers: fewer compiled functions, quicker first compile)
 
 
-@njit(cache=True)
-def count_value(st, s):
-    """(size cost, bound break) of a zone whose count sums are s (measures' formulas)."""
-    size = 0.0
-    brk = 0.0
-    for c in range(s.shape[0]):
-        v = s[c]
-        if st.tmask[c] == 1:
-            size += abs(v - st.target[c]) / st.target[c]
-        lo = st.lo[c]
-        hi = st.hi[c]
-        under = 0.0
-        over = 0.0
-        if np.isfinite(lo) and v < lo:
-            under = (lo - v) / max(abs(lo), 1.0)
-        if np.isfinite(hi) and v > hi:
-            over = (v - hi) / max(abs(hi), 1.0)
-        brk += under + over
-    return size, brk
+@njit(cache=True, inline="always")
+def better(db, do):
+    """A change (break change db, objective change do) that is a strict improvement."""
+    return db < -EPS_BRK or (db <= EPS_BRK and do < -EPS_OBJ)
 
 
-@njit(cache=True)
-def zone_value(st, s, npos, W, Ssq, Q, H, A, P, nstab):
-    """(weighted normalised cost, bound break) of a zone from its sums."""
-    size, brk = count_value(st, s)
-    if st.kind[0] == 1:
-        hom = H
-    elif npos > 0:
-        hom = Q - Ssq / W
-        if hom < 0.0:
-            hom = 0.0
-    else:
-        hom = 0.0
-    if st.kind[1] == 1:
-        comp = P / 2.0
-    elif P > 0.0:
-        comp = 1.0 - 4.0 * np.pi * A / (P * P)
-    else:
-        comp = 1.0
-    cost = st.coef[0] * size + st.coef[1] * hom + st.coef[2] * comp + st.coef[3] * nstab
-    return cost, brk
+@njit(cache=True, inline="always")
+def key_less(b1, t1, b2, t2):
+    """(b1, t1) strictly before (b2, t2), breaks first."""
+    return b1 < b2 - EPS_BRK or (b1 <= b2 + EPS_BRK and t1 < t2 - EPS_OBJ)
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def dist(x, i, j):
     s = 0.0
     for t in range(x.shape[1]):
@@ -298,17 +268,131 @@ def dist(x, i, j):
     return np.sqrt(s)
 
 
+@njit(cache=True, inline="always")
+def link(st, i, zone):
+    head = st.head
+    h = head[zone]
+    st.nxt[i] = h
+    st.prv[i] = -1
+    if h >= 0:
+        st.prv[h] = i
+    head[zone] = i
+
+
+@njit(cache=True, inline="always")
+def unlink(st, i, zone):
+    nxt = st.nxt
+    prv = st.prv
+    p = prv[i]
+    q = nxt[i]
+    if p >= 0:
+        nxt[p] = q
+    else:
+        st.head[zone] = q
+    if q >= 0:
+        prv[q] = p
+    nxt[i] = -1
+    prv[i] = -1
+
+
+@njit(cache=True, inline="always")
+def boundary_status(st, j):
+    """Put j on the boundary list when it has a neighbour in another zone, else take it off."""
+    bpos = st.bpos
+    blist = st.blist
+    iv = st.iv
+    if st.nbdiff[j] > 0:
+        if bpos[j] < 0:
+            nb = iv[IV_NB]
+            blist[nb] = j
+            bpos[j] = nb
+            iv[IV_NB] = nb + 1
+    elif bpos[j] >= 0:
+        nb = iv[IV_NB] - 1
+        p = bpos[j]
+        last = blist[nb]
+        blist[p] = last
+        bpos[last] = p
+        bpos[j] = -1
+        iv[IV_NB] = nb
+
+
+@njit(cache=True, inline="always")
+def pop_free(st):
+    nf = st.iv[IV_NFREE] - 1
+    st.iv[IV_NFREE] = nf
+    zone = st.free[nf]
+    st.anchor[zone] = -1
+    return zone
+
+
+@njit(cache=True, inline="always")
+def push_free(st, zone):
+    st.free[st.iv[IV_NFREE]] = zone
+    st.iv[IV_NFREE] += 1
+
+
+# ---------------------------------------------------------------- zone value
+
+
+@njit(cache=True)
+def zone_value(st, s, npos, W, Ssq, Q, H, A, P, nstab):
+    """(weighted normalised cost, bound break) of a zone from its sums (measures' formulas).
+
+    s: count sums (c,); npos: members with positive weight; W, Ssq, Q: weight sum, squared
+    norm of the weighted attribute sum, sum of w ||x||^2; H: pairwise distance sum; A, P:
+    area and perimeter; nstab: members whose previous zone differs from the anchor.
+    """
+    tmask = st.tmask
+    target = st.target
+    lo = st.lo
+    hi = st.hi
+    size = 0.0
+    brk = 0.0
+    for c in range(s.shape[0]):
+        v = s[c]
+        if tmask[c] == 1:
+            size += abs(v - target[c]) / target[c]
+        under = 0.0
+        over = 0.0
+        if np.isfinite(lo[c]) and v < lo[c]:
+            under = (lo[c] - v) / max(abs(lo[c]), 1.0)
+        if np.isfinite(hi[c]) and v > hi[c]:
+            over = (v - hi[c]) / max(abs(hi[c]), 1.0)
+        brk += under + over
+    kind = st.kind
+    if kind[0] == 1:
+        hom = H
+    elif npos > 0:
+        hom = Q - Ssq / W
+        if hom < 0.0:
+            hom = 0.0
+    else:
+        hom = 0.0
+    if kind[1] == 1:
+        comp = P / 2.0
+    elif P > 0.0:
+        comp = 1.0 - 4.0 * np.pi * A / (P * P)
+    else:
+        comp = 1.0
+    coef = st.coef
+    cost = coef[0] * size + coef[1] * hom + coef[2] * comp + coef[3] * nstab
+    return cost, brk
+
+
 @njit(cache=True)
 def dist_to_zone(st, i, zone):
     """Sum of attribute distances from unit i to the members of zone (i itself excluded)."""
     s = 0.0
     if zone < 0:
         return s
+    x = st.x
+    nxt = st.nxt
     j = st.head[zone]
     while j >= 0:
         if j != i:
-            s += dist(st.x, i, j)
-        j = st.nxt[j]
+            s += dist(x, i, j)
+        j = nxt[j]
     return s
 
 
@@ -318,17 +402,22 @@ def value_with(st, zone, i, sign, lz, hz):
 
     lz: i's shared boundary with the other members of zone; hz: i's distance sum to them.
     """
-    if st.size[zone] + int(sign) == 0:
+    isign = 1 if sign > 0.0 else -1
+    if st.size[zone] + isign == 0:
         return 0.0, 0.0
     tc = st.tc
+    csum = st.csum
+    counts = st.counts
     for c in range(tc.shape[0]):
-        tc[c] = st.csum[zone, c] + sign * st.counts[i, c]
+        tc[c] = csum[zone, c] + sign * counts[i, c]
     wi = st.w[i]
     W = st.W[zone] + sign * wi
-    npos = st.npos[zone] + (int(sign) if wi > 0.0 else 0)
+    npos = st.npos[zone] + (isign if wi > 0.0 else 0)
+    S = st.S
+    x = st.x
     Ssq = 0.0
-    for t in range(st.x.shape[1]):
-        v = st.S[zone, t] + sign * (wi * st.x[i, t])
+    for t in range(x.shape[1]):
+        v = S[zone, t] + sign * (wi * x[i, t])
         Ssq += v * v
     Q = st.Q[zone] + sign * st.q[i]
     H = st.H[zone] + sign * hz
@@ -336,7 +425,7 @@ def value_with(st, zone, i, sign, lz, hz):
     P = st.P[zone] + sign * (st.perim[i] - 2.0 * lz)
     ns = st.nstab[zone]
     if st.kind[2] == 1 and st.prev[i] != st.anchor[zone]:
-        ns += int(sign)
+        ns += isign
     return zone_value(st, tc, npos, W, Ssq, Q, H, A, P, ns)
 
 
@@ -345,190 +434,165 @@ def stored_value(st, zone):
     """(cost, break) of zone from its kept sums."""
     if st.size[zone] == 0:
         return 0.0, 0.0
+    S = st.S
     Ssq = 0.0
-    for t in range(st.S.shape[1]):
-        Ssq += st.S[zone, t] * st.S[zone, t]
+    for t in range(S.shape[1]):
+        Ssq += S[zone, t] * S[zone, t]
     return zone_value(
         st, st.csum[zone], st.npos[zone], st.W[zone], Ssq, st.Q[zone], st.H[zone], st.A[zone], st.P[zone], st.nstab[zone]
     )
 
 
-# ---------------------------------------------------------------- lists and boundary
+# ---------------------------------------------------------------- boundary
 
 
-@njit(cache=True)
-def _link(st, i, zone):
-    h = st.head[zone]
-    st.nxt[i] = h
-    st.prv[i] = -1
-    if h >= 0:
-        st.prv[h] = i
-    st.head[zone] = i
-
-
-@njit(cache=True)
-def _unlink(st, i, zone):
-    p = st.prv[i]
-    q = st.nxt[i]
-    if p >= 0:
-        st.nxt[p] = q
-    else:
-        st.head[zone] = q
-    if q >= 0:
-        st.prv[q] = p
-    st.nxt[i] = -1
-    st.prv[i] = -1
-
-
-@njit(cache=True)
-def _bl_update(st, j):
-    if st.nbdiff[j] > 0:
-        if st.bpos[j] < 0:
-            nb = st.iv[IV_NB]
-            st.blist[nb] = j
-            st.bpos[j] = nb
-            st.iv[IV_NB] = nb + 1
-    elif st.bpos[j] >= 0:
-        nb = st.iv[IV_NB] - 1
-        p = st.bpos[j]
-        last = st.blist[nb]
-        st.blist[p] = last
-        st.bpos[last] = p
-        st.bpos[j] = -1
-        st.iv[IV_NB] = nb
-
-
-@njit(cache=True)
-def refresh_unit(st, i):
-    """Recount i's neighbours in other zones and update the boundary list."""
-    lab = st.labels[i]
+@njit(cache=True, inline="always")
+def recount(st, j):
+    """Recount j's neighbours in other zones and update the boundary list."""
+    indptr = st.indptr
+    indices = st.indices
+    labels = st.labels
+    lab = labels[j]
     cnt = 0
-    for p in range(st.indptr[i], st.indptr[i + 1]):
-        if st.labels[st.indices[p]] != lab:
+    for e in range(indptr[j], indptr[j + 1]):
+        if labels[indices[e]] != lab:
             cnt += 1
-    st.nbdiff[i] = cnt
-    _bl_update(st, i)
+    st.nbdiff[j] = cnt
+    boundary_status(st, j)
 
 
 @njit(cache=True)
 def refresh_zone_boundary(st, zone):
     """Recount the boundary status of zone's members and of their neighbours."""
+    indptr = st.indptr
+    indices = st.indices
+    labels = st.labels
+    nxt = st.nxt
     u = st.head[zone]
     while u >= 0:
-        refresh_unit(st, u)
-        for p in range(st.indptr[u], st.indptr[u + 1]):
-            v = st.indices[p]
-            if st.labels[v] != zone:
-                refresh_unit(st, v)
-        u = st.nxt[u]
+        recount(st, u)
+        for p in range(indptr[u], indptr[u + 1]):
+            v = indices[p]
+            if labels[v] != zone:
+                recount(st, v)
+        u = nxt[u]
 
 
 # ---------------------------------------------------------------- building
 
 
 @njit(cache=True)
-def pop_free(st):
-    nf = st.iv[IV_NFREE] - 1
-    st.iv[IV_NFREE] = nf
-    zone = st.free[nf]
-    st.anchor[zone] = -1
-    return zone
-
-
-@njit(cache=True)
-def push_free(st, zone):
-    st.free[st.iv[IV_NFREE]] = zone
-    st.iv[IV_NFREE] += 1
-
-
-@njit(cache=True)
 def recompute_zone(st, zone):
     """Recompute zone's sums from its members (exact), keeping the running totals."""
-    st.fv[FV_TOTAL] -= st.cost[zone]
-    st.fv[FV_BRK] -= st.brk[zone]
-    c = st.csum.shape[1]
-    a = st.S.shape[1]
+    fv = st.fv
+    fv[FV_TOTAL] -= st.cost[zone]
+    fv[FV_BRK] -= st.brk[zone]
+    indptr = st.indptr
+    indices = st.indices
+    length = st.length
+    labels = st.labels
+    nxt = st.nxt
+    counts = st.counts
+    x = st.x
+    w = st.w
+    q = st.q
+    area = st.area
+    perim = st.perim
+    prev = st.prev
+    csum = st.csum
+    S = st.S
+    c = csum.shape[1]
+    a = S.shape[1]
     for t in range(c):
-        st.csum[zone, t] = 0.0
+        csum[zone, t] = 0.0
     for t in range(a):
-        st.S[zone, t] = 0.0
-    st.W[zone] = 0.0
-    st.npos[zone] = 0
-    st.Q[zone] = 0.0
-    st.A[zone] = 0.0
-    st.H[zone] = 0.0
-    st.nstab[zone] = 0
+        S[zone, t] = 0.0
+    W = 0.0
+    npos = 0
+    Q = 0.0
+    A = 0.0
+    H = 0.0
+    nstab = 0
     m = 0
     per = 0.0
     internal = 0.0
     anc = st.anchor[zone]
+    stab = st.kind[2] == 1
+    pairs = st.kind[0] == 1 and st.coef[1] != 0.0
     u = st.head[zone]
     while u >= 0:
         m += 1
         for t in range(c):
-            st.csum[zone, t] += st.counts[u, t]
-        wu = st.w[u]
-        st.W[zone] += wu
+            csum[zone, t] += counts[u, t]
+        wu = w[u]
+        W += wu
         if wu > 0.0:
-            st.npos[zone] += 1
+            npos += 1
         for t in range(a):
-            st.S[zone, t] += wu * st.x[u, t]
-        st.Q[zone] += st.q[u]
-        st.A[zone] += st.area[u]
-        per += st.perim[u]
-        for p in range(st.indptr[u], st.indptr[u + 1]):
-            v = st.indices[p]
-            if v > u and st.labels[v] == zone:
-                internal += st.length[p]
-        if st.kind[2] == 1 and st.prev[u] != anc:
-            st.nstab[zone] += 1
-        if st.kind[0] == 1 and st.coef[1] != 0.0:
-            v = st.nxt[u]
+            S[zone, t] += wu * x[u, t]
+        Q += q[u]
+        A += area[u]
+        per += perim[u]
+        for p in range(indptr[u], indptr[u + 1]):
+            v = indices[p]
+            if v > u and labels[v] == zone:
+                internal += length[p]
+        if stab and prev[u] != anc:
+            nstab += 1
+        if pairs:
+            v = nxt[u]
             while v >= 0:
-                st.H[zone] += dist(st.x, u, v)
-                v = st.nxt[v]
-        u = st.nxt[u]
+                H += dist(x, u, v)
+                v = nxt[v]
+        u = nxt[u]
     st.size[zone] = m
+    st.W[zone] = W
+    st.npos[zone] = npos
+    st.Q[zone] = Q
+    st.A[zone] = A
+    st.H[zone] = H
+    st.nstab[zone] = nstab
     st.P[zone] = per - 2.0 * internal
     cost, brk = stored_value(st, zone)
     st.cost[zone] = cost
     st.brk[zone] = brk
-    st.fv[FV_TOTAL] += cost
-    st.fv[FV_BRK] += brk
+    fv[FV_TOTAL] += cost
+    fv[FV_BRK] += brk
 
 
 @njit(cache=True)
 def build_state(st, labels, anchors):
     """Fill st from a labelling (slots 0..k-1, -1 for unassigned units) and zone anchors."""
     n = labels.shape[0]
-    K = st.head.shape[0]
+    head = st.head
+    size = st.size
+    K = head.shape[0]
     for zone in range(K):
-        st.head[zone] = -1
-        st.size[zone] = 0
+        head[zone] = -1
+        size[zone] = 0
         st.cost[zone] = 0.0
         st.brk[zone] = 0.0
         st.anchor[zone] = -1
     for zone in range(anchors.shape[0]):
         st.anchor[zone] = anchors[zone]
-    st.fv[FV_TOTAL] = 0.0
-    st.fv[FV_BRK] = 0.0
     # members linked in descending unit order so each list reads ascending
+    lab = st.labels
     for i in range(n - 1, -1, -1):
-        st.labels[i] = labels[i]
+        lab[i] = labels[i]
         st.nxt[i] = -1
         st.prv[i] = -1
         if labels[i] >= 0:
-            _link(st, i, labels[i])
-            st.size[labels[i]] += 1
+            link(st, i, labels[i])
+            size[labels[i]] += 1
     nf = 0
     for zone in range(K - 1, -1, -1):
-        if st.size[zone] > 0:
+        if size[zone] > 0:
             recompute_zone(st, zone)
         else:
             st.free[nf] = zone
             nf += 1
     st.iv[IV_NFREE] = nf
-    # recompute_zone accumulated the totals zone by zone; restart them from a clean sum
+    # totals summed afresh, not accumulated zone by zone
     tot = 0.0
     brk = 0.0
     for zone in range(K):
@@ -540,7 +604,7 @@ def build_state(st, labels, anchors):
     for i in range(n):
         st.bpos[i] = -1
     for i in range(n):
-        refresh_unit(st, i)
+        recount(st, i)
 
 
 # ---------------------------------------------------------------- single-unit moves
@@ -552,23 +616,30 @@ def unit_links(st, i, a):
 
     The other zones go to st.ztouch[:nt] with their shared length in st.zacc[zone].
     """
+    indptr = st.indptr
+    indices = st.indices
+    length = st.length
+    labels = st.labels
+    zmark = st.zmark
+    zacc = st.zacc
+    ztouch = st.ztouch
     st.iv[IV_ZSTAMP] += 1
     stamp = st.iv[IV_ZSTAMP]
     la = 0.0
     nda = 0
     nt = 0
-    for p in range(st.indptr[i], st.indptr[i + 1]):
-        lab = st.labels[st.indices[p]]
+    for p in range(indptr[i], indptr[i + 1]):
+        lab = labels[indices[p]]
         if lab == a:
-            la += st.length[p]
+            la += length[p]
             nda += 1
         elif lab >= 0:
-            if st.zmark[lab] != stamp:
-                st.zmark[lab] = stamp
-                st.zacc[lab] = 0.0
-                st.ztouch[nt] = lab
+            if zmark[lab] != stamp:
+                zmark[lab] = stamp
+                zacc[lab] = 0.0
+                ztouch[nt] = lab
                 nt += 1
-            st.zacc[lab] += st.length[p]
+            zacc[lab] += length[p]
     return la, nda, nt
 
 
@@ -579,47 +650,52 @@ def donor_ok(st, i):
     Searches the donor zone from one of i's neighbours in it, never entering i, and stops
     as soon as every one of i's neighbours in the zone has been reached.
     """
-    a = st.labels[i]
+    labels = st.labels
+    a = labels[i]
     if a < 0:
         return True
     if st.size[a] <= 1:
         return False
+    indptr = st.indptr
+    indices = st.indices
+    mark = st.mark
+    queue = st.queue
     st.iv[IV_STAMP] += 2
     target = st.iv[IV_STAMP]
     seen = target + 1
     want = 0
     first = -1
-    for p in range(st.indptr[i], st.indptr[i + 1]):
-        j = st.indices[p]
-        if st.labels[j] == a and st.mark[j] != target:
-            st.mark[j] = target
+    for p in range(indptr[i], indptr[i + 1]):
+        j = indices[p]
+        if labels[j] == a and mark[j] != target:
+            mark[j] = target
             want += 1
             if first < 0:
                 first = j
     if want <= 1:
         return True
-    st.mark[first] = seen
+    mark[first] = seen
     found = 1
     head = 0
     tail = 0
-    st.queue[tail] = first
+    queue[tail] = first
     tail += 1
     while head < tail:
-        u = st.queue[head]
+        u = queue[head]
         head += 1
-        for p in range(st.indptr[u], st.indptr[u + 1]):
-            v = st.indices[p]
-            if v == i or st.labels[v] != a:
+        for p in range(indptr[u], indptr[u + 1]):
+            v = indices[p]
+            if v == i or labels[v] != a:
                 continue
-            mv = st.mark[v]
+            mv = mark[v]
             if mv == seen:
                 continue
             if mv == target:
                 found += 1
                 if found == want:
                     return True
-            st.mark[v] = seen
-            st.queue[tail] = v
+            mark[v] = seen
+            queue[tail] = v
             tail += 1
     return False
 
@@ -643,28 +719,35 @@ def move_values(st, i, a, b, la, lb):
 @njit(cache=True)
 def apply_move(st, i, b, la, lb):
     """Move unit i to zone b (i may be unassigned); la, lb: i's shared length with each."""
-    a = st.labels[i]
+    labels = st.labels
+    counts = st.counts
+    x = st.x
+    csum = st.csum
+    S = st.S
+    fv = st.fv
+    a = labels[i]
     track_h = st.kind[0] == 1 and st.coef[1] != 0.0
+    stab = st.kind[2] == 1
     wi = st.w[i]
     if a >= 0:
         ha = dist_to_zone(st, i, a) if track_h else 0.0
-        for c in range(st.csum.shape[1]):
-            st.csum[a, c] -= st.counts[i, c]
+        for c in range(csum.shape[1]):
+            csum[a, c] -= counts[i, c]
         st.W[a] -= wi
         if wi > 0.0:
             st.npos[a] -= 1
-        for t in range(st.S.shape[1]):
-            st.S[a, t] -= wi * st.x[i, t]
+        for t in range(S.shape[1]):
+            S[a, t] -= wi * x[i, t]
         st.Q[a] -= st.q[i]
         st.H[a] -= ha
         st.A[a] -= st.area[i]
         st.P[a] -= st.perim[i] - 2.0 * la
-        if st.kind[2] == 1 and st.prev[i] != st.anchor[a]:
+        if stab and st.prev[i] != st.anchor[a]:
             st.nstab[a] -= 1
         st.size[a] -= 1
-        _unlink(st, i, a)
-        st.fv[FV_TOTAL] -= st.cost[a]
-        st.fv[FV_BRK] -= st.brk[a]
+        unlink(st, i, a)
+        fv[FV_TOTAL] -= st.cost[a]
+        fv[FV_BRK] -= st.brk[a]
         if st.size[a] == 0:
             st.cost[a] = 0.0
             st.brk[a] = 0.0
@@ -673,58 +756,49 @@ def apply_move(st, i, b, la, lb):
             ca, ba = stored_value(st, a)
             st.cost[a] = ca
             st.brk[a] = ba
-            st.fv[FV_TOTAL] += ca
-            st.fv[FV_BRK] += ba
+            fv[FV_TOTAL] += ca
+            fv[FV_BRK] += ba
     hb = dist_to_zone(st, i, b) if track_h else 0.0
-    for c in range(st.csum.shape[1]):
-        st.csum[b, c] += st.counts[i, c]
+    for c in range(csum.shape[1]):
+        csum[b, c] += counts[i, c]
     st.W[b] += wi
     if wi > 0.0:
         st.npos[b] += 1
-    for t in range(st.S.shape[1]):
-        st.S[b, t] += wi * st.x[i, t]
+    for t in range(S.shape[1]):
+        S[b, t] += wi * x[i, t]
     st.Q[b] += st.q[i]
     st.H[b] += hb
     st.A[b] += st.area[i]
     st.P[b] += st.perim[i] - 2.0 * lb
-    if st.kind[2] == 1 and st.prev[i] != st.anchor[b]:
+    if stab and st.prev[i] != st.anchor[b]:
         st.nstab[b] += 1
     st.size[b] += 1
-    _link(st, i, b)
-    st.labels[i] = b
-    st.fv[FV_TOTAL] -= st.cost[b]
-    st.fv[FV_BRK] -= st.brk[b]
+    link(st, i, b)
+    labels[i] = b
+    fv[FV_TOTAL] -= st.cost[b]
+    fv[FV_BRK] -= st.brk[b]
     cb, bb = stored_value(st, b)
     st.cost[b] = cb
     st.brk[b] = bb
-    st.fv[FV_TOTAL] += cb
-    st.fv[FV_BRK] += bb
+    fv[FV_TOTAL] += cb
+    fv[FV_BRK] += bb
     # boundary bookkeeping: only i and its neighbours can change status
+    indptr = st.indptr
+    indices = st.indices
+    nbdiff = st.nbdiff
     cnt = 0
-    for p in range(st.indptr[i], st.indptr[i + 1]):
-        j = st.indices[p]
-        lj = st.labels[j]
+    for p in range(indptr[i], indptr[i + 1]):
+        j = indices[p]
+        lj = labels[j]
         if lj != b:
             cnt += 1
         before = 1 if lj != a else 0
         after = 1 if lj != b else 0
         if before != after:
-            st.nbdiff[j] += after - before
-            _bl_update(st, j)
-    st.nbdiff[i] = cnt
-    _bl_update(st, i)
-
-
-@njit(cache=True)
-def move_unit(st, i, b):
-    """Move unit i to zone b, computing the shared lengths."""
-    a = st.labels[i]
-    la, nda, nt = unit_links(st, i, a)
-    lb = 0.0
-    for t in range(nt):
-        if st.ztouch[t] == b:
-            lb = st.zacc[b]
-    apply_move(st, i, b, la, lb)
+            nbdiff[j] += after - before
+            boundary_status(st, j)
+    nbdiff[i] = cnt
+    boundary_status(st, i)
 
 
 @njit(cache=True)
@@ -746,15 +820,15 @@ def move_delta(st, i, b):
 
 
 @njit(cache=True)
-def better(db, do):
-    """A change (break change db, objective change do) that is a strict improvement."""
-    return db < -EPS_BRK or (db <= EPS_BRK and do < -EPS_OBJ)
-
-
-@njit(cache=True)
-def key_less(b1, t1, b2, t2):
-    """(b1, t1) strictly before (b2, t2), breaks first."""
-    return b1 < b2 - EPS_BRK or (b1 <= b2 + EPS_BRK and t1 < t2 - EPS_OBJ)
+def move_unit(st, i, b):
+    """Move unit i (assigned or not) to zone b."""
+    a = st.labels[i]
+    la, nda, nt = unit_links(st, i, a)
+    lb = 0.0
+    for t in range(nt):
+        if st.ztouch[t] == b:
+            lb = st.zacc[b]
+    apply_move(st, i, b, la, lb)
 
 
 @njit(cache=True)
@@ -762,8 +836,9 @@ def exact_totals(st):
     """(total, breaks) summed afresh over zones, without the drift of running sums."""
     tot = 0.0
     brk = 0.0
-    for zone in range(st.cost.shape[0]):
-        if st.size[zone] > 0:
+    size = st.size
+    for zone in range(size.shape[0]):
+        if size[zone] > 0:
             tot += st.cost[zone]
             brk += st.brk[zone]
     return tot, brk
@@ -784,3 +859,13 @@ def pair_total(x):
 def seed_rng(seed):
     """Seed the kernels' random generator (numba keeps its own, apart from numpy's)."""
     np.random.seed(seed)
+
+
+def is_less(b1: float, t1: float, b2: float, t2: float) -> bool:
+    """key_less for Python callers."""
+    return b1 < b2 - EPS_BRK or (b1 <= b2 + EPS_BRK and t1 < t2 - EPS_OBJ)
+
+
+def is_better(db: float, do: float) -> bool:
+    """better for Python callers."""
+    return db < -EPS_BRK or (db <= EPS_BRK and do < -EPS_OBJ)

@@ -9,6 +9,9 @@ tried and every tree edge is priced from subtree sums (counts, attribute sums, a
 perimeter through the internal boundary below each edge's lowest common ancestor); the
 best cut is made when it improves (breaks, objective). One part keeps the zone's slot and
 anchor, the other is a new zone (anchor -1).
+
+The passes loop over zones in Python: they run between local-search phases, not in the
+hot loop, and each zone's work is one compiled call.
 """
 
 from __future__ import annotations
@@ -18,14 +21,16 @@ from numba import njit
 
 from zonedesign.search.kernels import (
     IV_ZSTAMP,
-    _link,
     better,
     dist,
+    is_better,
     key_less,
+    link,
     pop_free,
     push_free,
     recompute_zone,
     refresh_zone_boundary,
+    seed_rng,
     zone_value,
 )
 
@@ -37,25 +42,33 @@ N_EXACT = 8  # cuts priced exactly per tree when the pairwise term needs the mem
 # ---------------------------------------------------------------- merge
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def zone_neighbours(st, a):
     """Zones adjacent to a: st.ztouch[:nt] with shared length in st.zacc; returns nt."""
+    indptr = st.indptr
+    indices = st.indices
+    length = st.length
+    labels = st.labels
+    nxt = st.nxt
+    zmark = st.zmark
+    zacc = st.zacc
+    ztouch = st.ztouch
     st.iv[IV_ZSTAMP] += 1
     stamp = st.iv[IV_ZSTAMP]
     nt = 0
     u = st.head[a]
     while u >= 0:
-        for p in range(st.indptr[u], st.indptr[u + 1]):
-            lab = st.labels[st.indices[p]]
+        for p in range(indptr[u], indptr[u + 1]):
+            lab = labels[indices[p]]
             if lab == a or lab < 0:
                 continue
-            if st.zmark[lab] != stamp:
-                st.zmark[lab] = stamp
-                st.zacc[lab] = 0.0
-                st.ztouch[nt] = lab
+            if zmark[lab] != stamp:
+                zmark[lab] = stamp
+                zacc[lab] = 0.0
+                ztouch[nt] = lab
                 nt += 1
-            st.zacc[lab] += st.length[p]
-        u = st.nxt[u]
+            zacc[lab] += length[p]
+        u = nxt[u]
     return nt
 
 
@@ -63,30 +76,36 @@ def zone_neighbours(st, a):
 def merge_value(st, a, b, shared, anc):
     """(cost, break) of the union of zones a and b with anchor anc."""
     tc = st.tc
+    csum = st.csum
+    S = st.S
+    nxt = st.nxt
+    head = st.head
     for c in range(tc.shape[0]):
-        tc[c] = st.csum[a, c] + st.csum[b, c]
+        tc[c] = csum[a, c] + csum[b, c]
     Ssq = 0.0
-    for t in range(st.S.shape[1]):
-        v = st.S[a, t] + st.S[b, t]
+    for t in range(S.shape[1]):
+        v = S[a, t] + S[b, t]
         Ssq += v * v
     H = 0.0
     if st.kind[0] == 1 and st.coef[1] != 0.0:
+        x = st.x
         H = st.H[a] + st.H[b]
-        u = st.head[a]
+        u = head[a]
         while u >= 0:
-            v = st.head[b]
+            v = head[b]
             while v >= 0:
-                H += dist(st.x, u, v)
-                v = st.nxt[v]
-            u = st.nxt[u]
+                H += dist(x, u, v)
+                v = nxt[v]
+            u = nxt[u]
     ns = np.int64(0)
     if st.kind[2] == 1:
+        prev = st.prev
         for zone in (a, b):
-            u = st.head[zone]
+            u = head[zone]
             while u >= 0:
-                if st.prev[u] != anc:
+                if prev[u] != anc:
                     ns += 1
-                u = st.nxt[u]
+                u = nxt[u]
     return zone_value(
         st,
         tc,
@@ -104,12 +123,13 @@ def merge_value(st, a, b, shared, anc):
 @njit(cache=True)
 def merge_zones(st, keep, gone, anc):
     """Move every member of zone `gone` into zone `keep`, whose anchor becomes anc."""
+    nxt = st.nxt
     u = st.head[gone]
     while u >= 0:
-        nxt = st.nxt[u]
+        after = nxt[u]
         st.labels[u] = keep
-        _link(st, u, keep)
-        u = nxt
+        link(st, u, keep)
+        u = after
     st.head[gone] = -1
     st.size[keep] += st.size[gone]
     st.size[gone] = 0
@@ -124,16 +144,85 @@ def merge_zones(st, keep, gone, anc):
 
 
 @njit(cache=True)
-def merge_delta(st, a, b):
-    """(break change, objective change, anchor) of the best way to merge zones a and b."""
-    shared = 0.0
+def best_merge(st, a, apply):
+    """Best merge of zone a with an adjacent zone whose union meets every ceiling.
+
+    Returns (partner or -1, break change, objective change, anchor kept). With apply set
+    (as 1) and a strict improvement found, the merge is made; the larger zone keeps its
+    slot, unless the smaller one's anchor was the one kept.
+    """
+    csum = st.csum
+    hi = st.hi
+    anchor = st.anchor
+    stab = st.kind[2] == 1
     nt = zone_neighbours(st, a)
+    nbz = st.ztouch[:nt].copy()
+    best = np.int64(-1)
+    bdb = 0.0
+    bdo = 0.0
+    banc = np.int64(-1)
+    for q in range(nt):
+        b = nbz[q]
+        shared = st.zacc[b]
+        fits = True
+        for c in range(csum.shape[1]):
+            if np.isfinite(hi[c]) and csum[a, c] + csum[b, c] > hi[c]:
+                fits = False
+        if not fits:
+            continue
+        for option in range(2):
+            anc = anchor[a] if option == 0 else anchor[b]
+            if option == 1 and (not stab or anc == anchor[a]):
+                continue
+            cost, brk = merge_value(st, a, b, shared, anc)
+            db = brk - st.brk[a] - st.brk[b]
+            do = cost - st.cost[a] - st.cost[b]
+            if best < 0 or key_less(db, do, bdb, bdo):
+                best = b
+                bdb = db
+                bdo = do
+                banc = anc
+    if apply == 1 and best >= 0 and better(bdb, bdo):
+        keep = a
+        gone = best
+        if stab:
+            if banc != anchor[a]:
+                keep = best
+                gone = a
+        elif st.size[best] > st.size[a]:
+            keep = best
+            gone = a
+        merge_zones(st, keep, gone, banc)
+    return best, bdb, bdo, banc
+
+
+def merge_pass(st, zones, rng: np.random.Generator) -> int:
+    """Merge each zone, in random order, with its best adjacent partner when that improves.
+
+    zones: the Zones arrays behind st (read to list live zones and check what happened).
+    """
+    merges = 0
+    order = rng.permutation(np.flatnonzero(zones.size > 0))
+    for a in order:
+        if zones.size[a] == 0:
+            continue
+        best, db, do, _ = best_merge(st, int(a), 1)
+        if best >= 0 and is_better(db, do):
+            merges += 1
+    return merges
+
+
+@njit(cache=True)
+def merge_delta(st, a, b):
+    """(break change, objective change, anchor kept) of the best way to merge a and b."""
+    nt = zone_neighbours(st, a)
+    shared = 0.0
     for q in range(nt):
         if st.ztouch[q] == b:
             shared = st.zacc[b]
-    cost, brk = merge_value(st, a, b, shared, st.anchor[a])
     anc = st.anchor[a]
-    if st.kind[2] == 1 and st.anchor[b] != st.anchor[a]:
+    cost, brk = merge_value(st, a, b, shared, anc)
+    if st.kind[2] == 1 and st.anchor[b] != anc:
         cost2, brk2 = merge_value(st, a, b, shared, st.anchor[b])
         if key_less(brk2, cost2, brk, cost):
             cost = cost2
@@ -142,83 +231,19 @@ def merge_delta(st, a, b):
     return brk - st.brk[a] - st.brk[b], cost - st.cost[a] - st.cost[b], anc
 
 
-@njit(cache=True)
-def merge_pass(st, seed):
-    """Merge each zone (in random order) with its best adjacent partner when that improves."""
-    np.random.seed(seed)
-    K = st.size.shape[0]
-    order = np.empty(K, dtype=np.int64)
-    nz = 0
-    for zone in range(K):
-        if st.size[zone] > 0:
-            order[nz] = zone
-            nz += 1
-    for t in range(nz - 1, 0, -1):
-        r = np.random.randint(t + 1)
-        tmp = order[t]
-        order[t] = order[r]
-        order[r] = tmp
-    nb_zone = np.empty(K, dtype=np.int64)
-    nb_len = np.empty(K)
-    merges = 0
-    for t in range(nz):
-        a = order[t]
-        if st.size[a] == 0:
-            continue
-        nt = zone_neighbours(st, a)
-        for q in range(nt):
-            nb_zone[q] = st.ztouch[q]
-            nb_len[q] = st.zacc[st.ztouch[q]]
-        best = np.int64(-1)
-        bdb = 0.0
-        bdo = 0.0
-        banc = np.int64(-1)
-        for q in range(nt):
-            b = nb_zone[q]
-            fits = True
-            for c in range(st.csum.shape[1]):
-                if np.isfinite(st.hi[c]) and st.csum[a, c] + st.csum[b, c] > st.hi[c]:
-                    fits = False
-            if not fits:
-                continue
-            for option in range(2):
-                anc = st.anchor[a] if option == 0 else st.anchor[b]
-                if option == 1 and (st.kind[2] == 0 or anc == st.anchor[a]):
-                    continue
-                cost, brk = merge_value(st, a, b, nb_len[q], anc)
-                db = brk - st.brk[a] - st.brk[b]
-                do = cost - st.cost[a] - st.cost[b]
-                if better(db, do) and (best < 0 or key_less(db, do, bdb, bdo)):
-                    best = b
-                    bdb = db
-                    bdo = do
-                    banc = anc
-        if best >= 0:
-            # the larger zone keeps its slot unless the smaller one's anchor was chosen
-            keep, gone = a, best
-            if st.kind[2] == 1:
-                if banc != st.anchor[a]:
-                    keep, gone = best, a
-            elif st.size[best] > st.size[a]:
-                keep, gone = best, a
-            merge_zones(st, keep, gone, banc)
-            merges += 1
-    return merges
-
-
 # ---------------------------------------------------------------- split
 
 
-@njit(cache=True)
-def _part_value(st, s, npos, W, Svec, Q, H, A, P, ns):
+@njit(cache=True, inline="always")
+def part_value(st, s, npos, W, Svec, Q, H, A, P, ns):
     Ssq = 0.0
     for t in range(Svec.shape[0]):
         Ssq += Svec[t] * Svec[t]
     return zone_value(st, s, npos, W, Ssq, Q, H, A, P, ns)
 
 
-@njit(cache=True)
-def _pair_sum(st, mem, part, side):
+@njit(cache=True, inline="always")
+def pair_sum(x, mem, part, side):
     """Pairwise distance sum over members whose part flag equals side."""
     m = mem.shape[0]
     h = 0.0
@@ -227,8 +252,20 @@ def _pair_sum(st, mem, part, side):
             continue
         for q in range(p + 1, m):
             if part[q] == side:
-                h += dist(st.x, mem[p], mem[q])
+                h += dist(x, mem[p], mem[q])
     return h
+
+
+@njit(cache=True, inline="always")
+def mark_part(order, parent, k, part, m):
+    """part[p] = 1 for the subtree below order[k] (parents precede children in order)."""
+    for p in range(m):
+        part[p] = 0
+    part[order[k]] = 1
+    for j in range(k + 1, m):
+        v = order[j]
+        if part[parent[v]] == 1:
+            part[v] = 1
 
 
 @njit(cache=True)
@@ -414,8 +451,8 @@ def try_split(st, zone, ntrees, loc, force):
                 if not stab:
                     nsx = 0
                     nsy = 0
-                cx, kx = _part_value(st, sc[v], snp[v], sW[v], sS[v], sQ[v], 0.0, sA[v], px, nsx)
-                cy, ky = _part_value(
+                cx, kx = part_value(st, sc[v], snp[v], sW[v], sS[v], sQ[v], 0.0, sA[v], px, nsx)
+                cy, ky = part_value(
                     st, yc, snp[r] - snp[v], sW[r] - sW[v], yS, sQ[r] - sQ[v], 0.0, sA[r] - sA[v], py, nsy
                 )
                 db = (kx + ky) - st.brk[zone]
@@ -445,9 +482,9 @@ def try_split(st, zone, ntrees, loc, force):
                     tkeep_x = keep_x
         if pairwise:
             for s in range(ncand):
-                _mark_part(order, parent, cand_t[s], part, m)
-                hx = _pair_sum(st, mem, part, one)
-                hy = _pair_sum(st, mem, part, zero)
+                mark_part(order, parent, cand_t[s], part, m)
+                hx = pair_sum(x, mem, part, one)
+                hy = pair_sum(x, mem, part, zero)
                 # the pairwise term enters through H; the other terms were priced already
                 do = cand_do[s] + st.coef[1] * (hx + hy)
                 if tt < 0 or key_less(cand_db[s], do, tdb, tdo):
@@ -460,7 +497,7 @@ def try_split(st, zone, ntrees, loc, force):
             gdb = tdb
             gdo = tdo
             gkeep_x = tkeep_x
-            _mark_part(order, parent, tt, part, m)
+            mark_part(order, parent, tt, part, m)
             for p in range(m):
                 best_part[p] = part[p]
     if not have or not (force != 0 or better(gdb, gdo)):
@@ -476,7 +513,7 @@ def try_split(st, zone, ntrees, loc, force):
         uu = mem[p]
         lab = nz if best_part[p] == new_side else zone
         st.labels[uu] = lab
-        _link(st, uu, lab)
+        link(st, uu, lab)
     recompute_zone(st, zone)
     recompute_zone(st, nz)
     refresh_zone_boundary(st, zone)
@@ -484,42 +521,21 @@ def try_split(st, zone, ntrees, loc, force):
     return nz
 
 
-@njit(cache=True)
-def _mark_part(order, parent, k, part, m):
-    """part[p] = 1 for the subtree below order[k] (parents precede children in order)."""
-    for p in range(m):
-        part[p] = 0
-    part[order[k]] = 1
-    for j in range(k + 1, m):
-        v = order[j]
-        if part[parent[v]] == 1:
-            part[v] = 1
-
-
-@njit(cache=True)
-def split_pass(st, seed, ntrees, far):
-    """Try to split every zone above a ceiling or `far` times above a target."""
-    np.random.seed(seed)
-    K = st.size.shape[0]
-    n = st.labels.shape[0]
-    loc = np.empty(n, dtype=np.int64)
-    todo = np.empty(K, dtype=np.int64)
-    nt = 0
-    for zone in range(K):
-        if st.size[zone] < 2:
-            continue
-        want = False
-        for c in range(st.csum.shape[1]):
-            s = st.csum[zone, c]
-            if np.isfinite(st.hi[c]) and s > st.hi[c]:
-                want = True
-            if st.tmask[c] == 1 and st.target[c] > 0.0 and s > far * st.target[c]:
-                want = True
-        if want:
-            todo[nt] = zone
-            nt += 1
+def split_pass(st, data, zones, seed: int, ntrees: int = N_TREES, far: float = FAR_ABOVE_TARGET) -> int:
+    """Try to split every zone above a ceiling or `far` times above a target; returns splits."""
+    live = zones.size >= 2
+    sums = zones.csum
+    with np.errstate(invalid="ignore"):
+        over = (np.isfinite(data.hi)[None, :] & (sums > data.hi[None, :])).any(axis=1)
+        has_t = (data.tmask == 1) & (data.target > 0)
+        far_above = (has_t[None, :] & (sums > far * data.target[None, :])).any(axis=1)
+    todo = np.flatnonzero(live & (over | far_above))
+    if todo.size == 0:
+        return 0
+    seed_rng(int(seed))
+    loc = np.empty(zones.labels.shape[0], dtype=np.int64)
     splits = 0
-    for t in range(nt):
-        if try_split(st, todo[t], ntrees, loc, np.int64(0)) >= 0:
+    for zone in todo:
+        if try_split(st, int(zone), int(ntrees), loc, 0) >= 0:
             splits += 1
     return splits

@@ -44,10 +44,19 @@ def tabu_block(
     without a new best. tabu_zone / tabu_until: (n,) the zone each unit may not re-enter
     and the iteration that ban ends.
     """
+    labels = st.labels
+    size = st.size
+    brk = st.brk
+    cost = st.cost
+    ztouch = st.ztouch
+    zacc = st.zacc
+    blist = st.blist
+    iv = st.iv
+    fv = st.fv
     np.random.seed(seed)
     pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
     for it in range(it0, it0 + niter):
-        nb = st.iv[IV_NB]
+        nb = iv[IV_NB]
         if nb == 0:
             return -1
         full = nb <= sample
@@ -59,27 +68,27 @@ def tabu_block(
         bla = 0.0
         blb = 0.0
         for s in range(cnt):
-            i = st.blist[s] if full else st.blist[np.random.randint(nb)]
-            a = st.labels[i]
-            if st.size[a] <= 1:
+            i = blist[s] if full else blist[np.random.randint(nb)]
+            a = labels[i]
+            if size[a] <= 1:
                 continue
             la, nda, nt = unit_links(st, i, a)
             ha = dist_to_zone(st, i, a) if pairwise else 0.0
             ca, ka = value_with(st, a, i, -1.0, la, ha)
             conn = -1
             for q in range(nt):
-                b = st.ztouch[q]
+                b = ztouch[q]
                 hb = dist_to_zone(st, i, b) if pairwise else 0.0
-                cb, kb = value_with(st, b, i, 1.0, st.zacc[b], hb)
-                db = (ka + kb) - (st.brk[a] + st.brk[b])
-                do = (ca + cb) - (st.cost[a] + st.cost[b])
+                cb, kb = value_with(st, b, i, 1.0, zacc[b], hb)
+                db = (ka + kb) - (brk[a] + brk[b])
+                do = (ca + cb) - (cost[a] + cost[b])
                 cti[CT_TRIED] += 1
                 if db > EPS_BRK:
                     continue
                 if bi >= 0 and not key_less(db, do, bdb, bdo):
                     continue
                 if tabu_zone[i] == b and it < tabu_until[i]:
-                    if not key_less(st.fv[FV_BRK] + db, st.fv[FV_TOTAL] + do, ctl[0], ctl[1]):
+                    if not key_less(fv[FV_BRK] + db, fv[FV_TOTAL] + do, ctl[0], ctl[1]):
                         continue
                 if conn < 0:
                     conn = 1 if donor_ok(st, i) else 0
@@ -90,10 +99,10 @@ def tabu_block(
                 bdb = db
                 bdo = do
                 bla = la
-                blb = st.zacc[b]
+                blb = zacc[b]
         if bi < 0:
             return -1
-        a = st.labels[bi]
+        a = labels[bi]
         newbest = keep_best(st, bdb, bdo, best_labels, ctl, cti)
         apply_move(st, bi, bb, bla, blb)
         cti[CT_ACCEPTED] += 1
