@@ -17,7 +17,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from zonedesign.errors import InputError
-from zonedesign.io.read import read_areas, read_table_columns
+from zonedesign.io.read import read_areas, read_table_columns, read_table_sample
 from zonedesign.io.validate import disjoint_interiors
 from zonedesign.rules import AreasRules
 
@@ -192,6 +192,15 @@ def test_read_table_columns_reports_columns_types_rows_and_crs(tmp_path: Path) -
         assert crs == UTM
 
 
+def test_read_table_sample_gives_the_first_rows_without_geometry(tmp_path: Path) -> None:
+    gdf = frame(5)
+    gdf.to_parquet(tmp_path / "areas.parquet")
+    for p in (write(gdf, tmp_path / "areas.gpkg"), tmp_path / "areas.parquet"):
+        sample = read_table_sample(p, n_rows=3)
+        assert list(sample.columns) == ["code", "persons", "households", "owners", "district"]
+        assert sample["code"].tolist() == ["A1", "A2", "A3"]
+
+
 # ---------------------------------------------------------------- open data
 
 
@@ -227,6 +236,10 @@ def test_unreadable_file(tmp_path: Path) -> None:
     path.write_bytes(b"this is not a geopackage\x00\x01")
     (problem,) = problems_of(path)
     assert problem.startswith("areas.gpkg: cannot read")
+    plain = tmp_path / "areas.parquet"
+    pd.DataFrame({"code": ["A1"], "persons": [1.0]}).to_parquet(plain)
+    (problem,) = problems_of(plain)
+    assert problem == "areas.parquet: a Parquet file without GeoParquet metadata (no geometry column)"
 
 
 def test_empty_layer(tmp_path: Path) -> None:

@@ -291,7 +291,7 @@ def rules_objects(draw: st.DrawFn) -> Rules:
     return Rules(areas=areas, tiers=tuple(tiers), graph=graph, search=search)
 
 
-@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(rules_objects())
 def test_rules_to_toml_round_trips_any_valid_rules(r: Rules) -> None:
     text = rules_to_toml(r)

@@ -448,7 +448,8 @@ def write_outputs(
             t0 = time.perf_counter()
             from zonedesign.report.html import write_report
 
-            write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers, graph=None)
+            changes = (extra_tables or {}).get("changes.csv")
+            write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers, changes=changes)
             seconds["report"] = time.perf_counter() - t0
         seconds["total"] = time.perf_counter() - t_start
         summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}

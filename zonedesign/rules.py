@@ -143,7 +143,7 @@ _TOML_POS = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
 _TOML_LINE = re.compile(r"\s*\(at line (\d+)\)\s*$")
 _TOML_END = re.compile(r"\s*\(at end of document\)\s*$")
 
-Path_ = tuple[str | int, ...]  # a key path; ints are 0-based tier positions
+KeyPath = tuple[str | int, ...]  # a key path; ints are 0-based tier positions
 
 
 def parse_rules(text: str, source: str = "<rules>", base_dir: Path | None = None) -> Rules:
@@ -191,7 +191,7 @@ def _syntax_message(message: str, source: str, text: str) -> str:
     return f"{source}: {message}"
 
 
-def key_name(path: Path_) -> str:
+def key_name(path: KeyPath) -> str:
     """A key path as users write it: tier positions count from 1 (`tier.1.min.persons`)."""
     return ".".join(str(p + 1) if isinstance(p, int) else p for p in path)
 
@@ -200,12 +200,12 @@ class _KeyLines:
     """The line of each key in a TOML text, found by scanning headers and `key =` lines."""
 
     def __init__(self, text: str):
-        self.lines: dict[Path_, int] = {}
-        context: Path_ = ()
+        self.lines: dict[KeyPath, int] = {}
+        context: KeyPath = ()
         arrays: dict[tuple[str, ...], int] = {}
         depth = 0
         in_string = ""
-        for number, raw in enumerate(text.splitlines(), start=1):
+        for number, raw in enumerate(text.split("\n"), start=1):  # as tomllib counts lines
             if in_string:
                 if in_string in raw:
                     in_string = ""
@@ -246,7 +246,7 @@ class _KeyLines:
             if not in_string:
                 depth = max(0, _balance(value))
 
-    def line(self, path: Path_) -> int | None:
+    def line(self, path: KeyPath) -> int | None:
         """The line of `path`, else of its nearest enclosing key or table."""
         for k in range(len(path), 0, -1):
             if path[:k] in self.lines:
@@ -306,7 +306,7 @@ class _Check:
         self.lines = lines
         self.found: list[tuple[float, str]] = []
 
-    def fail(self, path: Path_, message: str) -> None:
+    def fail(self, path: KeyPath, message: str) -> None:
         line = self.lines.line(path) if self.lines is not None else None
         where = f"{self.source}:{line}" if line else self.source
         self.found.append((line or math.inf, f"{where}: {key_name(path)}: {message}"))
@@ -316,7 +316,7 @@ class _Check:
         """In file order; problems without a line last."""
         return [text for _, text in sorted(self.found, key=lambda x: x[0])]
 
-    def table(self, value: object, path: Path_, allowed: Sequence[str], what: str) -> dict:
+    def table(self, value: object, path: KeyPath, allowed: Sequence[str], what: str) -> dict:
         if not isinstance(value, dict):
             self.fail(path, f"expected a table ({what}), got {_show(value)}")
             return {}
@@ -327,7 +327,7 @@ class _Check:
                 self.fail((*path, key), f"unknown key in {what} (allowed: {', '.join(allowed)}){hint}")
         return {k: v for k, v in value.items() if k in allowed}
 
-    def text(self, table: dict, key: str, path: Path_, *, required: bool = False, choices: Sequence[str] = ()) -> str | None:
+    def text(self, table: dict, key: str, path: KeyPath, *, required: bool = False, choices: Sequence[str] = ()) -> str | None:
         if key not in table:
             if required:
                 self.fail((*path, key), "missing")
@@ -341,7 +341,7 @@ class _Check:
             return None
         return value
 
-    def names(self, table: dict, key: str, path: Path_, *, required: bool = False) -> tuple[str, ...]:
+    def names(self, table: dict, key: str, path: KeyPath, *, required: bool = False) -> tuple[str, ...]:
         if key not in table:
             if required:
                 self.fail((*path, key), "missing (a list of column names)")
@@ -360,7 +360,7 @@ class _Check:
     def number(
         self,
         value: object,
-        path: Path_,
+        path: KeyPath,
         *,
         above: float | None = None,
         at_least: float | None = None,
@@ -422,7 +422,7 @@ def _raise(problems: list[str]) -> None:
 
 
 def _areas(value: object, check: _Check) -> AreasRules:
-    path: Path_ = ("areas",)
+    path: KeyPath = ("areas",)
     t = check.table(value, path, AREAS_KEYS, "[areas]")
     counts = check.names(t, "counts", path, required=True)
     if "counts" in t and isinstance(t["counts"], list) and not t["counts"]:
@@ -439,7 +439,7 @@ def _areas(value: object, check: _Check) -> AreasRules:
 
 
 def _graph(value: object, check: _Check, base_dir: Path | None) -> GraphRules:
-    path: Path_ = ("graph",)
+    path: KeyPath = ("graph",)
     t = check.table(value, path, GRAPH_KEYS, "[graph]")
     default = GraphRules()
     out = {}
@@ -456,7 +456,7 @@ def _graph(value: object, check: _Check, base_dir: Path | None) -> GraphRules:
 
 
 def _search(value: object, check: _Check) -> SearchRules:
-    path: Path_ = ("search",)
+    path: KeyPath = ("search",)
     t = check.table(value, path, SEARCH_KEYS, "[search]")
     out: dict[str, object] = {}
     method = check.text(t, "method", path, choices=METHODS)
@@ -502,7 +502,7 @@ def _tiers(value: object, check: _Check, areas: AreasRules) -> tuple[TierRules, 
 
 
 def _tier(raw: dict, k: int, check: _Check, areas: AreasRules) -> TierRules:
-    path: Path_ = ("tier", k)
+    path: KeyPath = ("tier", k)
     t = check.table(raw, path, TIER_KEYS, "[[tier]]")
     name = check.text(t, "name", path, required=True) or ""
     if name.isdigit():
@@ -557,7 +557,7 @@ def check_rules_against(rules: Rules, columns: Sequence[str], where: str) -> Non
     """Every column the rules name exists in the areas file `where` (its `columns`)."""
     check = _Check(str(rules.source) if rules.source else "<rules>", _KeyLines(rules.text) if rules.text else None)
     present = list(columns)
-    wanted: list[tuple[Path_, str]] = [(("areas", "id"), rules.areas.id)]
+    wanted: list[tuple[KeyPath, str]] = [(("areas", "id"), rules.areas.id)]
     wanted += [(("areas", "counts"), c) for c in rules.areas.counts]
     wanted += [(("areas", "attributes"), c) for c in rules.areas.attributes]
     if rules.areas.fence is not None:

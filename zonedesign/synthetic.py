@@ -29,8 +29,9 @@ def voronoi_cells(
     x0, y0, x1, y1 = (float(v) for v in box)
     span = max(x1 - x0, y1 - y0)
     frame = shapely.box(x0, y0, x1, y1)
-    first = _cells(points, frame)
-    b = shapely.bounds(first)
+    band = _near_frame(points, box)
+    b = np.full((n, 4), np.nan)
+    b[band] = shapely.bounds(_cells(points[band], frame))
     eps = 1e-9 * span
     mirrors = [points]
     for touches, axis, edge in (
@@ -64,6 +65,29 @@ def snap_polygons(cells: np.ndarray, box: tuple[float, float, float, float], gri
     repeat[1:] = (ring[1:] == ring[:-1]) & (xy[1:] == xy[:-1]).all(axis=1)
     xy, ring = xy[~repeat], ring[~repeat]
     return shapely.polygons(shapely.linearrings(xy, indices=ring))
+
+
+def _near_frame(points: np.ndarray, box) -> np.ndarray:
+    """Points whose cell may reach the box's sides; a superset, found without the diagram.
+
+    Every point of the sides lies within `reach` of some generator (sampled at spacing h;
+    distance to the nearest generator changes by at most h/2 between samples), so a
+    generator farther than `reach` from every side owns no part of them. Cells computed
+    from the near points alone only grow, so touching there is a safe test.
+    """
+    from scipy.spatial import cKDTree
+
+    x0, y0, x1, y1 = box
+    h = max(x1 - x0, y1 - y0) / 4096.0
+    xs = np.linspace(x0, x1, int(np.ceil((x1 - x0) / h)) + 1)
+    ys = np.linspace(y0, y1, int(np.ceil((y1 - y0) / h)) + 1)
+    sides = np.concatenate([
+        np.stack([xs, np.full_like(xs, y0)], 1), np.stack([xs, np.full_like(xs, y1)], 1),
+        np.stack([np.full_like(ys, x0), ys], 1), np.stack([np.full_like(ys, x1), ys], 1),
+    ])
+    reach = float(cKDTree(points).query(sides)[0].max()) + h
+    gap = np.minimum.reduce([points[:, 0] - x0, x1 - points[:, 0], points[:, 1] - y0, y1 - points[:, 1]])
+    return gap <= reach
 
 
 def _cells(points: np.ndarray, frame) -> np.ndarray:

@@ -72,7 +72,7 @@ def read_areas(
     if areas_rules.id in frame:
         ids, id_problems = v.check_ids(frame[areas_rules.id], areas_rules.id, where)
         problems += id_problems
-    labels = v.row_labels(ids, n)
+    labels = v.row_labels(ids)
 
     counts = np.zeros((n, len(areas_rules.counts)))
     for k, col in enumerate(areas_rules.counts):

@@ -43,9 +43,8 @@ def raise_problems(problems: list[str], cls: type[InputError] = InputError, wher
 class RowLabels:
     """Display label per row, made on demand: the quoted id, or `#k` where it has none."""
 
-    def __init__(self, ids: np.ndarray | None, n: int):
+    def __init__(self, ids: np.ndarray | None):
         self.ids = ids
-        self.n = n
 
     def __getitem__(self, rows: int | np.ndarray) -> object:
         if np.ndim(rows) == 0:
@@ -57,8 +56,8 @@ class RowLabels:
         return repr(value) if isinstance(value, str) else f"#{row + 1}"
 
 
-def row_labels(ids: np.ndarray | None, n: int) -> RowLabels:
-    return RowLabels(ids, n)
+def row_labels(ids: np.ndarray | None) -> RowLabels:
+    return RowLabels(ids)
 
 
 def rows_text(labels: RowLabels, rows: np.ndarray) -> str:
@@ -126,23 +125,22 @@ def check_ids(values: pd.Series, column: str, where: str) -> tuple[np.ndarray, l
     """Area ids as str (None where missing) and the problems: missing or duplicate ids."""
     ids, missing = id_strings(values)
     problems = []
-    n = ids.shape[0]
     if missing.any():
         rows = np.flatnonzero(missing)
-        problems.append(f"{where}: column {column!r}, {rows_text(row_labels(None, n), rows)}: no id")
+        problems.append(f"{where}: column {column!r}, {rows_text(row_labels(None), rows)}: no id")
     problems += duplicate_problems(ids, column, where)
     return ids, problems
 
 
-def duplicate_problems(ids: np.ndarray, column: str, where: str, *, first_row: int = 1, unit: str = "row") -> list[str]:
-    """One problem naming the first duplicated ids with the rows (or lines) they sit on."""
-    valid = np.array([v is not None for v in ids], dtype=bool)
-    frame = pd.DataFrame({"id": ids[valid], "row": np.flatnonzero(valid) + first_row})
+def duplicate_problems(ids: np.ndarray, column: str, where: str) -> list[str]:
+    """One problem naming the first duplicated ids with the rows they sit on."""
+    valid = ~np.asarray(pd.isna(ids), dtype=bool)
+    frame = pd.DataFrame({"id": ids[valid], "row": np.flatnonzero(valid) + 1})
     dup = frame[frame.duplicated("id", keep=False)]
     if dup.empty:
         return []
     groups = dup.groupby("id", sort=False)["row"].apply(list)
-    shown = "; ".join(f"{k!r} ({unit}s {', '.join(map(str, v))})" for k, v in list(groups.items())[:SHOW])
+    shown = "; ".join(f"{k!r} (rows {', '.join(map(str, v))})" for k, v in list(groups.items())[:SHOW])
     more = f"; and {len(groups) - SHOW} more" if len(groups) > SHOW else ""
     return [f"{where}: column {column!r}: {len(groups)} duplicate id(s): {shown}{more}"]
 

@@ -21,6 +21,7 @@ class Raw(str):
 
 
 def esc(x: Any) -> str:
+    """Text made safe for HTML content and attribute values."""
     return html.escape("" if x is None else str(x), quote=True)
 
 
@@ -33,6 +34,10 @@ def html_table(
     row_headers: bool = False,
     row_class: str | None = None,
 ) -> str:
+    """An accessible table: caption, column headers with scope, optional row headers.
+
+    Rows past `TABLE_ROWS` are left out with a line saying how many.
+    """
     head = "".join(f'<th scope="col">{esc(c)}</th>' for c in cols)
     body = []
     cls = f' class="{row_class}"' if row_class else ""
@@ -54,7 +59,11 @@ def html_table(
     )
 
 
+LIST_ITEMS = 12  # a list in a table cell shows this many items, then how many in all
+
+
 def text_of(v: Any) -> str:
+    """A cell value as text: numbers as `num`, lists shortened, mappings as JSON."""
     if isinstance(v, Raw):
         return v
     if v is None:
@@ -63,14 +72,19 @@ def text_of(v: Any) -> str:
         return "yes" if v else "no"
     if isinstance(v, int | float | np.integer | np.floating):
         return num(v)
-    if isinstance(v, list | tuple):
-        return ", ".join(text_of(x) for x in v)
+    if isinstance(v, list | tuple | np.ndarray):
+        items = list(v)
+        shown = ", ".join(text_of(x) for x in items[:LIST_ITEMS])
+        return shown + (f" … ({len(items):,} in all)" if len(items) > LIST_ITEMS else "")
     if isinstance(v, dict):
-        return json.dumps(v, default=str)
-    return str(v)
+        text = json.dumps(v, default=str)
+        return text if len(text) <= 400 else text[:400] + " …"
+    text = str(v)
+    return text if len(text) <= 2000 else text[:2000] + " …"
 
 
 def num(v: Any) -> str:
+    """A number as a reader expects it: thousands separated, three significant digits."""
     if v is None:
         return "–"
     if isinstance(v, bool | np.bool_):

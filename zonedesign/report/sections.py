@@ -31,6 +31,7 @@ from zonedesign.report.svgmap import element_id
 
 
 def headline(run: ReportPlan) -> str:
+    """One line under the title: areas, fences and zones per tier."""
     s = run.summary
     parts = []
     n_areas = get(s, "areas", "count")
