@@ -6,8 +6,7 @@ library: shapely (touches / intersects predicates and boundary intersection leng
 
 from __future__ import annotations
 
-import os
-
+import geopandas as gpd
 import numpy as np
 import pytest
 import shapely
@@ -32,15 +31,8 @@ def edge_dict(graph) -> dict[tuple[int, int], float]:
 
 
 @pytest.fixture(scope="module")
-def ny8():
-    from zonedesign.io.opendata import OpenDataUnavailable, read_spdata
-
-    try:
-        gdf = read_spdata("NY8_utm18.shp")
-    except OpenDataUnavailable as exc:
-        if os.environ.get("CI"):
-            pytest.fail(f"r-cran-spdata is needed in CI: {exc}")
-        pytest.skip(f"r-cran-spdata not available here: {exc}")
+def ny8(spdata_dir):
+    gdf = gpd.read_file(spdata_dir / "NY8_utm18.shp", engine="pyogrio")
     raw = gdf.geometry.values
     repaired = np.flatnonzero(~shapely.is_valid(raw))
     geoms = shapely.make_valid(raw, method="structure", keep_collapsed=False)

@@ -202,3 +202,20 @@ def test_collapse_values_and_zone_perimeters():
     # shapely: perimeter of the dissolved zone (reference library)
     dissolved = [shapely.union_all(geoms[labels == z]).length for z in range(k)]
     assert perimeter == pytest.approx(dissolved)
+
+
+def test_graphs_from_hashing_follow_the_graph_record_contract():
+    """rook_graph builds its CSR arrays directly; they equal Graph.from_edges' own."""
+    gdf = grid_with_holes(15, 11, 0.2, seed=6)
+    graph = rook_graph(gdf.geometry)
+    i, j, w = graph.edges()
+    rng = np.random.default_rng(1)
+    flip = rng.random(i.shape[0]) < 0.5
+    shuffled = rng.permutation(i.shape[0])
+    a = np.where(flip, j, i)[shuffled]
+    b = np.where(flip, i, j)[shuffled]
+    reference = Graph.from_edges(graph.n, a, b, w[shuffled])
+    assert np.array_equal(graph.indptr, reference.indptr)
+    assert np.array_equal(graph.indices, reference.indices)
+    assert np.array_equal(graph.length, reference.length)
+    assert graph.indices.dtype == np.int64 and graph.length.dtype == np.float64

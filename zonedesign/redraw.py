@@ -201,6 +201,15 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
         info["rings"] = ring
         if sol.score.breaks == 0:
             break
+    else:
+        # the rings could not mend every break: redesign the whole fence (still weighing
+        # stability) and take it only when it breaks fewer bounds
+        from zonedesign.measures import score
+
+        fresh = solve(p, search_rules=task.search, seed=task.seed, time_limit=task.search.time_limit_fence)
+        if fresh.score.breaks < score(p, compact_labels(best)[0]).breaks:
+            best = np.asarray(fresh.labels, dtype=np.int64)
+            info["redesigned"] = True
     return _fence_result(task, best, t0, info)
 
 
@@ -438,6 +447,11 @@ def _change_table(
     if df.empty:
         return df
     df["areas_moved"] = [int(moved_areas.get(z, 0)) if z else 0 for z in df["new_zone"]]
+    # a zone is kept only when its base areas are the same, not just its units: an upper
+    # zone whose units were reshaped underneath it has changed too
+    same = _same_areas(prev_area, new_area)
+    reshaped = (df["kind"] == "kept") & ~df["new_zone"].map(lambda z: same.get(z, False))
+    df.loc[reshaped, "kind"] = "reshaped"
     for c, name in enumerate(areas.count_names):
         after = pd.Series(areas.counts[:, c]).groupby(new_area).sum()
         before = pd.Series(areas.counts[:, c]).groupby(prev_area).sum()
@@ -466,6 +480,16 @@ def change_shares(changes: pd.DataFrame, tiers: Sequence[str], lookup: dict[str,
             "kinds": {k: int(v) for k, v in c["kind"].value_counts().sort_index().items()} if len(c) else {},
         }
     return out
+
+
+def _same_areas(previous: np.ndarray, now: np.ndarray) -> dict[str, bool]:
+    """Zone id -> whether it holds exactly the areas it held before."""
+    prev = pd.Series(np.asarray(previous, dtype=object))
+    cur = pd.Series(np.asarray(now, dtype=object))
+    inside = (prev == cur).groupby(cur).all()
+    n_now = cur.value_counts()
+    n_prev = prev[prev != ""].value_counts().reindex(n_now.index, fill_value=0)
+    return {str(z): bool(inside[z] and n_now[z] == n_prev[z]) for z in n_now.index}
 
 
 def unchanged_share(previous: np.ndarray, now: np.ndarray) -> float:

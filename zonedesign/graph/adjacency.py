@@ -236,6 +236,7 @@ def rook_graph(geometry, min_shared_length: float = 0.0, *, grid: float | None =
 
 
 def rook_from_hash(hashed: SegmentHash, n: int, min_shared_length: float) -> Graph:
+    """`rook_graph` from segments hashed once (build_graph shares them with its check)."""
     a, b, length = _segment_pairs(hashed, n)
     keep = length > min_shared_length
     return graph_from_pairs(n, a[keep], b[keep], length[keep])
@@ -252,6 +253,7 @@ def queen_graph(geometry, *, grid: float | None = None) -> Graph:
 
 
 def queen_from_hash(hashed: SegmentHash, n: int) -> Graph:
+    """`queen_graph` from segments hashed once."""
     ra, rb, rlen = _segment_pairs(hashed, n)
     # each segment's start vertex covers every vertex of a closed ring
     key = _sorted_unique(hashed.va * n + hashed.owner)
@@ -263,7 +265,10 @@ def queen_from_hash(hashed: SegmentHash, n: int) -> Graph:
     pa, pb, _ = sum_pairs(n, va[other], vb[other], np.zeros(int(other.sum())))
     # vertex pairs include every rook pair; their lengths come from the segments
     a, b, w = sum_pairs(
-        n, np.concatenate([pa, ra]), np.concatenate([pb, rb]), np.concatenate([np.zeros(pa.shape[0]), rlen])
+        n,
+        np.concatenate([pa, ra]),
+        np.concatenate([pb, rb]),
+        np.concatenate([np.zeros(pa.shape[0]), rlen]),
     )
     return graph_from_pairs(n, a, b, w)
 
@@ -283,7 +288,10 @@ def unmatched_contacts(
     return unmatched_from_hash(SegmentHash(geoms, grid), geoms.shape[0], tolerance)
 
 
-def unmatched_from_hash(hashed: SegmentHash, n: int, tolerance: float | None):
+def unmatched_from_hash(
+    hashed: SegmentHash, n: int, tolerance: float | None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """`unmatched_contacts` from segments hashed once."""
     eps = 100.0 * hashed.grid if tolerance is None else float(tolerance)
     empty = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), np.zeros(0))
     pos, starts = hashed.segment_groups()

@@ -35,6 +35,7 @@ def build_graph(
     found no identical partner are examined for boundaries drawn with different vertices
     (T-junctions); pairs found there are added with their overlap length and a line
     saying so is appended to `notes`. tolerance > 0: the tolerant method.
+    `min_shared_length` thins rook pairs only; queen keeps every contact.
     When `ids` are given and the rules name a links file, its links are added (length 0).
     """
     if graph_rules.contiguity not in CONTIGUITY:

@@ -13,6 +13,7 @@ from numba import njit
 
 from zonedesign.search.kernels import (
     IV_NB,
+    IV_STAMP,
     apply_move,
     better,
     dist_to_zone,
@@ -80,3 +81,81 @@ def descent_sweep(st, seed, order, stats):
             stats[1] += 1
             made += 1
     return made
+
+
+@njit(cache=True)
+def local_descent(st, seed, zones, stats):
+    """Descent over the members of `zones` and their neighbours only, to a local optimum.
+
+    Used to repair the labelling around a forced merge or split. stats as descent_sweep.
+    """
+    np.random.seed(seed)
+    indptr = st.indptr
+    indices = st.indices
+    labels = st.labels
+    nxt = st.nxt
+    mark = st.mark
+    n = labels.shape[0]
+    units = np.empty(n, dtype=np.int64)
+    st.iv[IV_STAMP] += 2
+    stamp = st.iv[IV_STAMP]
+    nu = 0
+    for k in range(zones.shape[0]):
+        z = zones[k]
+        if z < 0:
+            continue
+        u = st.head[z]
+        while u >= 0:
+            if mark[u] != stamp:
+                mark[u] = stamp
+                units[nu] = u
+                nu += 1
+            for p in range(indptr[u], indptr[u + 1]):
+                v = indices[p]
+                if mark[v] != stamp:
+                    mark[v] = stamp
+                    units[nu] = v
+                    nu += 1
+            u = nxt[u]
+    pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
+    brk = st.brk
+    cost = st.cost
+    for _sweep in range(100):
+        for t in range(nu - 1, 0, -1):
+            r = np.random.randint(t + 1)
+            tmp = units[t]
+            units[t] = units[r]
+            units[r] = tmp
+        made = 0
+        for t in range(nu):
+            i = units[t]
+            if st.bpos[i] < 0:
+                continue
+            a = labels[i]
+            if st.size[a] <= 1:
+                continue
+            la, nda, nt = unit_links(st, i, a)
+            ha = dist_to_zone(st, i, a) if pairwise else 0.0
+            ca, ka = value_with(st, a, i, -1.0, la, ha)
+            bb = np.int64(-1)
+            bdb = 0.0
+            bdo = 0.0
+            blen = 0.0
+            for q in range(nt):
+                b = st.ztouch[q]
+                hb = dist_to_zone(st, i, b) if pairwise else 0.0
+                cb, kb = value_with(st, b, i, 1.0, st.zacc[b], hb)
+                db = (ka + kb) - (brk[a] + brk[b])
+                do = (ca + cb) - (cost[a] + cost[b])
+                stats[0] += 1
+                if better(db, do) and (bb < 0 or key_less(db, do, bdb, bdo)):
+                    bb = b
+                    bdb = db
+                    bdo = do
+                    blen = st.zacc[b]
+            if bb >= 0 and donor_ok(st, i):
+                apply_move(st, i, bb, la, blen)
+                stats[1] += 1
+                made += 1
+        if made == 0:
+            break

@@ -28,8 +28,14 @@ from zonedesign.search.kernels import (
 
 
 @njit(cache=True)
-def grow_zones(st, seed, alpha, beta, labels):
-    """Region growing; writes zone ids 0..k-1 to labels (-1 for enclaves) and returns k."""
+def grow_zones(st, seed, alpha, beta, labels, k0, aim_lo, aim_hi):
+    """Region growing over the units labelled -1; returns the number of zones k made.
+
+    Units with another label stay as they are and are never entered. New zones get ids
+    k0..k0+k-1; units of zones that missed a floor are left at -1 (enclaves). Each zone
+    grows towards an aim drawn between aim_lo and aim_hi times the target (1, 1 for the
+    target itself).
+    """
     indptr = st.indptr
     indices = st.indices
     length = st.length
@@ -44,8 +50,6 @@ def grow_zones(st, seed, alpha, beta, labels):
     n = labels.shape[0]
     nc = counts.shape[1]
     na = x.shape[1]
-    for i in range(n):
-        labels[i] = -1
     enclave = -2
     tcol = -1
     for c in range(nc):
@@ -59,12 +63,15 @@ def grow_zones(st, seed, alpha, beta, labels):
     fmark = np.full(n, -1, dtype=np.int64)
     mem = np.empty(n, dtype=np.int64)
     perm = np.random.permutation(n)
-    k = 0
+    k = k0
     stamp = 0
+    aim = 0.0
     for s in perm:
         if labels[s] != -1:
             continue
         stamp += 1
+        if tcol >= 0:
+            aim = target[tcol] * (aim_lo + (aim_hi - aim_lo) * np.random.random())
         for c in range(nc):
             tc[c] = 0.0
         for t in range(na):
@@ -113,8 +120,8 @@ def grow_zones(st, seed, alpha, beta, labels):
                 if not ok:
                     continue
                 if floors:
-                    now = abs(tc[tcol] - target[tcol])
-                    after = abs(tc[tcol] + counts[j, tcol] - target[tcol])
+                    now = abs(tc[tcol] - aim)
+                    after = abs(tc[tcol] + counts[j, tcol] - aim)
                     if after >= now:
                         continue
                 sc = 0.0
@@ -144,7 +151,7 @@ def grow_zones(st, seed, alpha, beta, labels):
     for i in range(n):
         if labels[i] == enclave:
             labels[i] = -1
-    return k
+    return k - k0
 
 
 @njit(cache=True)

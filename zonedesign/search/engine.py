@@ -50,23 +50,34 @@ from zonedesign.search.anneal import (
     anneal_block,
     sample_uphill,
 )
-from zonedesign.search.azp import descent_sweep
+from zonedesign.search.azp import descent_sweep, local_descent
 from zonedesign.search.construct import absorb_enclaves, grow_zones
-from zonedesign.search.mergesplit import FAR_ABOVE_TARGET, N_TREES, merge_pass, split_pass
+from zonedesign.search.mergesplit import (
+    FAR_ABOVE_TARGET,
+    N_TREES,
+    best_merge,
+    merge_pass,
+    merge_zones,
+    split_pass,
+    try_split,
+)
 from zonedesign.search.state import ZoneState, full_score
 from zonedesign.search.tabu import tabu_block
 
 # budgets (the primary stop criteria; see the module docstring)
 MAX_SWEEPS = 1000  # descent sweeps per call (a sweep that moves nothing ends it sooner)
 MAX_ROUNDS = 50  # descent / merge / split rounds
-ANNEAL_MOVES_PER_TEMP = 2  # x n, when search_rules.moves_per_temperature is 0
-ANNEAL_BUDGET = 150  # x n trial moves at most
-ANNEAL_START_ACCEPT = 0.3  # share of average uphill moves taken at the first temperature
+ANNEAL_MOVES_PER_TEMP = 8  # x n, when search_rules.moves_per_temperature is 0
+ANNEAL_BUDGET = 600  # x n trial moves at most
+ANNEAL_START_ACCEPT = 0.1  # share of average uphill moves taken at the first temperature
 ANNEAL_FROZEN = 3  # temperatures without a new best and with (almost) no change
 TABU_NO_IMPROVE = 1  # x n, when search_rules.max_no_improve is 0
 TABU_MAX_ITER = 5  # x max_no_improve
 TABU_SAMPLE = 48  # boundary units priced per iteration once there are more
 BLOCK = 256  # tabu iterations per compiled call (time checks between calls)
+RESHAPE_TRIES = 0.2  # x n forced merges / splits / regrowths with repair (at least MIN_WORK)
+REGROW_NEIGHBOURS = 3  # zones dissolved with the chosen one in a regrowth
+REGROW_AIM = (0.6, 1.4)  # regrown zones aim at a random share of the target in this range
 MIN_WORK = 200  # floor of the per-unit budgets, for tiny problems
 
 
@@ -162,6 +173,9 @@ def solve(
     elif method == "tabu" and not run.out_of_time():
         _tabu(run)
         _improve(run)
+    if method != "descent" and not run.out_of_time():
+        _reshape(run)
+        _improve(run)
 
     labels, zone_anchors = state.compact()
     sc = full_score(problem, labels, zone_anchors if problem.previous is not None else None)
@@ -245,7 +259,8 @@ def _construct(run: _Run, rounds: int) -> tuple[np.ndarray, int]:
     best_key = None
     tried = 0
     for _ in range(rounds):
-        grow_zones(st, run.seed(), alpha, beta, labels)
+        labels[:] = -1
+        grow_zones(st, run.seed(), alpha, beta, labels, 0, 1.0, 1.0)
         state.load(labels)
         absorb_enclaves(st, run.seed())
         tried += 1
@@ -364,3 +379,88 @@ def _tabu(run: _Run) -> None:
         )
     run.info["tabu_iterations"] = int(cti[CT_ACCEPTED])
     _back_to_best(run, best, cti)
+
+
+def _reshape(run: _Run) -> None:
+    """Forced merges, splits and regrowths, each repaired by a local descent, kept if better.
+
+    A single move never changes the number of zones, and a merge or split that only pays
+    once a few units have moved is never taken by the improving passes. Here a random zone
+    is cut at its best tree cut, or merged with its best partner whatever the price, or
+    dissolved with some of its neighbours and grown again towards random aims around the
+    target; the neighbourhood is brought back to a local optimum and the result is kept
+    when it beats the labelling before the change (breaks first); otherwise that labelling
+    is restored.
+    """
+    state = run.state
+    st, zones = state.st, state.zones
+    n = state.problem.n
+    tries = max(MIN_WORK, int(RESHAPE_TRIES * n))
+    loc = np.empty(n, dtype=np.int64)
+    stats = np.zeros(2, dtype=np.int64)
+    g = state.problem.graph
+    kept = 0
+    for _ in range(tries):
+        if run.out_of_time():
+            break
+        live = np.flatnonzero(zones.size > 0)
+        a = int(live[run.rng.integers(live.size)])
+        before = state.running_key()
+        labels, anchors = zones.labels.copy(), zones.anchor.copy()
+        kind = run.rng.integers(3)
+        if kind == 0 and zones.size[a] >= 2:
+            K.seed_rng(run.seed())
+            new = int(try_split(st, a, N_TREES, loc, 1))
+            touched = np.array([a, new], dtype=np.int64)
+        elif kind == 1:
+            b, _, _, anc = best_merge(st, a, 0, 0)
+            if b < 0:
+                continue
+            merge_zones(st, a, int(b), int(anc))
+            touched = np.array([a], dtype=np.int64)
+        else:
+            touched = _regrow(run, g, labels, anchors, a)
+            if touched is None:
+                continue
+        local_descent(st, run.seed(), touched, stats)
+        after = state.running_key()
+        if K.is_less(after[0], after[1], before[0], before[1]):
+            kept += 1
+        else:
+            state.load(labels, anchors)
+    run.info["moves_tried"] += int(stats[0])
+    run.info["moves_accepted"] += int(stats[1])
+    run.info["reshapes"] = kept
+
+
+def _regrow(run: _Run, g, labels: np.ndarray, anchors: np.ndarray, a: int) -> np.ndarray | None:
+    """Dissolve zone a and up to REGROW_NEIGHBOURS neighbours and grow them again.
+
+    Returns the slots of the zones grown (the state is loaded with the new labelling).
+    """
+    state = run.state
+    n = labels.shape[0]
+    members = np.flatnonzero(labels == a)
+    rows = np.concatenate([g.indices[g.indptr[u] : g.indptr[u + 1]] for u in members])
+    near = np.unique(labels[rows])
+    near = near[near != a]
+    if near.size > REGROW_NEIGHBOURS:
+        near = run.rng.choice(near, REGROW_NEIGHBOURS, replace=False)
+    region = np.isin(labels, np.concatenate([[a], near]))
+    work = labels.copy()
+    work[region] = -1
+    tw = state.problem.term_weights
+    alpha = 1.0 if tw.get("homogeneity", 0.0) > 0 else 0.0
+    beta = 1.0 if tw.get("compactness", 0.0) > 0 or alpha == 0.0 else 0.0
+    made = int(grow_zones(state.st, run.seed(), alpha, beta, work, n, REGROW_AIM[0], REGROW_AIM[1]))
+    if made == 0:
+        return None
+    # new zones take free slots; they are new zones for stability (anchor -1)
+    free = np.setdiff1d(np.arange(n), np.unique(work[(work >= 0) & (work < n)]))[:made]
+    grown = work >= n
+    work[grown] = free[work[grown] - n]
+    new_anchors = anchors.copy()
+    new_anchors[free] = -1
+    state.load(work, new_anchors)
+    absorb_enclaves(state.st, run.seed())
+    return free.astype(np.int64)

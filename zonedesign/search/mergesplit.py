@@ -144,8 +144,9 @@ def merge_zones(st, keep, gone, anc):
 
 
 @njit(cache=True)
-def best_merge(st, a, apply):
-    """Best merge of zone a with an adjacent zone whose union meets every ceiling.
+def best_merge(st, a, apply, fit_only):
+    """Best merge of zone a with an adjacent zone (whose union meets every ceiling, when
+    fit_only is 1).
 
     Returns (partner or -1, break change, objective change, anchor kept). With apply set
     (as 1) and a strict improvement found, the merge is made; the larger zone keeps its
@@ -168,7 +169,7 @@ def best_merge(st, a, apply):
         for c in range(csum.shape[1]):
             if np.isfinite(hi[c]) and csum[a, c] + csum[b, c] > hi[c]:
                 fits = False
-        if not fits:
+        if fit_only == 1 and not fits:
             continue
         for option in range(2):
             anc = anchor[a] if option == 0 else anchor[b]
@@ -206,7 +207,7 @@ def merge_pass(st, zones, rng: np.random.Generator) -> int:
     for a in order:
         if zones.size[a] == 0:
             continue
-        best, db, do, _ = best_merge(st, int(a), 1)
+        best, db, do, _ = best_merge(st, int(a), 1, 1)
         if best >= 0 and is_better(db, do):
             merges += 1
     return merges

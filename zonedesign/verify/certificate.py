@@ -148,7 +148,7 @@ def _certify_fence(
         m.AddExactlyOne([x[a, z] for z in cand[a]])
 
     # fence: a zone reaching into this fence holds no unit of another fence
-    for (a, z), var in x.items():
+    for (a, _z), var in x.items():
         if fence[units[a]] != f:
             m.Add(var == 0)
 

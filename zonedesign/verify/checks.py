@@ -214,6 +214,10 @@ def zone_parts(graph: Graph, codes: np.ndarray) -> np.ndarray:
     return comp
 
 
+def _fence_set(codes: np.ndarray) -> tuple[str, ...]:
+    return tuple(sorted({str(c) for c in codes}))
+
+
 def _first(ids: np.ndarray, limit: int = LISTED) -> tuple[str, ...]:
     return tuple(str(x) for x in ids[:limit])
 
@@ -342,7 +346,7 @@ def _coverage(
                 figures={"duplicated_id": str(uniq[u]), "rows": rows.tolist()},
                 message=f"area id {uniq[u]} appears {cnt[u]} times (rows {', '.join(map(str, rows[:LISTED]))}); "
                 "each area must be listed once",
-                fences=tuple(sorted(set(areas.fence[rows].astype(str)))),
+                fences=_fence_set(areas.fence[rows]),
             )
         )
     for p in lookup_problems:
@@ -359,9 +363,10 @@ def _coverage(
                     areas=_first(ids[null]),
                     n_areas=int(null.size),
                     figures={"areas_without_zone": int(null.size)},
-                    message=f"{_plural(int(null.size), 'area')} of tier {t.name} belong to no zone "
+                    message=f"{_plural(int(null.size), 'area')} of tier {t.name} "
+                    f"{'belongs' if null.size == 1 else 'belong'} to no zone "
                     f"(first: {', '.join(_first(ids[null], 5))})",
-                    fences=tuple(sorted(set(areas.fence[null].astype(str)))),
+                    fences=_fence_set(areas.fence[null]),
                 )
             )
     if zone_lists is not None:
@@ -490,7 +495,7 @@ def _nesting(
                     "id_reused": not touching,
                 },
                 message=message,
-                fences=tuple(sorted(set(areas.fence[m].astype(str)))),
+                fences=_fence_set(areas.fence[m]),
             )
         )
     return out
@@ -534,7 +539,7 @@ def _contiguity(
                 },
                 message=f"zone {tl.names[z]} of tier {tier} falls into {len(pieces)} separate parts of "
                 f"{sizes_txt} areas{counts_txt}",
-                fences=tuple(sorted(set(areas.fence[m].astype(str)))),
+                fences=_fence_set(areas.fence[m]),
             )
         )
     return out
@@ -594,7 +599,7 @@ def _bounds(
                         figures={"count": name, "value": v, "side": side, "bound": float(bound), "excess": excess},
                         message=f"zone {tl.names[z]} of tier {tier} has {_fmt(v)} {name}, {word} of "
                         f"{_fmt(bound)} by {_fmt(abs(excess))}",
-                        fences=tuple(sorted(set(fence[m]))),
+                        fences=_fence_set(fence[m]),
                     )
                 )
     return out
