@@ -9,10 +9,10 @@ from __future__ import annotations
 import networkx as nx
 import numpy as np
 import pytest
+from hierarchy_support import nx_graph, two_tier_rules, voronoi_instance, with_counts, zone_members
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from hierarchy_support import nx_graph, two_tier_rules, voronoi_instance, with_counts, zone_members
 from zonedesign.hierarchy import build_hierarchy
 from zonedesign.measures import bound_breaks
 from zonedesign.redraw import redraw_hierarchy, unchanged_share

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import pytest
-
 from hierarchy_support import two_tier_rules, voronoi_instance
+
 from zonedesign.errors import InputError
 from zonedesign.sweep import VariantTask, parse_vary, run_variant, variants
 
