@@ -251,6 +251,7 @@ def base_summary(prep: Prepared, command: str) -> dict:
             "islands": prep.islands,
         },
         "rules": prep.rules.text,
+        "tier_order": [t.name for t in prep.rules.tiers],
         "objective": {
             t.name: {"homogeneity": t.homogeneity, "compactness": t.compactness, "weights": dict(t.weights)}
             for t in prep.rules.tiers
