@@ -78,7 +78,7 @@ def test_districts_are_the_fence_and_connected_on_the_mainland(demo):
     assert all(p.sizes[1] <= 20 for p in parts if p.n_components == 2)
 
 
-def test_two_islands_are_reported_and_the_ferry_joins_one(demo, tmp_path):
+def test_two_islands_are_reported_and_ferries_join_both(demo, tmp_path):
     gdf, rook = demo
     fence = gdf["district"].to_numpy()
     ids = gdf["code"].to_numpy()
@@ -86,14 +86,12 @@ def test_two_islands_are_reported_and_the_ferry_joins_one(demo, tmp_path):
     assert len(found) == 2
     assert all(3 <= len(isl.ids) <= 20 and isl.distance > 1000.0 for isl in found)
     links = demo_links(gdf)
-    assert list(links.columns) == ["from", "to"] and len(links) == 1
+    assert list(links.columns) == ["from", "to"] and len(links) == 2
     path = tmp_path / "links.csv"
     links.to_csv(path, index=False)
     i, j = read_links(path, ids)
-    assert fence[i[0]] == fence[j[0]]  # the ferry stays inside its district
-    remaining = islands(add_links(rook, i, j), fence, gdf.geometry, ids)
-    assert len(remaining) == 1
-    assert set(remaining[0].ids) & {links["from"][0], links["to"][0]} == set()
+    assert all(fence[a] == fence[b] for a, b in zip(i, j))  # each ferry stays in its district
+    assert islands(add_links(rook, i, j), fence, gdf.geometry, ids) == []
 
 
 def test_counts_fit_the_three_tiers(demo):

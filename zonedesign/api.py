@@ -107,13 +107,20 @@ def prepare(
     _say(progress, f"building the {rules.graph.contiguity} graph of {file.areas.n} areas")
     notes = list(file.notes)
     graph = build_graph(file.geometry, rules.graph, notes=notes)
+    # islands are found before links are added, so the summary shows each one and
+    # whether a declared link joins it to its fence
+    found = [_island_dict(x) for x in find_islands(graph, file.areas.fence, file.geometry, file.areas.ids)]
     n_links = 0
     if rules.graph.links is not None:
         inputs.append(Path(rules.graph.links))
         li, lj = read_links(rules.graph.links, file.areas.ids)
         graph = add_links(graph, li, lj)
         n_links = int(li.shape[0])
-    found = find_islands(graph, file.areas.fence, file.geometry, file.areas.ids)
+        linked = set(file.areas.ids[li].tolist()) | set(file.areas.ids[lj].tolist())
+        for island in found:
+            island["linked"] = bool(linked & set(island.get("ids", [])))
+    for island in found:
+        island.setdefault("linked", False)
     seconds["graph"] = time.perf_counter() - t0
     return Prepared(
         rules=rules,
@@ -121,7 +128,7 @@ def prepare(
         geometry=file.geometry,
         graph=graph,
         notes=notes,
-        islands=[_island_dict(x) for x in found],
+        islands=found,
         links=n_links,
         inputs=inputs,
         seconds=seconds,

@@ -1,18 +1,24 @@
 """Command line: argument parsing, progress and exit codes; the work is in api.py.
 
-Exit codes: 0 ok; 1 ran but a rule is broken; 2 bad input or usage (one line on stderr).
+Exit codes: 0 ok; 1 ran but a rule is broken; 2 bad input or usage, with one line on stderr
+saying what is wrong and where; 3 an internal error (a bug: `--debug` shows its traceback);
+130 and 143 when stopped by SIGINT or SIGTERM (no output folder is left half-written).
 """
 
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 import textwrap
-import time
 from pathlib import Path
+from typing import NoReturn
 
 from zonedesign import __version__
 from zonedesign.errors import InputError
+
+# the demo region's layout needs this many areas at least (zonedesign.scenarios.demo_region)
+DEMO_MIN_AREAS = 500
 
 EXAMPLES = {
     "design": """\
@@ -61,15 +67,40 @@ EXAMPLES = {
 }
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with usage errors on one line, like every other error."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(2, f"zonedesign: error: {self.prog}: {message} (see {self.prog} --help)\n")
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a whole number: {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, not {value}")
+    return value
+
+
+def _demo_areas(text: str) -> int:
+    value = _positive_int(text)
+    if value < DEMO_MIN_AREAS:
+        raise argparse.ArgumentTypeError(f"the demo region needs at least {DEMO_MIN_AREAS} areas, not {value}")
+    return value
+
+
 def _parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="zonedesign",
         description="Design, redraw and audit nested statistical-geography zones.",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog=textwrap.dedent(
             """\
             commands: design, redraw, audit, sweep, demo, rules, show
-            exit codes: 0 ok, 1 ran but rules are broken, 2 bad input or usage
+            exit codes: 0 ok, 1 ran but rules are broken, 2 bad input or usage,
+                        3 internal error (--debug shows the traceback)
 
             Thresholds must follow your own statistical-disclosure-control rules; results
             need review by the responsible statistician before publication.
@@ -79,14 +110,17 @@ def _parser() -> argparse.ArgumentParser:
         + textwrap.dedent(EXAMPLES["demo"]),
     )
     p.add_argument("--version", action="version", version=f"zonedesign {__version__}")
-    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    def talk(sp: argparse.ArgumentParser) -> None:
+        sp.add_argument("--quiet", action="store_true", help="no progress lines or bars")
+        sp.add_argument("--debug", action="store_true", help="show the traceback behind an error")
 
     def common(sp: argparse.ArgumentParser, out_required: bool = True) -> None:
         sp.add_argument("--out", required=out_required, type=Path, help="output folder (written atomically)")
         sp.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-        sp.add_argument("--quiet", action="store_true", help="no progress lines")
-        sp.add_argument("--debug", action="store_true", help="show tracebacks")
         sp.add_argument("--no-report", action="store_true", help="skip report.html")
+        talk(sp)
 
     def inputs(sp: argparse.ArgumentParser) -> None:
         sp.add_argument("areas", type=Path, help="areas file (GeoPackage, GeoJSON, Shapefile, GeoParquet)")
@@ -96,9 +130,13 @@ def _parser() -> argparse.ArgumentParser:
 
     def executor(sp: argparse.ArgumentParser) -> None:
         sp.add_argument("--executor", choices=["local", "dask"], default="local")
-        sp.add_argument("--workers", type=int, default=1, help="worker processes (default 1)")
+        sp.add_argument("--workers", type=_positive_int, default=1, help="worker processes (default 1)")
         sp.add_argument("--scheduler", help="address of a running dask scheduler")
-        sp.add_argument("--max-memory", help="stop cleanly past this resident size, e.g. 4GB")
+        sp.add_argument(
+            "--max-memory",
+            help="stop cleanly (exit 2, nothing written) once the run's resident memory, "
+            "workers included, passes this size, e.g. 4GB",
+        )
 
     def sp_(name: str, help_: str) -> argparse.ArgumentParser:
         return sub.add_parser(
@@ -118,9 +156,10 @@ def _parser() -> argparse.ArgumentParser:
     r = sp_("redraw", "redraw a published hierarchy after new counts, changing as little as possible")
     inputs(r)
     r.add_argument("--previous", required=True, type=Path, help="previous lookup (CSV or Parquet)")
-    r.add_argument("--mend", action="store_true", help="mend a previous lookup that does not nest")
+    r.add_argument("--mend", action="store_true", help="mend a previous lookup that does not match or nest")
     common(r)
     executor(r)
+    r.add_argument("--no-certificate", action="store_true", help="skip the CP-SAT certificate")
 
     a = sp_("audit", "check any hierarchy against the rules with the independent checker")
     inputs(a)
@@ -130,6 +169,7 @@ def _parser() -> argparse.ArgumentParser:
     a.add_argument("--tolerance", type=float, default=0.01, help="share of an area allowed in another zone (--tiers-from)")
     a.add_argument("--repair", action="store_true", help="find the fewest area moves that mend every break")
     a.add_argument("--no-certificate", action="store_true", help="skip the CP-SAT certificate")
+    a.add_argument("--max-memory", help="stop cleanly (exit 2, nothing written) past this resident size, e.g. 4GB")
     common(a)
 
     s = sp_("sweep", "compare threshold rules: design (or redraw) for every combination of values")
@@ -142,69 +182,120 @@ def _parser() -> argparse.ArgumentParser:
     m = sp_("demo", "run the main job on the built-in invented demo region")
     m.add_argument("--scenario", choices=["base", "later"], default="base")
     m.add_argument("--seed", type=int, default=7, help="seed of the demo region")
-    m.add_argument("--areas", type=int, default=5000, help="number of base areas (default 5000)")
+    m.add_argument(
+        "--areas", type=_demo_areas, default=5000,
+        help=f"number of base areas (at least {DEMO_MIN_AREAS}; default 5000)",
+    )
     common(m)
     executor(m)
 
     rl = sp_("rules", "write or check a rules file")
-    rsub = rl.add_subparsers(dest="rules_command", metavar="ACTION")
-    ri = rsub.add_parser("init", help="print a commented starter rules file for a data file")
+    rsub = rl.add_subparsers(dest="rules_command", metavar="ACTION", parser_class=_Parser)
+    ri = rsub.add_parser(
+        "init",
+        help="print a commented starter rules file for a data file",
+        description="print a commented starter rules file for a data file (to stdout)",
+        epilog=textwrap.dedent(EXAMPLES["rules"]),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
     ri.add_argument("areas", type=Path)
     ri.add_argument("--layer")
-    rc = rsub.add_parser("check", help="validate a rules file (against a data file when given)")
+    rc = rsub.add_parser(
+        "check",
+        help="validate a rules file (against a data file when given)",
+        description="validate a rules file, and its column names against a data file when given",
+        epilog=textwrap.dedent(EXAMPLES["rules"]),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
     rc.add_argument("rules", type=Path)
     rc.add_argument("areas", type=Path, nargs="?")
     rc.add_argument("--layer")
     for x in (ri, rc):
-        x.add_argument("--debug", action="store_true")
+        x.add_argument("--debug", action="store_true", help="show the traceback behind an error")
+    rl.add_argument("--debug", action="store_true", help="show the traceback behind an error")
 
     sh = sp_("show", "print a terminal summary of an output folder")
     sh.add_argument("folder", type=Path)
-    sh.add_argument("--debug", action="store_true")
+    sh.add_argument("--debug", action="store_true", help="show the traceback behind an error")
     return p
 
 
-def _progress(quiet: bool):
-    t0 = time.perf_counter()
+def _error(text: str) -> None:
+    print(f"zonedesign: error: {text}", file=sys.stderr, flush=True)
 
-    def say(text: str) -> None:
-        if not quiet:
-            print(f"[{time.perf_counter() - t0:7.1f}s] {text}", file=sys.stderr, flush=True)
 
-    return say
+def _on_sigterm(signum: int, frame: object) -> NoReturn:
+    # unwinds like Ctrl-C, so the temporary output folder is removed on the way out
+    raise SystemExit(128 + signum)
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run one command; returns the exit code (see the module docstring)."""
     parser = _parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # --help, --version and usage errors
+        return exc.code if isinstance(exc.code, int) else 2
     if not args.command:
         parser.print_help()
         return 2
     debug = getattr(args, "debug", False)
+    in_main = _in_main_thread()
+    previous = signal.signal(signal.SIGTERM, _on_sigterm) if in_main else None
     try:
         from zonedesign.memory import memory_guard
 
         with memory_guard(getattr(args, "max_memory", None)):
             return _run(args)
     except InputError as exc:
+        # one line: the first problem says what and where, and how many more there are
         if debug:
             raise
-        print(f"zonedesign: error: {str(exc).splitlines()[0]}", file=sys.stderr)
-        for line in exc.problems[1:20]:
-            print(f"  {line}", file=sys.stderr)
+        _error(str(exc).splitlines()[0] if str(exc) else type(exc).__name__)
         return 2
     except KeyboardInterrupt:
-        print("zonedesign: interrupted; no output was written", file=sys.stderr)
+        print("zonedesign: interrupted; no output folder was left half-written", file=sys.stderr)
         return 130
-    except MemoryError as exc:
-        print(f"zonedesign: error: {exc}", file=sys.stderr)
+    except SystemExit as exc:
+        if exc.code == 128 + signal.SIGTERM:
+            print("zonedesign: stopped (SIGTERM); no output folder was left half-written", file=sys.stderr)
+        raise
+    except MemoryError:
+        if debug:
+            raise
+        _error("out of memory; stopped before writing any output (try --max-memory, fewer workers or a smaller input)")
         return 2
+    except OSError as exc:
+        if debug:
+            raise
+        where = f"{exc.filename}: " if exc.filename else ""
+        _error(f"{where}{exc.strerror or exc}")
+        return 2
+    except Exception as exc:  # noqa: BLE001 - a bug: one line, the traceback on request
+        if debug:
+            raise
+        first = (str(exc).splitlines() or [""])[0]
+        print(
+            f"zonedesign: internal error: {type(exc).__name__}: {first} (rerun with --debug for the traceback)",
+            file=sys.stderr,
+        )
+        return 3
+    finally:
+        if in_main and previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _in_main_thread() -> bool:
+    import threading
+
+    return threading.current_thread() is threading.main_thread()
 
 
 def _run(args: argparse.Namespace) -> int:
     from zonedesign import api
+    from zonedesign.progress import Progress
 
-    say = _progress(getattr(args, "quiet", False))
+    say = Progress(quiet=getattr(args, "quiet", False))
     cmd = args.command
     if cmd == "design":
         res = api.design(
@@ -235,8 +326,8 @@ def _run(args: argparse.Namespace) -> int:
         res = api.redraw(
             args.areas, args.rules, args.previous, args.out, layer=args.layer, crs=args.crs,
             overwrite=args.overwrite, mend=args.mend, executor=args.executor,
-            workers=args.workers, scheduler=args.scheduler, report=not args.no_report,
-            progress=say,
+            workers=args.workers, scheduler=args.scheduler, certify=not args.no_certificate,
+            report=not args.no_report, progress=say,
         )
         return _done(res, say)
     if cmd == "sweep":
@@ -258,14 +349,12 @@ def _run(args: argparse.Namespace) -> int:
 
 
 def _rules(args: argparse.Namespace) -> int:
-    from zonedesign.io.read import read_table_columns
+    from zonedesign.io.read import read_table_columns, read_table_sample
     from zonedesign.rules import check_rules_against, load_rules, starter_rules
 
     if args.rules_command == "init":
         columns, dtypes, _, _ = read_table_columns(args.areas, layer=args.layer)
-        import pyogrio
-
-        sample = pyogrio.read_dataframe(args.areas, layer=args.layer, read_geometry=False, max_features=1000)
+        sample = read_table_sample(args.areas, layer=args.layer)
         sys.stdout.write(starter_rules(columns, dtypes, sample))
         return 0
     if args.rules_command == "check":
@@ -276,16 +365,23 @@ def _rules(args: argparse.Namespace) -> int:
         tiers = ", ".join(t.name for t in rules.tiers)
         print(f"{args.rules}: ok ({len(rules.tiers)} tiers: {tiers})")
         return 0
-    raise InputError("rules needs an action: init or check")
+    raise InputError("rules needs an action: init or check (see zonedesign rules --help)")
 
 
 def _done(res, say) -> int:
+    """Log how the run ended; the exit code is the api's (0 ok, 1 a rule is broken)."""
     s = res.summary
     if res.out is not None:
         say(f"wrote {res.out}")
+    for f in s.get("fence_failures", []):
+        say(f"fence {f['fence']} of tier {f['tier']} failed: {f['error']} (its areas were kept whole; the other fences are written)")
     brk = len(s.get("bound_breaks", []))
     viol = len(s.get("audit", {}).get("violations", []))
     fails = len(s.get("fence_failures", []))
+    if s.get("command") == "sweep":
+        rows = s.get("sweep", {}).get("variants", [])
+        brk = sum(int(r.get("bound_breaks", 0)) for r in rows)
+        viol = sum(1 for r in rows if not r.get("audit_ok", True))
     if brk or viol or fails:
         say(f"finished with {brk} bound break(s), {viol} audit violation(s), {fails} failed fence(s): exit 1")
     else:

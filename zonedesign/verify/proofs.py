@@ -294,10 +294,11 @@ def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, wo
     status = STATUS.get(solver.Solve(m), "UNKNOWN")
     seconds = time.perf_counter() - start
     figures = {"units": n, "max_zones": K, "min_zones": kmin, "time_limit": time_limit}
+    zones = f"{kmin} zones" if kmin == K else f"{kmin} to {K} zones"
     if status == "INFEASIBLE":
         text = (
             f"{label} cannot be divided into contiguous zones that meet the tier's bounds: CP-SAT "
-            f"proved that no division of its {n} units into {kmin} to {K} zones works "
+            f"proved that no division of its {n} units into {zones} works "
             f"(in {seconds:.2f} s)"
         )
         return Proof(fence, tier, "cp-sat", text, figures, "INFEASIBLE", seconds)
@@ -305,6 +306,6 @@ def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, wo
         return None
     text = (
         f"{label} is too large to prove within {time_limit:g} s: CP-SAT neither found a valid "
-        f"zoning of its {n} units into {kmin} to {K} zones nor proved that none exists"
+        f"zoning of its {n} units into {zones} nor proved that none exists"
     )
     return Proof(fence, tier, "cp-sat", text, figures, "UNKNOWN", seconds)

@@ -1,0 +1,167 @@
+"""Infeasibility proofs: plain arithmetic where it suffices, CP-SAT where it does not.
+
+Every CP-SAT verdict is checked against a brute-force search over all partitions of a
+small graph, with connectivity judged by networkx (reference library).
+"""
+
+from __future__ import annotations
+
+import networkx as nx
+import numpy as np
+import pytest
+
+from zonedesign.records import Bounds, Graph, Problem
+from zonedesign.verify.proofs import arithmetic_proof, prove_infeasible
+
+try:
+    from verify_support import grid_graph
+except ImportError:  # tests run as a package
+    from tests.verify_support import grid_graph
+
+
+def problem(graph: Graph, counts, lo, hi, names=("households",)) -> Problem:
+    n = graph.n
+    counts = np.asarray(counts, dtype=float).reshape(n, -1)
+    return Problem(
+        graph=graph,
+        counts=counts,
+        bounds=Bounds(tuple(names), np.array(lo, float), np.array(hi, float), np.full(len(names), np.nan)),
+        attrs=np.zeros((n, 0)),
+        weight=np.ones(n),
+        area=np.ones(n),
+        perimeter=np.full(n, 4.0),
+    )
+
+
+def set_partitions(items):
+    if not items:
+        yield []
+        return
+    first, rest = items[0], items[1:]
+    for part in set_partitions(rest):
+        for k in range(len(part)):
+            yield part[:k] + [[first] + part[k]] + part[k + 1:]
+        yield [[first]] + part
+
+
+def brute_force_feasible(p: Problem) -> bool:
+    """Some partition into connected zones meets every bound (networkx connectivity)."""
+    g = nx.Graph()
+    g.add_nodes_from(range(p.n))
+    i, j, _ = p.graph.edges()
+    g.add_edges_from(zip(i.tolist(), j.tolist()))
+    for part in set_partitions(list(range(p.n))):
+        ok = True
+        for block in part:
+            sums = p.counts[block].sum(axis=0)
+            if (sums < p.bounds.lo).any() or (sums > p.bounds.hi).any() or not nx.is_connected(g.subgraph(block)):
+                ok = False
+                break
+        if ok:
+            return True
+    return False
+
+
+def test_fence_total_below_the_floor():
+    proof = prove_infeasible(problem(grid_graph(1, 3), [50, 60, 61], [400], [1000]), "D1", "block")
+    assert proof is not None and proof.proven and proof.kind == "arithmetic"
+    assert proof.text == "fence D1 has 171 households; the tier floor is 400, so no valid zone exists"
+    assert proof.figures["total"] == 171 and proof.figures["floor"] == 400
+
+
+def test_island_below_the_floor():
+    graph = Graph.from_edges(4, [0, 2], [1, 3])  # two islands: {a, b} and {c, d}
+    proof = prove_infeasible(problem(graph, [100, 100, 10, 20], [50], [1000]), "D2", "block",
+                             unit_ids=["a", "b", "c", "d"])
+    assert proof.kind == "arithmetic" and proof.proven
+    assert proof.text.startswith("the island of 2 units in fence D2 (first: c, d) has 30 households; "
+                                 "the tier floor is 50")
+    assert proof.figures["island"] == ["c", "d"]
+
+
+def test_total_between_one_ceiling_and_two_floors():
+    proof = prove_infeasible(problem(grid_graph(1, 3), [150, 160, 210], [400], [500]), "D3", "block")
+    assert proof.kind == "arithmetic"
+    assert proof.text == (
+        "fence D3 has 520 households: too many for one zone (the ceiling is 500) and too few for "
+        "two (two floors of 400 make 800), so no valid zoning exists"
+    )
+
+
+def test_total_between_k_ceilings_and_k_plus_one_floors():
+    # 1,030 > 3 * 300 and < 4 * 260
+    proof = arithmetic_proof(problem(grid_graph(2, 5), [103] * 10, [260], [300]), "D4")
+    assert "too many for three zones (three ceilings of 300 make 900)" in proof.text
+    assert "too few for four (four floors of 260 make 1,040)" in proof.text
+
+
+def test_unit_above_the_ceiling():
+    proof = prove_infeasible(problem(grid_graph(1, 3), [150, 160, 210], [100], [200]), "D5", "block",
+                             unit_ids=["x", "y", "z"])
+    assert proof.text == "z alone has 210 households, above the tier ceiling of 200; no zone can hold it"
+
+
+def test_counts_that_allow_no_common_number_of_zones():
+    # persons allow 2 or 3 zones (300 within [100, 150] each); households allow 5 or 6
+    p = problem(grid_graph(1, 6), [[50, 1]] * 6, [100, 1], [150, 1.4], names=("persons", "households"))
+    proof = prove_infeasible(p, "D6", "block")
+    assert proof.kind == "arithmetic"
+    assert "persons allow 2 to 3 zones" in proof.text and "households allow 5 to 6 zones" in proof.text
+    assert not brute_force_feasible(p)
+
+
+def test_star_needs_cp_sat():
+    # a centre of 1 with three leaves of 4: any zone without the centre is one leaf (4 < 5),
+    # so every leaf joins the centre's zone (13 > 9); arithmetic sees nothing wrong
+    star = Graph.from_edges(4, [0, 0, 0], [1, 2, 3])
+    p = problem(star, [1, 4, 4, 4], [5], [9])
+    assert arithmetic_proof(p) is None
+    proof = prove_infeasible(p, "D7", "block", time_limit=10)
+    assert proof.kind == "cp-sat" and proof.status == "INFEASIBLE" and proof.proven
+    assert "CP-SAT proved that no division of its 4 units into 2 zones works" in proof.text
+    assert not brute_force_feasible(p)
+
+
+def test_feasible_fence_has_no_proof():
+    star = Graph.from_edges(4, [0, 0, 0], [1, 2, 3])
+    assert prove_infeasible(problem(star, [1, 4, 4, 4], [5], [13]), "D8", "block") is None
+
+
+def test_time_out_is_stated_not_silent():
+    rng = np.random.default_rng(3)
+    p = problem(grid_graph(12, 12), rng.integers(1, 30, 144), [95], [100])
+    proof = prove_infeasible(p, "D9", "block", time_limit=0.2)
+    assert proof is not None and proof.status == "UNKNOWN" and not proof.proven
+    assert proof.text.startswith("fence D9 is too large to prove within 0.2 s")
+
+
+def test_cp_sat_verdicts_match_brute_force_on_random_graphs():
+    rng = np.random.default_rng(11)
+    verdicts = {True: 0, False: 0}
+    for _ in range(30):
+        n = int(rng.integers(4, 8))
+        tree = nx.random_labeled_tree(n, seed=int(rng.integers(1 << 30)))
+        edges = list(tree.edges()) + [tuple(rng.choice(n, 2, replace=False)) for _ in range(int(rng.integers(0, 3)))]
+        graph = Graph.from_edges(n, [a for a, _ in edges], [b for _, b in edges])
+        counts = rng.integers(1, 10, n)
+        lo = float(rng.integers(3, 12))
+        p = problem(graph, counts, [lo], [lo + float(rng.integers(0, 8))])
+        proof = prove_infeasible(p, "R", "block", time_limit=10)
+        assert proof is None or proof.status == "INFEASIBLE"
+        feasible = brute_force_feasible(p)
+        assert (proof is None) == feasible
+        verdicts[feasible] += 1
+    assert verdicts[True] > 0 and verdicts[False] > 0
+
+
+@pytest.mark.parametrize("n_units", [5, 6])
+def test_cp_sat_proof_on_a_path_with_no_contiguous_split(n_units):
+    # a path whose ends are heavy and middle light: every contiguous split leaves a light
+    # stretch below the floor or a heavy one above the ceiling
+    counts = [9] + [1] * (n_units - 2) + [9]
+    p = problem(grid_graph(1, n_units), counts, [10], [10 + n_units - 3])
+    total = sum(counts)
+    assert 2 * 10 <= total <= 2 * (10 + n_units - 3)  # two zones pass the arithmetic
+    assert arithmetic_proof(p) is None
+    proof = prove_infeasible(p, "P", "block")
+    assert (proof is not None and proof.proven) == (not brute_force_feasible(p))
