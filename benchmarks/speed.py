@@ -190,16 +190,14 @@ class PlainState:
         self.A = [0.0] * k
         self.P = [0.0] * k
         for i, z in enumerate(self.labels):
+            # boundary shared with members added so far: each internal edge counted once
+            shared = sum(length for j, length in self.adj[i] if j < i and self.labels[j] == z)
             self.members[z].add(i)
-            self._add(z, i, +1.0, self._shared(i, z))
+            self._add(z, i, +1.0, shared)
         self.cost = [0.0] * k
         self.brk = [0.0] * k
         for z in range(k):
             self.cost[z], self.brk[z] = self._value(self.csum[z], self.npos[z], self.W[z], self.S[z], self.Q[z], self.A[z], self.P[z])
-
-    def _shared(self, i: int, z: int) -> float:
-        lab = self.labels
-        return sum(length for j, length in self.adj[i] if j != i and lab[j] == z)
 
     def _add(self, z: int, i: int, sign: float, shared: float) -> None:
         cs = self.csum[z]

@@ -18,6 +18,7 @@ import pandas as pd
 
 from zonedesign import __version__
 from zonedesign.errors import InputError
+from zonedesign.progress import Stages, TaskBars
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import Rules, load_rules
 
@@ -97,14 +98,15 @@ def prepare(
         inputs.append(Path(rules))
         rules = load_rules(rules)
     t0 = time.perf_counter()
-    _say(progress, f"reading {areas_path}")
+    stage = Stages(progress, "preparing", 2)
+    stage(f"reading {areas_path}")
     layer = layer or rules.areas.layer
     columns = read_table_columns(areas_path, layer=layer)[0]
     check_rules_against(rules, columns, str(areas_path))
     file = read_areas(areas_path, rules.areas, layer=layer, crs=crs)
     seconds["read"] = time.perf_counter() - t0
     t0 = time.perf_counter()
-    _say(progress, f"building the {rules.graph.contiguity} graph of {file.areas.n} areas")
+    stage(f"building the {rules.graph.contiguity} graph of {file.areas.n} areas")
     notes = list(file.notes)
     graph = build_graph(file.geometry, rules.graph, notes=notes)
     # islands are found before links are added, so the summary shows each one and
@@ -122,6 +124,7 @@ def prepare(
     for island in found:
         island.setdefault("linked", False)
     seconds["graph"] = time.perf_counter() - t0
+    stage.close()
     return Prepared(
         rules=rules,
         areas=file.areas,
@@ -173,7 +176,8 @@ def design(
     from zonedesign.hierarchy import build_hierarchy
 
     t_start = time.perf_counter()
-    run = make_executor(executor, workers, scheduler)
+    bars = TaskBars(progress, lambda tasks: f"tier '{tasks[0].tier}' by fence")
+    run = bars.wrap(make_executor(executor, workers, scheduler, on_done=bars.done))
     if out is not None:
         _check_out(Path(out), overwrite)
     prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
@@ -287,7 +291,8 @@ def finish(
     from zonedesign.zonetables import all_tables, tier_figures
 
     t0 = time.perf_counter()
-    _say(progress, "auditing the result independently")
+    stage = Stages(progress, "auditing", 4 if certify else 3)
+    stage("auditing the result independently")
     tiers = list(prep.rules.tiers)
     checked = run_audit(prep.areas, prep.graph, lookup, tiers)
     summary["audit"] = {
@@ -297,10 +302,12 @@ def finish(
     if certify:
         from zonedesign.verify.certificate import certify as run_certify
 
+        stage("building the CP-SAT certificate per fence and tier")
         certs = run_certify(prep.areas, prep.graph, lookup, tiers)
         summary["certificate"] = [_jsonable(c) for c in certs]
     seconds["audit"] = time.perf_counter() - t0
 
+    stage("measuring every zone")
     tables = all_tables(prep.areas, prep.graph, lookup, tiers)
     summary["tiers"] = {
         t.name: tier_figures(tables[t.name], t, prep.areas.count_names) for t in tiers
@@ -311,7 +318,9 @@ def finish(
         for _, row in df[df["bound_break"]].iterrows():
             breaks.append({"tier": t.name, "zone": row["zone"], "fence": row["fence"], "breaks": row["breaks"]})
     summary["bound_breaks"] = breaks
+    stage(f"seeking proofs for {len({(b['tier'], b['fence']) for b in breaks})} fence(s) with bound breaks")
     summary["proofs"] = explain_breaks(prep, lookup, breaks)
+    stage.close()
     summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
     rc = 1 if (breaks or not checked.ok or failed) else 0
     summary["exit_code"] = rc
@@ -547,7 +556,8 @@ def redraw(
     from zonedesign.redraw import change_shares, redraw_hierarchy
 
     t_start = time.perf_counter()
-    run = make_executor(executor, workers, scheduler)
+    bars = TaskBars(progress, lambda tasks: f"tier '{tasks[0].tier}' by fence")
+    run = bars.wrap(make_executor(executor, workers, scheduler, on_done=bars.done))
     if out is not None:
         _check_out(Path(out), overwrite)
     prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
@@ -601,13 +611,8 @@ def sweep(
     from zonedesign.sweep import VariantTask, charts, parse_vary, run_variant, variants
 
     t_start = time.perf_counter()
-    done = {"n": 0}
-
-    def on_done(_row: Any) -> None:
-        done["n"] += 1
-        _say(progress, f"variant {done['n']} done")
-
-    run = make_executor(executor, workers, scheduler, on_done=on_done)
+    bars = TaskBars(progress, lambda tasks: "variants")
+    run = bars.wrap(make_executor(executor, workers, scheduler, on_done=bars.done))
     if out is not None:
         _check_out(Path(out), overwrite)
     prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
@@ -632,6 +637,7 @@ def sweep(
     pngs = charts(table, [k for k, _ in keys])
     if out is not None:
         with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
+            _say(progress, f"writing {out}")
             table.to_csv(tmp / "sweep.csv", index=False, lineterminator="\n")
             for name, data in pngs.items():
                 (tmp / name).write_bytes(data)
@@ -734,6 +740,7 @@ def audit(
         from zonedesign.io.output import atomic_output, write_json
 
         with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
+            _say(progress, f"writing {out}")
             write_json(tmp / "audit.json", summary["audit"])
             checked.violations_frame().to_csv(tmp / "violations.csv", index=False, lineterminator="\n")
             if certify:

@@ -374,7 +374,12 @@ def _done(res, say) -> int:
     if res.out is not None:
         say(f"wrote {res.out}")
     for f in s.get("fence_failures", []):
-        say(f"fence {f['fence']} of tier {f['tier']} failed: {f['error']} (its areas were kept whole; the other fences are written)")
+        # shown even with --quiet: the run is incomplete there
+        print(
+            f"zonedesign: fence {f['fence']} of tier {f['tier']} failed: {f['error']} (its units "
+            "form one zone per connected piece; every other fence is written)",
+            file=sys.stderr,
+        )
     brk = len(s.get("bound_breaks", []))
     viol = len(s.get("audit", {}).get("violations", []))
     fails = len(s.get("fence_failures", []))

@@ -13,7 +13,7 @@ from __future__ import annotations
 import contextlib
 import sys
 import time
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator
 from typing import Any, Protocol, TextIO
 
 from tqdm import tqdm
@@ -91,15 +91,20 @@ class Progress:
         self.stream.flush()
 
     @contextlib.contextmanager
-    def bar(self, total: int, desc: str) -> Iterator[Bar]:
-        if self.quiet:
-            yield _NoBar()
-            return
-        drawn: _TqdmBar | _LineBar = _TqdmBar(total, desc, self.stream) if self.bars else _LineBar(self, total, desc)
+    def bar(self, total: int, desc: str, *, log_end: bool = True) -> Iterator[Bar]:
+        """A bar of `total` steps; without tqdm, a line when it closes (unless not `log_end`)."""
+        drawn: _TqdmBar | _LineBar | _NoBar
+        if self.bars:
+            drawn = _TqdmBar(total, desc, self.stream)
+        elif self.quiet or not log_end:
+            drawn = _NoBar()
+        else:
+            drawn = _LineBar(self, total, desc)
         try:
             yield drawn
         finally:
-            drawn.close()
+            if not isinstance(drawn, _NoBar):
+                drawn.close()
 
 
 # ---------------------------------------------------------------- for the api
@@ -114,31 +119,45 @@ def say(progress: ProgressLike, text: str) -> None:
 
 
 @contextlib.contextmanager
-def bar(progress: ProgressLike, total: int, desc: str) -> Iterator[Bar]:
+def bar(progress: ProgressLike, total: int, desc: str, *, log_end: bool = True) -> Iterator[Bar]:
     """A bar from a progress object that draws bars, else a bar that only checks memory."""
     maker = getattr(progress, "bar", None)
     if maker is None:
         yield _NoBar()
         return
-    with maker(total, desc) as b:
+    with maker(total, desc, log_end=log_end) if isinstance(progress, Progress) else maker(total, desc) as b:
         yield b
 
 
-@contextlib.contextmanager
-def stages(progress: ProgressLike, desc: str, names: Sequence[str]) -> Iterator[Callable[[str], None]]:
-    """A bar over named stages: call `enter(name)` as each begins; the line says which."""
-    with bar(progress, len(names), desc) as b:
-        started = {"n": 0}
+class Stages:
+    """A bar over the stages of one job, usable without a with-block.
 
-        def enter(name: str) -> None:
-            if started["n"]:
-                b.update()
-            started["n"] += 1
-            say(progress, name)
+    Each call starts a stage and logs its line; `close()` ends the last one. The stage
+    lines already say what happens, so without tqdm the bar adds no line of its own.
 
-        yield enter
-        if started["n"]:
-            b.update()
+    >>> stage = Stages(progress, "preparing", 2)      # doctest: +SKIP
+    >>> stage("reading areas.gpkg"); stage("building the graph"); stage.close()   # doctest: +SKIP
+    """
+
+    def __init__(self, progress: ProgressLike, desc: str, total: int):
+        self.progress = progress
+        self._cm = bar(progress, total, desc, log_end=False)
+        self._bar = self._cm.__enter__()
+        self.started = 0
+
+    def __call__(self, text: str) -> None:
+        if self.started:
+            self._bar.update()
+        self.started += 1
+        say(self.progress, text)
+
+    def close(self) -> None:
+        if self._cm is None:
+            return
+        if self.started:
+            self._bar.update()
+        cm, self._cm = self._cm, None
+        cm.__exit__(None, None, None)
 
 
 class TaskBars:

@@ -3,54 +3,127 @@
 from __future__ import annotations
 
 import json
+import tomllib
 from pathlib import Path
 
 from zonedesign.errors import InputError
 
+SHOWN = 10  # breaks, proofs and violations listed before "and N more"
 
-def show(folder: Path) -> str:
-    """Tiers, zones, breaks and where the report is, as plain text lines."""
-    path = Path(folder) / "summary.json"
+
+def show(folder: str | Path) -> str:
+    """What a run found, as plain text lines: tiers in rules order with their zones and
+    breaks, the audit, proofs, failed fences and where the report is."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputError(f"{folder}: no such folder")
+    path = folder / "summary.json"
     if not path.exists():
-        alt = Path(folder) / "audit.json"
-        if alt.exists():
-            path = alt
-        else:
+        alt = folder / "audit.json"
+        if not alt.exists():
             raise InputError(f"{folder}: no summary.json or audit.json here; is it a zonedesign output folder?")
+        path = alt
     try:
-        s = json.loads(path.read_text())
+        s = json.loads(path.read_text(encoding="utf-8"))
     except json.JSONDecodeError as exc:
         raise InputError(f"{path}: not valid JSON (line {exc.lineno}, column {exc.colno})") from None
-    lines = [f"{folder}  ({s.get('command', '?')}, zonedesign {s.get('zonedesign', '?')})"]
-    areas = s.get("areas", {})
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{path}: not UTF-8 text (byte {exc.start})") from None
+    if not isinstance(s, dict):
+        raise InputError(f"{path}: not a zonedesign summary (expected a JSON object)")
+    if path.name == "audit.json":
+        s = {"command": "audit", "audit": s}
+
+    search = s.get("search") or {}
+    seed = f", seed {search['seed']}" if "seed" in search else ""
+    lines = [f"{folder}  ({s.get('command', '?')}, zonedesign {s.get('zonedesign', '?')}{seed})"]
+    areas = s.get("areas") or {}
     if areas:
         lines.append(f"  areas: {areas.get('count')} in {areas.get('fences')} fence(s), CRS {areas.get('crs')}")
-    for name, t in (s.get("tiers") or {}).items():
+        repaired = areas.get("repaired_polygons") or []
+        if repaired:
+            lines.append(f"  repaired polygons: {len(repaired)} ({_first(repaired)})")
+    tiers = s.get("tiers") or {}
+    for name in tier_order(s):
+        t = tiers.get(name)
+        if t is None:
+            continue
         within = ", ".join(f"{k} {v:.0%}" for k, v in (t.get("share_within_10pct_of_target") or {}).items())
         pp = (t.get("polsby_popper") or {}).get("median")
-        pp_text = f", median Polsby-Popper {pp:.2f}" if pp is not None else ""
         lines.append(
             f"  tier {name}: {t.get('zones')} zones, {t.get('bound_breaks')} bound break(s)"
             + (f", within 10% of target: {within}" if within else "")
-            + pp_text
+            + (f", median Polsby-Popper {pp:.2f}" if pp is not None else "")
         )
+    for name, c in (s.get("changes") or {}).items():
+        if isinstance(c, dict) and "share_changed" in c:
+            lines.append(
+                f"  changed in tier {name}: {c['share_changed']:.1%} of areas "
+                f"({c.get('kept', '?')} of {c.get('previous_zones', '?')} previous zones kept)"
+            )
+    lines += _sweep_lines(s)
     audit = s.get("audit") or {}
     if audit:
-        n = len(audit.get("violations", []))
-        lines.append(f"  audit: {'passed' if audit.get('ok') else f'{n} violation(s)'}")
+        violations = audit.get("violations") or []
+        lines.append(f"  audit: {'passed' if audit.get('ok') else f'{len(violations)} violation(s)'}")
+        lines += [f"    {v.get('message', v)}" for v in violations[:SHOWN]]
+        lines += _more(violations)
     cert = s.get("certificate") or []
     if cert:
         good = sum(1 for c in cert if str(c.get("status", "")).upper() in ("FEASIBLE", "OPTIMAL"))
         lines.append(f"  certificate: {good}/{len(cert)} fence-tier models feasible")
-    for b in (s.get("bound_breaks") or [])[:10]:
+    breaks = s.get("bound_breaks") or []
+    for b in breaks[:SHOWN]:
         lines.append(f"  break: tier {b['tier']} zone {b['zone']}: {b.get('breaks', '')}")
-    for p in (s.get("proofs") or [])[:10]:
-        lines.append(f"  proof: {p.get('text', '')}")
-    fails = s.get("fence_failures") or []
-    for f in fails:
+    lines += _more(breaks)
+    proofs = s.get("proofs") or []
+    for p in proofs[:SHOWN]:
+        lines.append(f"  proof ({p.get('status', '?')}): {p.get('text', '')}")
+    lines += _more(proofs)
+    for f in s.get("fence_failures") or []:
         lines.append(f"  FAILED fence {f['fence']} tier {f['tier']}: {f['error']}")
-    report = Path(folder) / "report.html"
+    report = folder / "report.html"
     if report.exists():
         lines.append(f"  report: {report}")
     lines.append(f"  exit code of the run: {s.get('exit_code', '?')}")
     return "\n".join(lines)
+
+
+def tier_order(summary: dict) -> list[str]:
+    """Tier names bottom first, as the rules list them."""
+    order = summary.get("tier_order")
+    if isinstance(order, list) and order:
+        return [str(x) for x in order]
+    try:
+        tiers = tomllib.loads(summary.get("rules") or "").get("tier") or []
+        names = [str(t["name"]) for t in tiers if isinstance(t, dict) and "name" in t]
+    except (tomllib.TOMLDecodeError, TypeError):
+        names = []
+    if names:
+        return names
+    seen = dict.fromkeys(str(f.get("tier")) for f in summary.get("fences") or [] if isinstance(f, dict))
+    return list(seen) or list(summary.get("tiers") or {})
+
+
+def _sweep_lines(s: dict) -> list[str]:
+    sweep = s.get("sweep") or {}
+    rows = sweep.get("variants") or []
+    if not rows:
+        return []
+    keys = list(sweep.get("vary") or {})
+    out = [f"  sweep: {len(rows)} variant(s) of {', '.join(keys)}"]
+    for r in rows[:SHOWN * 2]:
+        values = ", ".join(f"{k}={r.get(k)}" for k in keys)
+        zones = ", ".join(f"{n} {r[f'zones.{n}']}" for n in tier_order(s) if f"zones.{n}" in r)
+        audit = "audit passed" if r.get("audit_ok") else "audit failed"
+        out.append(f"    {r.get('variant')}: {values}: zones {zones}; {r.get('bound_breaks', '?')} bound break(s), {audit}")
+    return out
+
+
+def _first(items: list) -> str:
+    shown = ", ".join(map(str, items[:5]))
+    return shown + (f" and {len(items) - 5} more" if len(items) > 5 else "")
+
+
+def _more(items: list) -> list[str]:
+    return [f"    ... and {len(items) - SHOWN} more (see summary.json)"] if len(items) > SHOWN else []
