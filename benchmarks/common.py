@@ -88,23 +88,27 @@ def spdata_folder() -> Path:
     return spdata_dir()
 
 
-def read_ny8():
-    """NY8 census tracts (r-cran-spdata NY8_utm18.shp) with invalid polygons repaired and a
-    5-digit county column taken from AREAKEY."""
+def read_ny8(repair: bool = True):
+    """NY8 census tracts (r-cran-spdata NY8_utm18.shp) with a 5-digit county column taken
+    from AREAKEY; with `repair`, the five invalid polygons are made valid and whatever a
+    repaired polygon then overlaps of a valid neighbour is cut from it."""
     import geopandas as gpd
 
     gdf = gpd.read_file(spdata_folder() / "NY8_utm18.shp", engine="pyogrio")
-    geom = gdf.geometry.values
-    bad = ~shapely.is_valid(geom)
-    if bad.any():
-        fixed = shapely.make_valid(geom[bad])
-        # make_valid may return a collection with stray lines; keep the polygonal part
-        fixed = np.array([_polygonal(g) for g in fixed], dtype=object)
-        geom = geom.copy()
-        geom[bad] = fixed
-        gdf = gdf.set_geometry(gpd.GeoSeries(geom, crs=gdf.crs))
     gdf["county"] = gdf["AREAKEY"].astype(str).str[:5]
-    return gdf
+    if not repair:
+        return gdf
+    geom = np.asarray(gdf.geometry.values, dtype=object).copy()
+    bad = np.flatnonzero(~shapely.is_valid(geom))
+    for i in bad:
+        # make_valid may return a collection with stray lines; keep the polygonal part
+        geom[i] = _polygonal(shapely.make_valid(geom[i]))
+    tree = shapely.STRtree(geom)
+    for i in bad:
+        others = [j for j in tree.query(geom[i], predicate="intersects") if j != i and j not in set(bad)]
+        if others:
+            geom[i] = _polygonal(shapely.difference(geom[i], shapely.union_all(geom[others])))
+    return gdf.set_geometry(gpd.GeoSeries(geom, crs=gdf.crs))
 
 
 def _polygonal(g):
@@ -212,7 +216,11 @@ def fmt(v, digits: int = 3) -> str:
     if isinstance(v, float | np.floating):
         if np.isnan(v):
             return "–"
-        if v != 0 and (abs(v) >= 1e5 or abs(v) < 10 ** (-digits)):
+        if not np.isfinite(v):
+            return "inf" if v > 0 else "-inf"
+        if abs(v) >= 1e4:
+            return f"{v:,.0f}"
+        if v != 0 and abs(v) < 10 ** (-digits):
             return f"{v:.{digits}g}"
         return f"{v:,.{digits}f}"
     if isinstance(v, int | np.integer):
@@ -278,3 +286,18 @@ def _csv(v):
     if isinstance(v, np.integer):
         return int(v)
     return v
+
+
+def warm_engine() -> float:
+    """Solve a tiny problem with every method so numba's compile (or cache load) is not
+    timed inside a benchmark; returns the seconds it took."""
+    from zonedesign.rules import METHODS
+    from zonedesign.search.engine import solve
+    from zonedesign.synthetic import grid_with_holes
+
+    gdf = grid_with_holes(5, 5, 0.0, 0, n_fences=1)
+    problem = frame_problem(gdf, "persons", ("attr_a", "attr_b"), "persons")
+    with Clock() as c:
+        for method in METHODS:
+            solve(problem, seed=1, method=method, time_limit=600.0)
+    return c.seconds

@@ -95,3 +95,27 @@ def comparable(summary: dict) -> dict:
 
 def read_summary(folder: Path) -> dict:
     return json.loads((Path(folder) / "summary.json").read_text(encoding="utf-8"))
+
+
+class Ran:
+    """Exit code and captured streams of one in-process command."""
+
+    def __init__(self, code: int, out: str, err: str):
+        self.code, self.out, self.err = code, out, err
+
+    @property
+    def err_lines(self) -> list[str]:
+        return [line for line in self.err.splitlines() if line.strip()]
+
+    def __repr__(self) -> str:
+        return f"Ran(code={self.code}, err={self.err!r})"
+
+
+def run_cli(capsys: Any, *args: str | Path) -> Ran:
+    """`zonedesign ARGS` in this process; streams captured by pytest's capsys."""
+    from zonedesign.cli import main
+
+    capsys.readouterr()
+    code = main([str(a) for a in args])
+    out, err = capsys.readouterr()
+    return Ran(code, out, err)

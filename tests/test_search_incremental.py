@@ -39,11 +39,19 @@ def random_walk(problem, state: ZoneState, steps: int, seed: int) -> dict[str, i
     """Random moves with an occasional merge or split; checks after every step."""
     rng = np.random.default_rng(seed)
     g = nx_graph(problem.graph)
-    done = {"moves": 0, "merges": 0, "splits": 0}
+    done = {"moves": 0, "merges": 0, "splits": 0, "restores": 0}
+    saved = (state.labels(), state.zones.anchor.copy(), state.key())
     for step in range(steps):
         roll = rng.random()
         live = state.live()
-        if roll < 0.06 and live.size > 1:
+        if step % 20 == 0:
+            saved = (state.labels(), state.zones.anchor.copy(), state.key())
+        if roll < 0.03:
+            # going back to an earlier labelling touches only the zones that changed
+            state.restore(saved[0], saved[1])
+            assert close(state.key()[0], saved[2][0]) and close(state.key()[1], saved[2][1])
+            done["restores"] += 1
+        elif roll < 0.09 and live.size > 1:
             a = int(rng.choice(live))
             members = np.flatnonzero(state.labels() == a)
             nbz = sorted({int(state.labels()[v]) for u in members for v in g.neighbors(int(u))} - {a})
@@ -56,7 +64,7 @@ def random_walk(problem, state: ZoneState, steps: int, seed: int) -> dict[str, i
             after = state.key()
             assert close(after[0] - before[0], db) and close(after[1] - before[1], do), f"merge {step}"
             done["merges"] += 1
-        elif roll < 0.12:
+        elif roll < 0.15:
             sizes = np.bincount(state.labels(), minlength=problem.n)
             big = np.flatnonzero(sizes >= 2)
             if big.size == 0:

@@ -15,16 +15,12 @@ import networkx as nx
 import numpy as np
 import pytest
 from scipy import stats
+from verify_support import grid_graph, make_areas, ny8
 
 from zonedesign.errors import InputError
 from zonedesign.rules import TierRules
 from zonedesign.verify.certificate import certify
 from zonedesign.verify.checks import audit
-
-try:
-    from verify_support import grid_graph, make_areas, ny8
-except ImportError:  # tests run as a package
-    from tests.verify_support import grid_graph, make_areas, ny8
 
 TIERS = [
     TierRules("tract_group", min={"persons": 1}, max={"persons": 20_000}),
@@ -32,8 +28,8 @@ TIERS = [
 ]
 
 
-def ny8_hierarchy():
-    frame, areas, graph = ny8()
+def ny8_hierarchy(shapes):
+    frame, areas, graph = ny8(shapes)
     key = areas.ids.astype(str)
     labels = {
         "tract_group": np.array([k[:9] for k in key], dtype=object),
@@ -67,8 +63,8 @@ def _singleton_tract(areas, labels, nxg, county):
 
 
 @pytest.fixture(scope="module")
-def hierarchy():
-    return ny8_hierarchy()
+def hierarchy(spdata_dir):
+    return ny8_hierarchy(spdata_dir)
 
 
 pytestmark = pytest.mark.opendata

@@ -12,16 +12,12 @@ import itertools
 import networkx as nx
 import numpy as np
 import pytest
+from verify_support import grid_graph
 
 from zonedesign import measures
 from zonedesign.errors import InputError
 from zonedesign.records import Bounds, Graph, Problem
 from zonedesign.verify.exact import feasible_zones, solve_exact
-
-try:
-    from verify_support import grid_graph
-except ImportError:  # tests run as a package
-    from tests.verify_support import grid_graph
 
 
 def random_graph(rng, n: int) -> Graph:

@@ -8,14 +8,10 @@ from __future__ import annotations
 
 import networkx as nx
 import numpy as np
+from verify_support import grid_graph
 
 from zonedesign.records import Bounds, Graph, Problem
 from zonedesign.verify.proofs import arithmetic_proof, prove_infeasible
-
-try:
-    from verify_support import grid_graph
-except ImportError:  # tests run as a package
-    from tests.verify_support import grid_graph
 
 
 def problem(graph: Graph, counts, lo, hi, names=("households",)) -> Problem:

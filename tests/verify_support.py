@@ -9,33 +9,11 @@ zonedesign.graph.
 from __future__ import annotations
 
 import functools
-import os
 from pathlib import Path
 
 import numpy as np
-import pytest
 
 from zonedesign.records import Areas, Graph
-
-SPDATA_DEFAULT = "/tmp/spd/x/usr/lib/R/site-library/spData/shapes"
-
-
-def spdata_dir() -> Path:
-    """The r-cran-spdata shapes folder; missing data fail under CI and skip elsewhere."""
-    try:
-        from zonedesign.io.opendata import spdata  # type: ignore[attr-defined]
-
-        found = spdata()
-        if found is not None:
-            return Path(found)
-    except Exception:  # noqa: BLE001 - the helper may not exist or may not fetch here
-        pass
-    path = Path(os.environ.get("ZONEDESIGN_SPDATA", SPDATA_DEFAULT))
-    if not (path / "NY8_utm18.shp").exists():
-        if os.environ.get("CI"):
-            pytest.fail(f"r-cran-spdata shapes not found at {path}")
-        pytest.skip(f"r-cran-spdata shapes not found at {path}")
-    return path
 
 
 def grid_graph(rows: int, cols: int) -> Graph:
@@ -114,6 +92,9 @@ def _ny8_cached(path: str):
     return frame, areas, graph
 
 
-def ny8():
-    """(GeoDataFrame, Areas, Graph) of NY8: persons = POP8, fence = county (AREAKEY[:5])."""
-    return _ny8_cached(str(spdata_dir()))
+def ny8(shapes: Path):
+    """(GeoDataFrame, Areas, Graph) of NY8: persons = POP8, fence = county (AREAKEY[:5]).
+
+    `shapes` is the r-cran-spdata shapes folder (the suite's `spdata_dir` fixture).
+    """
+    return _ny8_cached(str(shapes))

@@ -380,18 +380,25 @@ def _done(res, say) -> int:
             "form one zone per connected piece; every other fence is written)",
             file=sys.stderr,
         )
-    brk = len(s.get("bound_breaks", []))
-    viol = len(s.get("audit", {}).get("violations", []))
+    violations = [v for v in s.get("audit", {}).get("violations", []) if isinstance(v, dict)]
+    if "bound_breaks" in s:
+        brk = len(s["bound_breaks"])
+    else:  # an audit: a zone that breaks bounds of two counts is one break
+        brk = len({(v.get("tier"), v.get("zone")) for v in violations if v.get("kind") == "bounds"})
+    # bound breaks are counted once, above; the audit adds what else it found
+    viol = sum(1 for v in violations if v.get("kind") != "bounds")
+    viol += len((s.get("audit", {}).get("overlay") or {}).get("flags") or [])  # areas split between zones
     fails = len(s.get("fence_failures", []))
     if s.get("command") == "sweep":
         rows = s.get("sweep", {}).get("variants", [])
         brk = sum(int(r.get("bound_breaks", 0)) for r in rows)
         viol = sum(1 for r in rows if not r.get("audit_ok", True))
-    if brk or viol or fails:
-        say(f"finished with {brk} bound break(s), {viol} audit violation(s), {fails} failed fence(s): exit 1")
-    else:
+    code = int(res.exit_code)
+    if code == 0:
         say("finished: every rule holds")
-    return int(res.exit_code)
+    else:
+        say(f"finished with {brk} bound break(s), {viol} audit violation(s), {fails} failed fence(s): exit {code}")
+    return code
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -12,10 +12,10 @@ huge allocation between two samples (it then surfaces as MemoryError).
 
 from __future__ import annotations
 
-import _thread
 import contextlib
 import os
 import resource
+import signal
 import sys
 import threading
 from collections.abc import Iterator
@@ -132,8 +132,9 @@ class _Watchdog(threading.Thread):
             size = resident_bytes()
             if size > self.limit:
                 self.seen = size
-                if self.interrupt:
-                    _thread.interrupt_main()
+                if self.interrupt and not self.stop.is_set():
+                    # a real SIGINT also wakes a main thread blocked in sleep or I/O
+                    signal.pthread_kill(threading.main_thread().ident, signal.SIGINT)
                 return
             self.stop.wait(INTERVAL)
 
@@ -149,6 +150,20 @@ class _Watchdog(threading.Thread):
 
 
 _active: list[_Watchdog] = []
+
+
+def _stop(dog: _Watchdog, limits: tuple[int, int] | None) -> None:
+    dog.stop.set()
+    try:
+        if dog.is_alive():
+            dog.join()
+    finally:
+        try:
+            if limits is not None:
+                resource.setrlimit(resource.RLIMIT_AS, limits)
+        finally:
+            if dog in _active:
+                _active.remove(dog)
 
 
 def checkpoint() -> None:
@@ -168,27 +183,24 @@ def memory_guard(limit: str | int | None) -> Iterator[None]:
         yield
         return
     size = parse_size(limit)
+    # interrupt only a main thread whose SIGINT raises KeyboardInterrupt (the default)
     main = threading.current_thread() is threading.main_thread()
-    dog = _Watchdog(size, str(limit), interrupt=main)
+    dog = _Watchdog(size, str(limit), interrupt=main and signal.getsignal(signal.SIGINT) is signal.default_int_handler)
     soft, hard = resource.getrlimit(resource.RLIMIT_AS)
     cap = size + ADDRESS_MARGIN
     if hard != resource.RLIM_INFINITY:
         cap = min(cap, hard)
     capped = _address_space() < cap and (soft == resource.RLIM_INFINITY or cap < soft)
-    dog.start()
-    _active.append(dog)
     try:
+        _active.append(dog)
+        dog.start()
         try:
             if capped:
                 resource.setrlimit(resource.RLIMIT_AS, (cap, hard))
             yield
         finally:
             # a late interrupt from the watchdog lands in here at worst: still caught below
-            dog.stop.set()
-            dog.join()
-            if capped:
-                resource.setrlimit(resource.RLIMIT_AS, (soft, hard))
-            _active.remove(dog)
+            _stop(dog, (soft, hard) if capped else None)
     except (Exception, KeyboardInterrupt) as exc:
         if dog.tripped and not isinstance(exc, MemoryLimitError):
             raise dog.error() from None

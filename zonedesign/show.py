@@ -64,10 +64,16 @@ def show(folder: str | Path) -> str:
     lines += _sweep_lines(s)
     audit = s.get("audit") or {}
     if audit:
-        violations = audit.get("violations") or []
-        lines.append(f"  audit: {'passed' if audit.get('ok') else f'{len(violations)} violation(s)'}")
-        lines += [f"    {v.get('message', v)}" for v in violations[:SHOWN]]
-        lines += _more(violations)
+        violations = [v for v in audit.get("violations") or [] if isinstance(v, dict)]
+        kinds: dict[str, int] = {}
+        for v in violations:
+            kinds[str(v.get("kind", "?"))] = kinds.get(str(v.get("kind", "?")), 0) + 1
+        by_kind = ", ".join(f"{n} {k}" for k, n in sorted(kinds.items()))
+        lines.append(f"  audit: {'passed' if audit.get('ok') else f'{len(violations)} violation(s) ({by_kind})'}")
+        # bound breaks are listed below with their proofs; the other kinds are listed here
+        other = [v for v in violations if v.get("kind") != "bounds"]
+        lines += [f"    {v.get('message', v)}" for v in other[:SHOWN]]
+        lines += _more(other)
     cert = s.get("certificate") or []
     if cert:
         good = sum(1 for c in cert if str(c.get("status", "")).upper() in ("FEASIBLE", "OPTIMAL"))

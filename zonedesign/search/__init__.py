@@ -4,7 +4,13 @@
 compiled kernels work on.
 """
 
-from zonedesign.search.engine import Solution, solve
-from zonedesign.search.state import ZoneState
+from zonedesign.search import anneal, azp, construct, kernels, mergesplit, tabu
+from zonedesign.search.cachestamp import drop_stale_caches
+
+# before anything compiles: cached code of a changed kernel module must not be reused
+drop_stale_caches([kernels, construct, azp, anneal, tabu, mergesplit])
+
+from zonedesign.search.engine import Solution, solve  # noqa: E402
+from zonedesign.search.state import ZoneState  # noqa: E402
 
 __all__ = ["Solution", "ZoneState", "solve"]

@@ -3,7 +3,9 @@
 A move that raises the bound breaks is never taken; one that lowers them always is; any
 other is taken by the Metropolis rule on the objective change at the current temperature.
 The temperature falls geometrically, one block of moves per temperature. The best
-labelling seen is kept (copied lazily: only when the search is about to leave it).
+labelling seen is kept without copying the labels at every new best: the moves made since
+the last best are logged and replayed onto the kept copy when a new best is reached (or,
+after more than n moves, the whole labelling is copied then).
 """
 
 from __future__ import annotations
@@ -26,7 +28,7 @@ from zonedesign.search.kernels import (
 
 # slots of the int control array shared by the annealing and tabu kernels
 CT_CUR_BEST = 0  # 1 when the current labelling is the best seen
-CT_SAVED = 1  # 1 when best_labels holds the best seen
+CT_LOG = 1  # moves logged since best_labels was last brought up to date (-1: too many)
 CT_TRIED = 2
 CT_ACCEPTED = 3
 CT_CHANGED = 4  # accepted moves that changed breaks or objective
@@ -69,36 +71,46 @@ def sample_uphill(st, seed, nsamp):
 
 
 @njit(cache=True)
-def keep_best(st, db, do, best_labels, ctl, cti):
-    """Before leaving the current labelling: save it if it is the best seen and unsaved.
-
-    Returns True when the move (db, do) about to be made yields a new best.
-    """
-    newbest = key_less(st.fv[FV_BRK] + db, st.fv[FV_TOTAL] + do, ctl[0], ctl[1])
-    if cti[CT_CUR_BEST] == 1 and cti[CT_SAVED] == 0 and not newbest:
-        for u in range(best_labels.shape[0]):
-            best_labels[u] = st.labels[u]
-        cti[CT_SAVED] = 1
-    return newbest
+def is_new_best(st, db, do, ctl):
+    """The move (db, do) about to be made beats the best labelling seen."""
+    return key_less(st.fv[FV_BRK] + db, st.fv[FV_TOTAL] + do, ctl[0], ctl[1])
 
 
 @njit(cache=True)
-def note_best(st, newbest, ctl, cti):
+def log_move(st, i, b, newbest, best_labels, log, ctl, cti):
+    """Book the move just made (unit i into zone b); on a new best, update best_labels."""
+    nl = cti[CT_LOG]
+    if nl >= 0:
+        if nl < log.shape[0]:
+            log[nl, 0] = i
+            log[nl, 1] = b
+            cti[CT_LOG] = nl + 1
+        else:
+            cti[CT_LOG] = -1
     if newbest:
+        nl = cti[CT_LOG]
+        if nl >= 0:
+            for k in range(nl):
+                best_labels[log[k, 0]] = log[k, 1]
+        else:
+            labels = st.labels
+            for u in range(best_labels.shape[0]):
+                best_labels[u] = labels[u]
+        cti[CT_LOG] = 0
         ctl[0] = st.fv[FV_BRK]
         ctl[1] = st.fv[FV_TOTAL]
         cti[CT_CUR_BEST] = 1
-        cti[CT_SAVED] = 0
         cti[CT_IMPROVED] += 1
     else:
         cti[CT_CUR_BEST] = 0
 
 
 @njit(cache=True)
-def anneal_block(st, seed, temp, nmoves, best_labels, ctl, cti):
+def anneal_block(st, seed, temp, nmoves, best_labels, log, ctl, cti):
     """nmoves Metropolis trials at temperature temp.
 
-    ctl: [best breaks, best total]; cti: control counters (CT_*); best_labels: (n,).
+    ctl: [best breaks, best total]; cti: control counters (CT_*); best_labels: (n,) the
+    best labelling seen, as of the last new best; log: (n, 2) moves since.
     """
     labels = st.labels
     size = st.size
@@ -133,9 +145,9 @@ def anneal_block(st, seed, temp, nmoves, best_labels, ctl, cti):
                 continue
         if not donor_ok(st, i):
             continue
-        newbest = keep_best(st, db, do, best_labels, ctl, cti)
+        newbest = is_new_best(st, db, do, ctl)
         apply_move(st, i, b, la, lb)
         cti[CT_ACCEPTED] += 1
         if db < -EPS_BRK or abs(do) > EPS_OBJ:
             cti[CT_CHANGED] += 1
-        note_best(st, newbest, ctl, cti)
+        log_move(st, i, b, newbest, best_labels, log, ctl, cti)

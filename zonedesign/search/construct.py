@@ -28,10 +28,11 @@ from zonedesign.search.kernels import (
 
 
 @njit(cache=True)
-def grow_zones(st, seed, alpha, beta, labels, k0, aim_lo, aim_hi):
+def grow_zones(st, seed, alpha, beta, labels, units, k0, aim_lo, aim_hi):
     """Region growing over the units labelled -1; returns the number of zones k made.
 
-    Units with another label stay as they are and are never entered. New zones get ids
+    Seeds are drawn in random order from `units` (those still labelled -1). Units with
+    another label stay as they are and are never entered. New zones get ids
     k0..k0+k-1; units of zones that missed a floor are left at -1 (enclaves). Each zone
     grows towards an aim drawn between aim_lo and aim_hi times the target (1, 1 for the
     target itself).
@@ -62,7 +63,12 @@ def grow_zones(st, seed, alpha, beta, labels, k0, aim_lo, aim_hi):
     flen = np.zeros(n)
     fmark = np.full(n, -1, dtype=np.int64)
     mem = np.empty(n, dtype=np.int64)
-    perm = np.random.permutation(n)
+    perm = units.copy()
+    for t in range(perm.shape[0] - 1, 0, -1):
+        r = np.random.randint(t + 1)
+        tmp = perm[t]
+        perm[t] = perm[r]
+        perm[r] = tmp
     k = k0
     stamp = 0
     aim = 0.0

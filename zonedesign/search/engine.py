@@ -255,12 +255,13 @@ def _construct(run: _Run, rounds: int) -> tuple[np.ndarray, int]:
     beta = 1.0 if tw.get("compactness", 0.0) > 0 or alpha == 0.0 else 0.0
     n = state.problem.n
     labels = np.empty(n, dtype=np.int64)
+    everyone = np.arange(n, dtype=np.int64)
     best = None
     best_key = None
     tried = 0
     for _ in range(rounds):
         labels[:] = -1
-        grow_zones(st, run.seed(), alpha, beta, labels, 0, 1.0, 1.0)
+        grow_zones(st, run.seed(), alpha, beta, labels, everyone, 0, 1.0, 1.0)
         state.load(labels)
         absorb_enclaves(st, run.seed())
         tried += 1
@@ -308,12 +309,14 @@ def _improve(run: _Run) -> None:
         _descent(run)
 
 
-def _search_control(state: ZoneState) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _search_control(state: ZoneState) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Best labelling (the current one), its move log, best key and counters."""
     brk, tot = state.running_key()
     ctl = np.array([brk, tot, 0.0, 0.0])
     cti = np.zeros(CT_SIZE, dtype=np.int64)
     cti[CT_CUR_BEST] = 1
-    return state.labels(), ctl, cti
+    log = np.zeros((state.problem.n, 2), dtype=np.int64)
+    return state.labels(), log, ctl, cti
 
 
 def _back_to_best(run: _Run, best: np.ndarray, cti: np.ndarray) -> None:
@@ -332,7 +335,7 @@ def _anneal(run: _Run) -> None:
     state = run.state
     st = state.st
     n = state.problem.n
-    best, ctl, cti = _search_control(state)
+    best, log, ctl, cti = _search_control(state)
     uphill = float(sample_uphill(st, run.seed(), max(MIN_WORK, min(20 * n, 5000))))
     if uphill <= 0.0:
         return
@@ -346,7 +349,7 @@ def _anneal(run: _Run) -> None:
     while done < budget and not run.out_of_time():
         block = min(per_temp, budget - done)
         changed0, improved0 = cti[CT_CHANGED], cti[CT_IMPROVED]
-        anneal_block(st, run.seed(), temp, block, best, ctl, cti)
+        anneal_block(st, run.seed(), temp, block, best, log, ctl, cti)
         done += block
         temps += 1
         quiet = cti[CT_CHANGED] - changed0 <= block // 500 and cti[CT_IMPROVED] == improved0
@@ -363,7 +366,7 @@ def _tabu(run: _Run) -> None:
     state = run.state
     st = state.st
     n = state.problem.n
-    best, ctl, cti = _search_control(state)
+    best, log, ctl, cti = _search_control(state)
     no_improve = int(run.rules.max_no_improve) or max(MIN_WORK, TABU_NO_IMPROVE * n)
     max_iter = TABU_MAX_ITER * no_improve
     tabu_zone = np.full(n, -1, dtype=np.int64)
@@ -374,7 +377,7 @@ def _tabu(run: _Run) -> None:
         block = min(BLOCK, max_iter - it)
         it = int(
             tabu_block(
-                st, run.seed(), it, block, TABU_SAMPLE, tenure, no_improve, tabu_zone, tabu_until, best, ctl, cti
+                st, run.seed(), it, block, TABU_SAMPLE, tenure, no_improve, tabu_zone, tabu_until, best, log, ctl, cti
             )
         )
     run.info["tabu_iterations"] = int(cti[CT_ACCEPTED])
@@ -427,7 +430,7 @@ def _reshape(run: _Run) -> None:
         if K.is_less(after[0], after[1], before[0], before[1]):
             kept += 1
         else:
-            state.load(labels, anchors)
+            state.restore(labels, anchors)
     run.info["moves_tried"] += int(stats[0])
     run.info["moves_accepted"] += int(stats[1])
     run.info["reshapes"] = kept
@@ -436,7 +439,7 @@ def _reshape(run: _Run) -> None:
 def _regrow(run: _Run, g, labels: np.ndarray, anchors: np.ndarray, a: int) -> np.ndarray | None:
     """Dissolve zone a and up to REGROW_NEIGHBOURS neighbours and grow them again.
 
-    Returns the slots of the zones grown (the state is loaded with the new labelling).
+    Returns the slots of the zones grown.
     """
     state = run.state
     n = labels.shape[0]
@@ -446,21 +449,23 @@ def _regrow(run: _Run, g, labels: np.ndarray, anchors: np.ndarray, a: int) -> np
     near = near[near != a]
     if near.size > REGROW_NEIGHBOURS:
         near = run.rng.choice(near, REGROW_NEIGHBOURS, replace=False)
-    region = np.isin(labels, np.concatenate([[a], near]))
+    old = np.concatenate([[a], near]).astype(np.int64)
+    region = np.flatnonzero(np.isin(labels, old))
     work = labels.copy()
     work[region] = -1
     tw = state.problem.term_weights
     alpha = 1.0 if tw.get("homogeneity", 0.0) > 0 else 0.0
     beta = 1.0 if tw.get("compactness", 0.0) > 0 or alpha == 0.0 else 0.0
-    made = int(grow_zones(state.st, run.seed(), alpha, beta, work, n, REGROW_AIM[0], REGROW_AIM[1]))
+    made = int(grow_zones(state.st, run.seed(), alpha, beta, work, region, n, REGROW_AIM[0], REGROW_AIM[1]))
     if made == 0:
         return None
-    # new zones take free slots; they are new zones for stability (anchor -1)
-    free = np.setdiff1d(np.arange(n), np.unique(work[(work >= 0) & (work < n)]))[:made]
+    # new zones take the dissolved zones' slots, then free ones; they are new zones for
+    # stability (anchor -1)
+    slots = np.concatenate([old, np.flatnonzero(state.zones.size == 0)])[:made]
     grown = work >= n
-    work[grown] = free[work[grown] - n]
+    work[grown] = slots[work[grown] - n]
     new_anchors = anchors.copy()
-    new_anchors[free] = -1
-    state.load(work, new_anchors)
+    new_anchors[slots] = -1
+    K.relabel(state.st, region, work, new_anchors, slots)
     absorb_enclaves(state.st, run.seed())
-    return free.astype(np.int64)
+    return slots

@@ -244,22 +244,21 @@ def new_state(d: Data, z: Zones) -> State:
 
 
 # ---------------------------------------------------------------- small helpers
-# (inlined into their callers: fewer compiled functions, quicker first compile)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def better(db, do):
     """A change (break change db, objective change do) that is a strict improvement."""
     return db < -EPS_BRK or (db <= EPS_BRK and do < -EPS_OBJ)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def key_less(b1, t1, b2, t2):
     """(b1, t1) strictly before (b2, t2), breaks first."""
     return b1 < b2 - EPS_BRK or (b1 <= b2 + EPS_BRK and t1 < t2 - EPS_OBJ)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def dist(x, i, j):
     s = 0.0
     for t in range(x.shape[1]):
@@ -268,7 +267,7 @@ def dist(x, i, j):
     return np.sqrt(s)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def link(st, i, zone):
     head = st.head
     h = head[zone]
@@ -279,7 +278,7 @@ def link(st, i, zone):
     head[zone] = i
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def unlink(st, i, zone):
     nxt = st.nxt
     prv = st.prv
@@ -295,7 +294,7 @@ def unlink(st, i, zone):
     prv[i] = -1
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def boundary_status(st, j):
     """Put j on the boundary list when it has a neighbour in another zone, else take it off."""
     bpos = st.bpos
@@ -317,7 +316,7 @@ def boundary_status(st, j):
         iv[IV_NB] = nb
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def pop_free(st):
     nf = st.iv[IV_NFREE] - 1
     st.iv[IV_NFREE] = nf
@@ -326,7 +325,7 @@ def pop_free(st):
     return zone
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def push_free(st, zone):
     st.free[st.iv[IV_NFREE]] = zone
     st.iv[IV_NFREE] += 1
@@ -446,7 +445,7 @@ def stored_value(st, zone):
 # ---------------------------------------------------------------- boundary
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def recount(st, j):
     """Recount j's neighbours in other zones and update the boundary list."""
     indptr = st.indptr
@@ -605,6 +604,63 @@ def build_state(st, labels, anchors):
         st.bpos[i] = -1
     for i in range(n):
         recount(st, i)
+
+
+@njit(cache=True)
+def relabel(st, units, new_labels, anchors, zones):
+    """Give each unit u of `units` the label new_labels[u] (-1: unassigned).
+
+    Every zone that gains or loses a unit, and every zone listed in `zones`, takes its
+    anchor from anchors (K,) and is recomputed from its members; the free stack and the
+    boundary are brought up to date. Cost: the sizes of the zones touched, not the whole
+    problem.
+    """
+    labels = st.labels
+    zmark = st.zmark
+    ztouch = st.ztouch
+    st.iv[IV_ZSTAMP] += 1
+    stamp = st.iv[IV_ZSTAMP]
+    nt = 0
+    for k in range(zones.shape[0]):
+        z = zones[k]
+        if z >= 0 and zmark[z] != stamp:
+            zmark[z] = stamp
+            ztouch[nt] = z
+            nt += 1
+    for k in range(units.shape[0]):
+        u = units[k]
+        old = labels[u]
+        new = new_labels[u]
+        if old == new:
+            continue
+        for z in (old, new):
+            if z >= 0 and zmark[z] != stamp:
+                zmark[z] = stamp
+                ztouch[nt] = z
+                nt += 1
+        if old >= 0:
+            unlink(st, u, old)
+        if new >= 0:
+            link(st, u, new)
+        labels[u] = new
+    for k in range(nt):
+        z = ztouch[k]
+        st.anchor[z] = anchors[z]
+        recompute_zone(st, z)
+    nf = 0
+    size = st.size
+    for z in range(size.shape[0] - 1, -1, -1):
+        if size[z] == 0:
+            st.free[nf] = z
+            nf += 1
+    st.iv[IV_NFREE] = nf
+    indptr = st.indptr
+    indices = st.indices
+    for k in range(units.shape[0]):
+        u = units[k]
+        recount(st, u)
+        for p in range(indptr[u], indptr[u + 1]):
+            recount(st, indices[p])
 
 
 # ---------------------------------------------------------------- single-unit moves

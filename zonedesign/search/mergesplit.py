@@ -42,7 +42,7 @@ N_EXACT = 8  # cuts priced exactly per tree when the pairwise term needs the mem
 # ---------------------------------------------------------------- merge
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def zone_neighbours(st, a):
     """Zones adjacent to a: st.ztouch[:nt] with shared length in st.zacc; returns nt."""
     indptr = st.indptr
@@ -235,15 +235,7 @@ def merge_delta(st, a, b):
 # ---------------------------------------------------------------- split
 
 
-@njit(cache=True, inline="always")
-def part_value(st, s, npos, W, Svec, Q, H, A, P, ns):
-    Ssq = 0.0
-    for t in range(Svec.shape[0]):
-        Ssq += Svec[t] * Svec[t]
-    return zone_value(st, s, npos, W, Ssq, Q, H, A, P, ns)
-
-
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def pair_sum(x, mem, part, side):
     """Pairwise distance sum over members whose part flag equals side."""
     m = mem.shape[0]
@@ -257,9 +249,10 @@ def pair_sum(x, mem, part, side):
     return h
 
 
-@njit(cache=True, inline="always")
-def mark_part(order, parent, k, part, m):
+@njit(cache=True)
+def mark_part(order, parent, k, part):
     """part[p] = 1 for the subtree below order[k] (parents precede children in order)."""
+    m = part.shape[0]
     for p in range(m):
         part[p] = 0
     part[order[k]] = 1
@@ -270,32 +263,142 @@ def mark_part(order, parent, k, part, m):
 
 
 @njit(cache=True)
+def random_tree(st, zone, mem, loc, parent, depth, order):
+    """A random spanning tree of zone over local indices: grown from a random root by
+    taking frontier units at random. Returns the number of units reached."""
+    indptr = st.indptr
+    indices = st.indices
+    labels = st.labels
+    m = mem.shape[0]
+    state = np.zeros(m, dtype=np.int64)  # 2: in the tree, 1: on the frontier
+    fr = np.empty(m, dtype=np.int64)
+    r = np.random.randint(m)
+    state[r] = 2
+    parent[r] = -1
+    depth[r] = 0
+    order[0] = r
+    cnt = 1
+    nf = 0
+    v = r
+    while True:
+        uu = mem[v]
+        for p in range(indptr[uu], indptr[uu + 1]):
+            w = indices[p]
+            if labels[w] != zone:
+                continue
+            lw = loc[w]
+            if state[lw] == 0:
+                state[lw] = 1
+                parent[lw] = v
+                fr[nf] = lw
+                nf += 1
+        if nf == 0:
+            break
+        q = np.random.randint(nf)
+        v = fr[q]
+        fr[q] = fr[nf - 1]
+        nf -= 1
+        state[v] = 2
+        depth[v] = depth[parent[v]] + 1
+        order[cnt] = v
+        cnt += 1
+    return cnt
+
+
+@njit(cache=True)
+def subtree_sums(st, zone, mem, loc, parent, depth, order, sv, si):
+    """Per tree node, the sums over its subtree, packed.
+
+    sv columns: counts (c), weighted attributes (a), then weight, w||x||^2, area, unit
+    perimeters, boundary with the rest of the zone, internal boundary. si columns: units
+    with positive weight, units off the zone's anchor, units with a previous zone. The
+    internal boundary of a subtree is found by booking each zone edge at the lowest
+    common ancestor of its ends.
+    """
+    indptr = st.indptr
+    indices = st.indices
+    length = st.length
+    labels = st.labels
+    x = st.x
+    w = st.w
+    nc = st.counts.shape[1]
+    na = x.shape[1]
+    anc = st.anchor[zone]
+    m = mem.shape[0]
+    for p in range(m):
+        u = mem[p]
+        for c in range(nc):
+            sv[p, c] = st.counts[u, c]
+        for t in range(na):
+            sv[p, nc + t] = w[u] * x[u, t]
+        base = nc + na
+        sv[p, base] = w[u]
+        sv[p, base + 1] = st.q[u]
+        sv[p, base + 2] = st.area[u]
+        sv[p, base + 3] = st.perim[u]
+        sv[p, base + 4] = 0.0
+        sv[p, base + 5] = 0.0
+        si[p, 0] = 1 if w[u] > 0.0 else 0
+        si[p, 1] = 1 if st.prev[u] != anc else 0
+        si[p, 2] = 1 if st.prev[u] != -1 else 0
+    deg = nc + na + 4
+    inner = nc + na + 5
+    for p in range(m):
+        u = mem[p]
+        for e in range(indptr[u], indptr[u + 1]):
+            v = indices[e]
+            if labels[v] != zone:
+                continue
+            sv[p, deg] += length[e]
+            if v < u:
+                continue
+            x1 = p
+            x2 = loc[v]
+            while x1 != x2:
+                if depth[x1] >= depth[x2]:
+                    x1 = parent[x1]
+                else:
+                    x2 = parent[x2]
+            sv[x1, inner] += length[e]
+    for k in range(m - 1, 0, -1):
+        v = order[k]
+        pv = parent[v]
+        for col in range(sv.shape[1]):
+            sv[pv, col] += sv[v, col]
+        for col in range(si.shape[1]):
+            si[pv, col] += si[v, col]
+
+
+@njit(cache=True)
+def packed_value(st, row, npos, ns, perimeter):
+    """(cost, break) of a part from a packed row of subtree sums (see subtree_sums)."""
+    nc = st.counts.shape[1]
+    na = st.x.shape[1]
+    Ssq = 0.0
+    for t in range(na):
+        Ssq += row[nc + t] * row[nc + t]
+    base = nc + na
+    return zone_value(st, row[:nc], npos, row[base], Ssq, row[base + 1], 0.0, row[base + 2], perimeter, ns)
+
+
+@njit(cache=True)
 def try_split(st, zone, ntrees, loc, force):
     """Cut zone in two along the best edge of ntrees random spanning trees.
 
     Makes the cut when it improves (breaks, objective), or always when force is set.
     Returns the new zone's slot, or -1. loc: (n,) int64 scratch.
     """
-    indptr = st.indptr
-    indices = st.indices
-    length = st.length
-    labels = st.labels
-    counts = st.counts
-    wt = st.w
-    x = st.x
-    qq = st.q
-    area = st.area
-    perim = st.perim
-    prev = st.prev
-    nxt = st.nxt
     m = st.size[zone]
     if m < 2:
         return -1
-    nc = st.csum.shape[1]
-    na = st.S.shape[1]
+    nc = st.counts.shape[1]
+    na = st.x.shape[1]
+    width = nc + na + 6
+    per_col = nc + na + 3
+    deg_col = nc + na + 4
+    int_col = nc + na + 5
     stab = st.kind[2] == 1
     pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
-    anc = st.anchor[zone]
     one = np.int64(1)
     zero = np.int64(0)
     mem = np.empty(m, dtype=np.int64)
@@ -303,30 +406,15 @@ def try_split(st, zone, ntrees, loc, force):
     for p in range(m):
         mem[p] = u
         loc[u] = p
-        u = nxt[u]
-    # per-member values, summed up each tree afterwards
-    sc = np.empty((m, nc))
-    sS = np.empty((m, na))
-    sW = np.empty(m)
-    snp = np.empty(m, dtype=np.int64)
-    sQ = np.empty(m)
-    sA = np.empty(m)
-    sper = np.empty(m)
-    sdeg = np.empty(m)
-    sint = np.empty(m)
-    sstA = np.empty(m, dtype=np.int64)
-    sstN = np.empty(m, dtype=np.int64)
+        u = st.nxt[u]
+    sv = np.empty((m, width))
+    si = np.empty((m, 3), dtype=np.int64)
+    rest = np.empty(width)
     parent = np.empty(m, dtype=np.int64)
     depth = np.empty(m, dtype=np.int64)
     order = np.empty(m, dtype=np.int64)
-    intree = np.zeros(m, dtype=np.int64)
-    fr = np.empty(m, dtype=np.int64)
     part = np.zeros(m, dtype=np.int64)
     best_part = np.zeros(m, dtype=np.int64)
-    tot_c = np.empty(nc)
-    tot_S = np.empty(na)
-    yc = np.empty(nc)
-    yS = np.empty(na)
     cand_t = np.empty(N_EXACT, dtype=np.int64)
     cand_o = np.empty(N_EXACT, dtype=np.int64)
     cand_db = np.empty(N_EXACT)
@@ -336,96 +424,11 @@ def try_split(st, zone, ntrees, loc, force):
     gdo = 0.0
     gkeep_x = 0
     for _tree in range(ntrees):
-        # random spanning tree: grow from a random root, taking frontier units at random
-        for p in range(m):
-            intree[p] = 0
-        r = np.random.randint(m)
-        intree[r] = 2  # 2: in the tree, 1: on the frontier
-        parent[r] = -1
-        depth[r] = 0
-        order[0] = r
-        cnt = 1
-        nf = 0
-        v = r
-        while True:
-            uu = mem[v]
-            for p in range(indptr[uu], indptr[uu + 1]):
-                w = indices[p]
-                if labels[w] != zone:
-                    continue
-                lw = loc[w]
-                if intree[lw] == 0:
-                    intree[lw] = 1
-                    parent[lw] = v
-                    fr[nf] = lw
-                    nf += 1
-            if nf == 0:
-                break
-            q = np.random.randint(nf)
-            v = fr[q]
-            fr[q] = fr[nf - 1]
-            nf -= 1
-            intree[v] = 2
-            depth[v] = depth[parent[v]] + 1
-            order[cnt] = v
-            cnt += 1
-        if cnt < m:
+        if random_tree(st, zone, mem, loc, parent, depth, order) < m:
             return -1  # the zone is not connected; splitting is not defined
-        for p in range(m):
-            uu = mem[p]
-            for c in range(nc):
-                sc[p, c] = counts[uu, c]
-            wu = wt[uu]
-            for t in range(na):
-                sS[p, t] = wu * x[uu, t]
-            sW[p] = wu
-            snp[p] = 1 if wu > 0.0 else 0
-            sQ[p] = qq[uu]
-            sA[p] = area[uu]
-            sper[p] = perim[uu]
-            sstA[p] = 1 if prev[uu] != anc else 0
-            sstN[p] = 1 if prev[uu] != -1 else 0
-            sdeg[p] = 0.0
-            sint[p] = 0.0
-        # internal boundary: each zone edge counts at the lowest common ancestor of its ends
-        for p in range(m):
-            uu = mem[p]
-            for e in range(indptr[uu], indptr[uu + 1]):
-                w = indices[e]
-                if labels[w] != zone:
-                    continue
-                sdeg[p] += length[e]
-                if w < uu:
-                    continue
-                x1 = p
-                x2 = loc[w]
-                while x1 != x2:
-                    if depth[x1] >= depth[x2]:
-                        x1 = parent[x1]
-                    else:
-                        x2 = parent[x2]
-                sint[x1] += length[e]
-        for k in range(m - 1, 0, -1):
-            v = order[k]
-            pv = parent[v]
-            for c in range(nc):
-                sc[pv, c] += sc[v, c]
-            for t in range(na):
-                sS[pv, t] += sS[v, t]
-            sW[pv] += sW[v]
-            snp[pv] += snp[v]
-            sQ[pv] += sQ[v]
-            sA[pv] += sA[v]
-            sper[pv] += sper[v]
-            sdeg[pv] += sdeg[v]
-            sint[pv] += sint[v]
-            sstA[pv] += sstA[v]
-            sstN[pv] += sstN[v]
-        for c in range(nc):
-            tot_c[c] = sc[r, c]
-        for t in range(na):
-            tot_S[t] = sS[r, t]
-        p_tot = sper[r] - 2.0 * sint[r]
+        subtree_sums(st, zone, mem, loc, parent, depth, order, sv, si)
+        r = order[0]
+        p_tot = sv[r, per_col] - 2.0 * sv[r, int_col]
         ncand = 0
         tdb = 0.0
         tdo = 0.0
@@ -433,72 +436,63 @@ def try_split(st, zone, ntrees, loc, force):
         tkeep_x = 0
         for k in range(1, m):
             v = order[k]
-            for c in range(nc):
-                yc[c] = tot_c[c] - sc[v, c]
-            for t in range(na):
-                yS[t] = tot_S[t] - sS[v, t]
-            px = sper[v] - 2.0 * sint[v]
-            cut = sdeg[v] - 2.0 * sint[v]
+            for col in range(width):
+                rest[col] = sv[r, col] - sv[v, col]
+            px = sv[v, per_col] - 2.0 * sv[v, int_col]
+            cut = sv[v, deg_col] - 2.0 * sv[v, int_col]
             py = p_tot + 2.0 * cut - px
-            for keep_x in range(2):
-                if keep_x == 1 and not stab:
-                    continue
-                if keep_x == 1:
-                    nsx = sstA[v]
-                    nsy = sstN[r] - sstN[v]
-                else:
-                    nsx = sstN[v]
-                    nsy = sstA[r] - sstA[v]
-                if not stab:
-                    nsx = 0
-                    nsy = 0
-                cx, kx = part_value(st, sc[v], snp[v], sW[v], sS[v], sQ[v], 0.0, sA[v], px, nsx)
-                cy, ky = part_value(
-                    st, yc, snp[r] - snp[v], sW[r] - sW[v], yS, sQ[r] - sQ[v], 0.0, sA[r] - sA[v], py, nsy
-                )
+            for keep_x in range(2 if stab else 1):
+                # the part that keeps the anchor counts units off it; the other, a new
+                # zone, counts every unit that had a previous zone
+                nsx = 0
+                nsy = 0
+                if stab and keep_x == 1:
+                    nsx = si[v, 1]
+                    nsy = si[r, 2] - si[v, 2]
+                elif stab:
+                    nsx = si[v, 2]
+                    nsy = si[r, 1] - si[v, 1]
+                cx, kx = packed_value(st, sv[v], si[v, 0], nsx, px)
+                cy, ky = packed_value(st, rest, si[r, 0] - si[v, 0], nsy, py)
                 db = (kx + ky) - st.brk[zone]
                 do = (cx + cy) - st.cost[zone]
                 if pairwise:
                     # keep the N_EXACT best by everything but the pairwise term
+                    slot = -1
                     if ncand < N_EXACT:
                         slot = ncand
                         ncand += 1
                     else:
-                        slot = -1
                         for s in range(N_EXACT):
                             if key_less(db, do, cand_db[s], cand_do[s]) and (
                                 slot < 0 or key_less(cand_db[slot], cand_do[slot], cand_db[s], cand_do[s])
                             ):
                                 slot = s
-                        if slot < 0:
-                            continue
-                    cand_t[slot] = k
-                    cand_o[slot] = keep_x
-                    cand_db[slot] = db
-                    cand_do[slot] = do
+                    if slot >= 0:
+                        cand_t[slot] = k
+                        cand_o[slot] = keep_x
+                        cand_db[slot] = db
+                        cand_do[slot] = do
                 elif tt < 0 or key_less(db, do, tdb, tdo):
                     tt = k
                     tdb = db
                     tdo = do
                     tkeep_x = keep_x
-        if pairwise:
-            for s in range(ncand):
-                mark_part(order, parent, cand_t[s], part, m)
-                hx = pair_sum(x, mem, part, one)
-                hy = pair_sum(x, mem, part, zero)
-                # the pairwise term enters through H; the other terms were priced already
-                do = cand_do[s] + st.coef[1] * (hx + hy)
-                if tt < 0 or key_less(cand_db[s], do, tdb, tdo):
-                    tt = cand_t[s]
-                    tdb = cand_db[s]
-                    tdo = do
-                    tkeep_x = cand_o[s]
+        for s in range(ncand):
+            mark_part(order, parent, cand_t[s], part)
+            # the pairwise term enters through H; the other terms were priced already
+            do = cand_do[s] + st.coef[1] * (pair_sum(st.x, mem, part, one) + pair_sum(st.x, mem, part, zero))
+            if tt < 0 or key_less(cand_db[s], do, tdb, tdo):
+                tt = cand_t[s]
+                tdb = cand_db[s]
+                tdo = do
+                tkeep_x = cand_o[s]
         if tt >= 0 and (not have or key_less(tdb, tdo, gdb, gdo)):
             have = True
             gdb = tdb
             gdo = tdo
             gkeep_x = tkeep_x
-            mark_part(order, parent, tt, part, m)
+            mark_part(order, parent, tt, part)
             for p in range(m):
                 best_part[p] = part[p]
     if not have or not (force != 0 or better(gdb, gdo)):

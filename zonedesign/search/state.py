@@ -101,6 +101,15 @@ class ZoneState:
         anchors = np.zeros(0, dtype=np.int64) if anchors is None else np.ascontiguousarray(anchors, dtype=np.int64)
         K.build_state(self.st, labels, anchors)
 
+    def restore(self, labels: np.ndarray, anchors: np.ndarray) -> None:
+        """Go back to an earlier labelling (slots) and anchors, touching only what changed."""
+        labels = np.ascontiguousarray(labels, dtype=np.int64)
+        anchors = np.ascontiguousarray(anchors, dtype=np.int64)
+        changed = np.flatnonzero(self.zones.labels != labels)
+        # a zone may have kept its members but not its anchor
+        moved_anchor = np.flatnonzero(self.zones.anchor != anchors)
+        K.relabel(self.st, changed, labels, anchors, moved_anchor)
+
     def resync(self) -> None:
         """Recompute every zone's sums from its members (drops float drift)."""
         self.load(self.zones.labels.copy(), self.zones.anchor.copy())

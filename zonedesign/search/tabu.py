@@ -17,8 +17,8 @@ from zonedesign.search.anneal import (
     CT_ACCEPTED,
     CT_NO_IMPROVE,
     CT_TRIED,
-    keep_best,
-    note_best,
+    is_new_best,
+    log_move,
 )
 from zonedesign.search.kernels import (
     EPS_BRK,
@@ -36,13 +36,13 @@ from zonedesign.search.kernels import (
 
 @njit(cache=True)
 def tabu_block(
-    st, seed, it0, niter, sample, tenure, max_no_improve, tabu_zone, tabu_until, best_labels, ctl, cti
+    st, seed, it0, niter, sample, tenure, max_no_improve, tabu_zone, tabu_until, best_labels, log, ctl, cti
 ):
     """Run iterations it0 .. it0+niter-1; returns the next iteration, or -1 when stopped.
 
     Stops (returns -1) when no admissible move remains or after max_no_improve iterations
     without a new best. tabu_zone / tabu_until: (n,) the zone each unit may not re-enter
-    and the iteration that ban ends.
+    and the iteration that ban ends. best_labels, log, ctl, cti as for anneal_block.
     """
     labels = st.labels
     size = st.size
@@ -103,12 +103,12 @@ def tabu_block(
         if bi < 0:
             return -1
         a = labels[bi]
-        newbest = keep_best(st, bdb, bdo, best_labels, ctl, cti)
+        newbest = is_new_best(st, bdb, bdo, ctl)
         apply_move(st, bi, bb, bla, blb)
         cti[CT_ACCEPTED] += 1
         tabu_zone[bi] = a
         tabu_until[bi] = it + tenure
-        note_best(st, newbest, ctl, cti)
+        log_move(st, bi, bb, newbest, best_labels, log, ctl, cti)
         if newbest:
             cti[CT_NO_IMPROVE] = 0
         else:

@@ -4,11 +4,12 @@ A hierarchy handed over as polygon layers (one per tier) instead of a lookup is 
 one: each area goes to the zone holding the largest share of its area. Two things are
 flagged, with the tolerance stated in every flag:
 
-- area-split: an area shared between zones of one tier beyond the tolerance share
-  (area id, zones, shares); also an area that no zone covers beyond the tolerance;
+- area-split: an area of which zones other than its own hold more than the tolerance
+  share, or of which more than the tolerance lies in no zone (area id, zones, shares);
 - zone-boundary: a zone whose boundary does not follow area boundaries, seen from the zone
-  side: more than the tolerance share of the zone lies in areas given to other zones, or
-  outside every area.
+  side: it holds more than the tolerance share of an area but not all of it (the areas it
+  cuts, with the share of each inside the zone), or more than the tolerance share of the
+  zone lies outside every area.
 """
 
 from __future__ import annotations
@@ -84,7 +85,7 @@ def zones_from_layers(
             shares = group["share"].to_numpy()
             zones = group["zone"].tolist()
             outside = 1.0 - shares.sum()
-            if 1.0 - shares[0] > tol:
+            if shares[1:].sum() > tol or outside > tol:
                 flags.append(
                     {
                         "kind": "area-split",
@@ -114,19 +115,18 @@ def zones_from_layers(
                 }
             )
 
-        # the zone side: the part of each zone lying in areas given to other zones
+        # the zone side: a zone cuts an area when it holds more than the tolerance of it
+        # but not all of it; a zone may also reach beyond every area
         z_area = pd.Series(shapely.area(zgeom)).groupby(zid).sum()
-        pairs["assigned"] = lab[pairs["area"].to_numpy()]
         for z, group in pairs.groupby("zone", sort=True):
             total = float(z_area[z])
             if total <= 0:
                 continue
-            foreign = group[group["assigned"] != z]
-            within = float(group["overlap"].sum())
-            cut_share = float(foreign["overlap"].sum()) / total
-            outside_share = max(total - within, 0.0) / total
-            if cut_share > tol or outside_share > tol:
-                cut = foreign.sort_values("overlap", ascending=False)
+            cut = group[(group["share"] > tol) & (group["share"] < 1.0 - tol)]
+            cut = cut.sort_values("share", ascending=False, kind="stable")
+            outside_share = max(total - float(group["overlap"].sum()), 0.0) / total
+            if len(cut) or outside_share > tol:
+                listed = ", ".join(f"{ids[a]} {s:.1%}" for a, s in zip(cut["area"][:5], cut["share"][:5]))
                 flags.append(
                     {
                         "kind": "zone-boundary",
@@ -134,13 +134,11 @@ def zones_from_layers(
                         "zone": z,
                         "areas": [ids[a] for a in cut["area"]],
                         "shares": [round(float(s), 6) for s in cut["share"]],
-                        "foreign_share": round(cut_share, 6),
                         "outside_share": round(outside_share, 6),
                         "tolerance_share": tol,
-                        "message": f"zone {z} of tier {tier} does not follow area boundaries: "
-                        f"{cut_share:.1%} of it lies in areas given to other zones"
-                        + (f" ({', '.join(ids[a] for a in cut['area'][:5])})" if len(cut) else "")
-                        + (f", {outside_share:.1%} outside every area" if outside_share > tol else "")
+                        "message": f"zone {z} of tier {tier} does not follow area boundaries"
+                        + (f": it cuts {len(cut)} area{'s' if len(cut) > 1 else ''} ({listed})" if len(cut) else "")
+                        + (f"; {outside_share:.1%} of it lies outside every area" if outside_share > tol else "")
                         + f" (tolerance {tol:.1%})",
                     }
                 )

@@ -18,8 +18,15 @@ would first move it at tier 1 and then move its new tier-1 zone again. Per tier 
   each tier-t zone's areas share one tier-(t+1) zone.
 
 Areas linked through overlapping regions form one cluster; clusters are independent
-models. Minimality holds within these regions and, on regions with many zones, within
-each area's nearby zones (its own, those within two steps, and the new ones).
+models. Each cluster is solved in stages: first only areas within 1, 2, 4, 8 steps of the
+offending areas (the detached part of a zone, the areas across a fence or under the wrong
+parent, a zone outside its bounds, areas without a zone) may move, the rest of each
+region zone held as fixed pieces; then the whole region. The fewest moves found is kept.
+"optimal" means proven fewest over the whole region; when the region is too large to
+prove (more than `max_units` movable units on a tier, or out of time), the result is
+"feasible" and the reason says within how many steps the count is proven fewest. On
+regions with many zones a unit may only move to zones near it (its own, those within two
+steps, and the new ones).
 """
 
 from __future__ import annotations
@@ -32,6 +39,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from ortools.sat.python import cp_model
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
 
 from zonedesign.records import Areas, Bounds, Graph, Problem
 from zonedesign.rules import TierRules
@@ -116,12 +125,13 @@ def minimal_repair(
     time_limit: float = 60.0,
     workers: int = 1,
     max_candidates: int = 12,
+    max_units: int = 150,
 ) -> RepairResult:
     """Relabel the fewest areas so that every bound, contiguity, nesting and fence rule holds.
 
     time_limit: seconds for all repair models together; workers: CP-SAT num_workers;
-    max_candidates: above this many zones in a region, an area may only move to zones
-    near it (see the module notes).
+    max_candidates: above this many zones in a region, a unit may only move to zones near
+    it; max_units: the most movable units per tier in one model (see the module notes).
 
     >>> result = minimal_repair(areas, graph, lookup, rules.tiers, time_limit=30)
     >>> result.status, result.repair_frame()
@@ -130,47 +140,55 @@ def minimal_repair(
     tiers = list(tiers)
     names = [t.name for t in tiers]
     enc = [encode_labels(labels[t.name]) for t in tiers]
-    bounds = [tier_bounds(t, areas.count_names) for t in tiers]
     report = audit(areas, graph, {t.name: labels[t.name] for t in tiers}, tiers)
-
-    broken: list[set[int]] = [set() for _ in tiers]
-    lookup = [{str(z): c for c, z in enumerate(e.names)} for e in enc]
+    ctx = _Context(
+        areas=areas,
+        graph=graph,
+        enc=enc,
+        bounds=[tier_bounds(t, areas.count_names) for t in tiers],
+        fence=areas.fence.astype(str),
+        scale=integer_scale(areas.counts),
+        workers=workers,
+        max_candidates=max_candidates,
+    )
+    ctx.counts = np.round(areas.counts * ctx.scale).astype(np.int64)
+    ctx.broken, ctx.hot = _faults(ctx, report, names)
+    ctx.fence_broken = [set() for _ in tiers]
+    ctx.nest_broken = [set() for _ in tiers]
     for v in report.violations:
-        if v.kind not in REPAIRED_KINDS or v.tier not in names:
-            continue
-        t = names.index(v.tier)
-        broken[t].add(lookup[t][v.zone])
-        if v.kind == "nesting":
-            broken[t + 1].update(lookup[t + 1][p] for p in v.figures["parents"])
-    nulls = [e.codes < 0 for e in enc]
+        if v.kind in ("fence", "nesting") and v.tier in names:
+            t = names.index(v.tier)
+            code = int(np.flatnonzero(enc[t].names == v.zone)[0])
+            (ctx.fence_broken if v.kind == "fence" else ctx.nest_broken)[t].add(code)
+    ctx.nulls = [e.codes < 0 for e in enc]
     copied = {t.name: np.asarray(labels[t.name], dtype=object).copy() for t in tiers}
-    if not any(broken) and not any(n.any() for n in nulls):
+    if not any(ctx.broken) and not any(n.any() for n in ctx.nulls):
         return RepairResult([], copied, "nothing to repair", "every rule holds", [], time.perf_counter() - start)
 
     ei, ej, _ = graph.edges()
-    region: list[set[int]] = []
-    movable: list[np.ndarray] = []
     for t, e in enumerate(enc):
         ci, cj = e.codes[ei], e.codes[ej]
-        zone_set = set(broken[t])
+        zone_set = set(ctx.broken[t])
         for a, b in ((ci, cj), (cj, ci)):
-            near_broken = np.isin(a, list(broken[t])) & (b >= 0) & (b != a)
+            near_broken = np.isin(a, list(ctx.broken[t])) & (b >= 0) & (b != a)
             zone_set.update(np.unique(b[near_broken]).tolist())
             near_null = (a < 0) & (b >= 0)
             zone_set.update(np.unique(b[near_null]).tolist())
-        region.append(zone_set)
-        movable.append(np.isin(e.codes, list(zone_set)) | nulls[t])
+        ctx.region.append(zone_set)
+        ctx.movable.append(np.isin(e.codes, list(zone_set)) | ctx.nulls[t])
 
-    # clusters: areas tied together by a region zone or by an area without a zone
+    # clusters: a region zone's areas stay together, and so do a broken zone (or an area
+    # without a zone) and the zones it touches
     uf = _UnionFind(areas.n)
     for t, e in enumerate(enc):
         members = zone_members(e.codes, e.k)
-        for z in region[t]:
+        for z in ctx.region[t]:
             uf.union_all(members[z])
-        both = movable[t][ei] & movable[t][ej] & (nulls[t][ei] | nulls[t][ej])
-        for a, b in zip(ei[both], ej[both]):
+        trouble = ctx.nulls[t] | np.isin(e.codes, list(ctx.broken[t]))
+        tie = ctx.movable[t][ei] & ctx.movable[t][ej] & (trouble[ei] | trouble[ej])
+        for a, b in zip(ei[tie], ej[tie]):
             uf.union_all(np.array([a, b]))
-    any_movable = np.logical_or.reduce(movable)
+    any_movable = np.logical_or.reduce(ctx.movable)
     roots = np.array([uf.find(int(a)) for a in range(areas.n)])
     cluster_ids = np.unique(roots[any_movable])
 
@@ -180,23 +198,24 @@ def minimal_repair(
     cluster_info: list[dict] = []
     statuses: list[str] = []
     reasons: list[str] = []
-    scale = integer_scale(areas.counts)
     for n_done, cid in enumerate(cluster_ids):
         units = np.flatnonzero(roots == cid)
         left = time_limit - (time.perf_counter() - start)
         budget = max(left / (len(cluster_ids) - n_done), 0.5)
         t0 = time.perf_counter()
-        status, result = _repair_cluster(
-            areas, graph, tiers, enc, bounds, region, movable, broken, nulls, units, scale,
-            budget, workers, max_candidates,
-        )
+        status, result, note = _repair_cluster(ctx, units, budget, max_units)
         info = {"areas": int(units.size), "status": status, "seconds": round(time.perf_counter() - t0, 3)}
         statuses.append(status)
+        if note:
+            reasons.append(note)
+            info["reason"] = note
         if result is None:
-            reason = _infeasible_reason(areas, graph, tiers, bounds, units) if status == "infeasible" else ""
+            reason = (
+                _infeasible_reason(areas, graph, tiers, ctx.bounds, units) if status == "infeasible" else ""
+            )
             if reason:
                 reasons.append(reason)
-            info["reason"] = reason
+                info["reason"] = reason
         else:
             for t, assign in enumerate(result):
                 for area, code in assign.items():
@@ -221,16 +240,466 @@ def minimal_repair(
 
     if "infeasible" in statuses:
         status = "infeasible"
-        reason = "; ".join(reasons) or (
-            "no relabelling of the broken zones and their neighbours meets every rule"
-        )
+        reason = "; ".join(reasons) or "no relabelling of the broken zones and their neighbours meets every rule"
     elif "unknown" in statuses:
-        status, reason = "unknown", "no repair found within the time limit for some broken zones"
+        status = "unknown"
+        reason = "; ".join(reasons) or "no repair found within the time limit for some broken zones"
     elif "feasible" in statuses:
-        status, reason = "feasible", "every rule holds; fewest moves not proven within the time limit"
+        status = "feasible"
+        reason = "every rule holds; " + ("; ".join(reasons) or "fewest moves not proven")
     else:
         status, reason = "optimal", "every rule holds with the fewest moves"
     return RepairResult(moves, new_labels, status, reason, cluster_info, time.perf_counter() - start)
+
+
+@dataclass
+class _Context:
+    """Everything one repair call shares between its clusters and stages."""
+
+    areas: Areas
+    graph: Graph
+    enc: list
+    bounds: list[Bounds]
+    fence: np.ndarray
+    scale: int
+    workers: int
+    max_candidates: int
+    counts: np.ndarray = field(default_factory=lambda: np.zeros((0, 0), dtype=np.int64))
+    broken: list[set[int]] = field(default_factory=list)
+    hot: list[np.ndarray] = field(default_factory=list)
+    nulls: list[np.ndarray] = field(default_factory=list)
+    region: list[set[int]] = field(default_factory=list)
+    movable: list[np.ndarray] = field(default_factory=list)
+    fence_broken: list[set[int]] = field(default_factory=list)
+    nest_broken: list[set[int]] = field(default_factory=list)
+
+
+def _faults(ctx: _Context, report, names: list[str]) -> tuple[list[set[int]], list[np.ndarray]]:
+    """Broken zones per tier, and the offending areas (where a repair starts looking)."""
+    n = ctx.areas.n
+    T = len(names)
+    broken: list[set[int]] = [set() for _ in range(T)]
+    hot = [ctx.enc[t].codes < 0 for t in range(T)]
+    lookup = [{str(z): c for c, z in enumerate(e.names)} for e in ctx.enc]
+    graph = ctx.graph
+    for v in report.violations:
+        if v.kind not in REPAIRED_KINDS or v.tier not in names:
+            continue
+        t = names.index(v.tier)
+        z = lookup[t][v.zone]
+        broken[t].add(z)
+        members = np.flatnonzero(ctx.enc[t].codes == z)
+        if v.kind == "contiguity":
+            # everything but the largest part
+            inside = np.zeros(n, dtype=bool)
+            inside[members] = True
+            sub = graph.subgraph(members)
+            i, j, _ = sub.edges()
+            _, comp = connected_components(
+                coo_matrix((np.ones(i.size), (i, j)), shape=(sub.n, sub.n)), directed=False
+            )
+            big = np.argmax(np.bincount(comp))
+            hot[t][members[comp != big]] = True
+        elif v.kind == "fence":
+            codes, cnt = np.unique(ctx.fence[members], return_counts=True)
+            hot[t][members[ctx.fence[members] != codes[np.argmax(cnt)]]] = True
+        elif v.kind == "nesting":
+            upper = ctx.enc[t + 1].codes[members]
+            vals, cnt = np.unique(upper[upper >= 0], return_counts=True)
+            stray = members[upper != vals[np.argmax(cnt)]]
+            hot[t][stray] = True
+            hot[t + 1][stray] = True
+            broken[t + 1].update(lookup[t + 1][p] for p in v.figures["parents"])
+        elif v.figures.get("side") == "min":
+            hot[t][members] = True
+        else:
+            # a zone above a ceiling sheds areas along its edge
+            codes = ctx.enc[t].codes
+            edge = [a for a in members if np.any(codes[graph.neighbours(a)] != z)]
+            hot[t][edge if edge else members] = True
+    return broken, hot
+
+
+def _repair_cluster(
+    ctx: _Context, units: np.ndarray, budget: float, max_units: int
+) -> tuple[str, list[dict[int, int]] | None, str]:
+    """Stages of growing reach; returns (status, assignment or None, note)."""
+    deadline = time.perf_counter() + budget
+    best: list[dict[int, int]] | None = None
+    best_moves = math.inf
+    proven_reach = None
+    last = "unknown"
+    floor = _fewest_possible(ctx, units)
+    # the search grows from the faults outwards; a repair with as few moves as the faults
+    # demand is proven fewest at once
+    for reach in (1, 2, 4, 8, None):
+        left = deadline - time.perf_counter()
+        if left <= 0.05:
+            break
+        model = _ClusterModel(ctx, units, reach)
+        if model.too_large(max_units):
+            break
+        final = model.covers_region
+        status, result, moves = model.solve(left if final else left * 0.4)
+        if result is not None and moves < best_moves:
+            best, best_moves = result, moves
+            proven_reach = None
+        if result is not None and best_moves <= floor:
+            return "optimal", best, ""
+        if status == "optimal" and moves == best_moves:
+            proven_reach = reach
+        if final:
+            last = status
+            if status == "optimal":
+                return "optimal", result, ""
+            if status == "infeasible" and best is None:
+                return "infeasible", None, ""
+            break
+    if best is None:
+        return ("unknown" if last == "infeasible" else last), None, ""
+    if proven_reach is not None:
+        steps = f"{proven_reach} step{'s' if proven_reach != 1 else ''}"
+        return "feasible", best, f"fewest moves proven only among moves within {steps} of the faults"
+    return "feasible", best, "fewest moves not proven within the time limit"
+
+
+def _fewest_possible(ctx: _Context, units: np.ndarray) -> int:
+    """A lower bound on the moves a cluster needs: faults that share no (area, tier) label.
+
+    Every area without a zone takes a label; a zone across a fence must lose one of its own
+    areas; a zone under two parents must relabel one of its areas on its tier or the one
+    above; and a cluster holds at least one fault.
+    """
+    in_cluster = np.zeros(ctx.areas.n, dtype=bool)
+    in_cluster[units] = True
+    used: set[tuple[int, int]] = set()
+    count = 0
+    for t, null in enumerate(ctx.nulls):
+        for a in np.flatnonzero(null & in_cluster):
+            used.add((int(a), t))
+            count += 1
+    groups = []
+    for t, zones in enumerate(ctx.fence_broken):
+        for z in zones:
+            members = np.flatnonzero((ctx.enc[t].codes == z) & in_cluster)
+            groups.append({(int(a), t) for a in members})
+    for t, zones in enumerate(ctx.nest_broken):
+        for z in zones:
+            members = np.flatnonzero((ctx.enc[t].codes == z) & in_cluster)
+            groups.append({(int(a), tt) for a in members for tt in (t, t + 1)})
+    for g in sorted(groups, key=len):
+        if g and not (g & used):
+            used |= g
+            count += 1
+    return max(count, 1)
+
+
+class _ClusterModel:
+    """The CP-SAT model of one cluster at one reach (None: every region unit may move)."""
+
+    def __init__(self, ctx: _Context, units: np.ndarray, reach: int | None):
+        self.ctx = ctx
+        self.units = units
+        self.tier_units = [_tier_units(ctx, t, units, reach) for t in range(len(ctx.enc))]
+        self.covers_region = all(tu.all_movable for tu in self.tier_units)
+
+    def too_large(self, max_units: int) -> bool:
+        return any(tu.n_movable > max_units for tu in self.tier_units)
+
+    def _own_keeps(self, t: int, z: int, keeps: list[dict]) -> list | None:
+        """"Keeps its zone" literals of the free units holding zone z's areas, or None when
+        some of z's areas lie in fixed pieces (then the bound would not be valid)."""
+        return self._area_keeps(t, np.flatnonzero(self.ctx.enc[t].codes == z), keeps)
+
+    def _area_keeps(self, t: int, areas: np.ndarray, keeps: list[dict]) -> list | None:
+        tu = self.tier_units[t]
+        out = {}
+        for a in areas:
+            u = tu.area_unit.get(int(a))
+            if u is None or not tu.free[u] or u not in keeps[t]:
+                return None
+            out[u] = keeps[t][u]
+        return list(out.values())
+
+    def solve(
+        self, time_limit: float, hint: list[dict[int, int]] | None = None
+    ) -> tuple[str, list[dict[int, int]] | None, int]:
+        ctx = self.ctx
+        T = len(ctx.enc)
+        in_cluster = np.zeros(ctx.areas.n, dtype=bool)
+        in_cluster[self.units] = True
+        m = cp_model.CpModel()
+        cand: list[list[list[int]]] = []
+        x: list[dict[tuple[int, int], cp_model.IntVar]] = []
+        for t in range(T):
+            tu = self.tier_units[t]
+            codes = ctx.enc[t].codes
+            mov = self.units[ctx.movable[t][self.units]]
+            zones = sorted(z for z in ctx.region[t] if in_cluster[codes == z].any())
+            spares = _spare_count(ctx.areas, ctx.counts, ctx.bounds[t], ctx.scale, mov, zones, ctx.broken[t],
+                                  codes, ctx.nulls[t], ctx.graph)
+            spare_codes = list(range(ctx.enc[t].k, ctx.enc[t].k + spares))
+            near = None
+            if len(zones) + spares > ctx.max_candidates:
+                near = _nearby_zones(ctx.graph, codes, mov, set(zones))
+            ct = []
+            for u, ms in enumerate(tu.members):
+                if not tu.free[u]:
+                    ct.append([tu.old[u]])
+                elif near is None:
+                    ct.append(list(zones) + spare_codes)
+                else:
+                    ct.append(sorted(set().union(*(near[int(a)] for a in ms))) + spare_codes)
+            cand.append(ct)
+            xt = {(u, z): m.NewBoolVar(f"x{t}_{u}_{z}") for u, zs in enumerate(ct) for z in zs}
+            x.append(xt)
+
+            # coverage: every unit lies in exactly one zone of the tier; fixed pieces keep theirs
+            for u, zs in enumerate(ct):
+                m.AddExactlyOne([xt[u, z] for z in zs])
+
+            # used zones: a zone is used when it holds a unit; new zones open in order
+            holders: dict[int, list[int]] = {}
+            for (u, z) in xt:
+                holders.setdefault(z, []).append(u)
+            used = {}
+            for z, us in holders.items():
+                used[z] = m.NewBoolVar(f"u{t}_{z}")
+                for u in us:
+                    m.AddImplication(xt[u, z], used[z])
+                m.AddBoolOr([xt[u, z] for u in us]).OnlyEnforceIf(used[z])
+            for s0, s1 in zip(spare_codes, spare_codes[1:]):
+                if s0 in used and s1 in used:
+                    m.AddImplication(used[s1], used[s0])
+
+            # bounds: every zone that can change meets the tier's min and max when used
+            b = ctx.bounds[t]
+            unit_counts = np.zeros((len(tu.members), ctx.counts.shape[1]), dtype=np.int64)
+            for u, ms in enumerate(tu.members):
+                unit_counts[u] = ctx.counts[ms].sum(axis=0)
+            for c in range(len(b.count_names)):
+                lo = math.ceil(b.lo[c] * ctx.scale - 1e-9) if np.isfinite(b.lo[c]) else None
+                hi = math.floor(b.hi[c] * ctx.scale + 1e-9) if np.isfinite(b.hi[c]) else None
+                for z, us in holders.items():
+                    total = sum(int(unit_counts[u, c]) * xt[u, z] for u in us)
+                    if lo is not None:
+                        m.Add(total >= lo * used[z])
+                    if hi is not None:
+                        m.Add(total <= hi * used[z])
+
+            # fences: a zone holds units of one fence only
+            for z, us in holders.items():
+                codes_f = sorted({f for u in us for f in tu.fences[u]})
+                if len(codes_f) < 2:
+                    continue
+                q = {f: m.NewBoolVar(f"q{t}_{z}_{f}") for f in codes_f}
+                for u in us:
+                    for f in tu.fences[u]:
+                        m.AddImplication(xt[u, z], q[f])
+                m.AddAtMostOne(list(q.values()))
+
+            # contiguity: flow inside each zone from its root reaches every other member
+            _add_flow_contiguity(m, t, tu.edges, ct, xt, used, holders)
+
+        # nesting: each zone's areas share one zone of the tier above
+        for t in range(T - 1):
+            p: dict[tuple[int, int], cp_model.IntVar] = {}
+            seen = set()
+            for a in self.units:
+                a = int(a)
+                lower = self.tier_units[t].area_unit.get(a)
+                upper = self.tier_units[t + 1].area_unit.get(a)
+                key = (lower if lower is not None else ("fixed", int(ctx.enc[t].codes[a])),
+                       upper if upper is not None else ("fixed", int(ctx.enc[t + 1].codes[a])))
+                if key in seen:
+                    continue
+                seen.add(key)
+                lz_all = [(z, x[t][lower, z]) for z in cand[t][lower]] if lower is not None else \
+                    [(int(ctx.enc[t].codes[a]), None)]
+                lp_all = [(P, x[t + 1][upper, P]) for P in cand[t + 1][upper]] if upper is not None else \
+                    [(int(ctx.enc[t + 1].codes[a]), None)]
+                for z, lz in lz_all:
+                    for P, lp in lp_all:
+                        if (z, P) not in p:
+                            p[z, P] = m.NewBoolVar(f"p{t}_{z}_{P}")
+                        clause = [p[z, P]] + [v.Not() for v in (lz, lp) if v is not None]
+                        m.AddBoolOr(clause)
+            by_zone: dict[int, list] = {}
+            for (z, _), v in p.items():
+                by_zone.setdefault(z, []).append(v)
+            for vs in by_zone.values():
+                m.AddAtMostOne(vs)
+
+        # objective: keep as many (area, tier) labels as possible
+        kept = []
+        n_free = 0
+        keeps: list[dict[int, cp_model.IntVar]] = []  # per tier: free unit -> "keeps its zone"
+        for t in range(T):
+            tu = self.tier_units[t]
+            keeps.append({})
+            for u, old in enumerate(tu.old):
+                if not tu.free[u]:
+                    continue
+                n_free += int(tu.members[u].size)
+                if old >= 0 and (u, old) in x[t]:
+                    kept.append(int(tu.members[u].size) * x[t][u, old])
+                    keeps[t][u] = x[t][u, old]
+
+        # lower bounds: the lookup as it stands breaks a rule, so something moves; a zone
+        # across a fence loses one of its own areas; a zone under two parents changes a
+        # label of one of its areas on its tier or the tier above
+        m.Add(sum(kept) <= n_free - 1)
+        for t, zones in enumerate(ctx.fence_broken):
+            for z in zones:
+                own = self._own_keeps(t, z, keeps)
+                if own is not None:
+                    m.Add(sum(own) <= len(own) - 1)
+        for t, zones in enumerate(ctx.nest_broken):
+            for z in zones:
+                own = self._own_keeps(t, z, keeps)
+                above = self._area_keeps(t + 1, np.flatnonzero(ctx.enc[t].codes == z), keeps)
+                if own is not None and above is not None:
+                    m.Add(sum(own) + sum(above) <= len(own) + len(above) - 1)
+        m.Maximize(sum(kept))
+        if hint is not None:
+            for t in range(T):
+                tu = self.tier_units[t]
+                for u, zs in enumerate(cand[t]):
+                    if tu.free[u]:
+                        target = hint[t].get(int(tu.members[u][0]), tu.old[u])
+                        for z in zs:
+                            m.AddHint(x[t][u, z], int(z == target))
+
+        solver = cp_model.CpSolver()
+        solver.parameters.max_time_in_seconds = max(float(time_limit), 0.05)
+        solver.parameters.num_workers = int(ctx.workers)
+        status = solver.Solve(m)
+        if status == cp_model.INFEASIBLE:
+            return "infeasible", None, 0
+        if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+            return "unknown", None, 0
+        result = []
+        for t in range(T):
+            assign = {}
+            tu = self.tier_units[t]
+            for u, zs in enumerate(cand[t]):
+                if not tu.free[u]:
+                    continue
+                z = next(z for z in zs if solver.Value(x[t][u, z]))
+                for a in tu.members[u]:
+                    assign[int(a)] = z
+            result.append(assign)
+        moves = n_free - int(round(solver.ObjectiveValue()))
+        return ("optimal" if status == cp_model.OPTIMAL else "feasible"), result, moves
+
+
+@dataclass
+class _TierUnits:
+    """The units of one tier inside a cluster model.
+
+    A free unit may change zone: an area alone, or the areas of one fixed lower-tier zone
+    (nesting makes them move together). A fixed piece is a connected part of a region zone
+    that lies beyond the model's reach; it keeps its zone and only carries that zone's
+    counts, fence and connections.
+    """
+
+    members: list[np.ndarray]
+    free: list[bool]
+    old: list[int]  # current zone code (-1: none)
+    fences: list[set[str]]
+    area_unit: dict[int, int]
+    edges: list[tuple[int, int]]
+    all_movable: bool
+
+    @property
+    def n_movable(self) -> int:
+        return int(sum(self.free))
+
+
+def _tier_units(ctx: _Context, t: int, units: np.ndarray, reach: int | None) -> _TierUnits:
+    codes = ctx.enc[t].codes
+    mov = units[ctx.movable[t][units]]
+    groups: dict[tuple, list[int]] = {}
+    for a in mov:
+        a = int(a)
+        if t > 0 and not ctx.movable[t - 1][a] and ctx.enc[t - 1].codes[a] >= 0:
+            key = ("zone", int(ctx.enc[t - 1].codes[a]), int(codes[a]))
+        else:
+            key = ("area", a, int(codes[a]))
+        groups.setdefault(key, []).append(a)
+    base = [np.array(v, dtype=np.int64) for v in groups.values()]
+    base_of = {int(a): u for u, ms in enumerate(base) for a in ms}
+    adjacency: list[set[int]] = [set() for _ in base]
+    for a, u in base_of.items():
+        for b in ctx.graph.neighbours(a):
+            v = base_of.get(int(b))
+            if v is not None and v != u:
+                adjacency[u].add(v)
+    # free units: within `reach` steps of a unit holding an offending area
+    if reach is None:
+        free = np.ones(len(base), dtype=bool)
+    else:
+        dist = np.full(len(base), -1)
+        frontier = [u for u, ms in enumerate(base) if ctx.hot[t][ms].any()]
+        for u in frontier:
+            dist[u] = 0
+        step = 0
+        while frontier and step < reach:
+            step += 1
+            nxt = []
+            for u in frontier:
+                for v in adjacency[u]:
+                    if dist[v] < 0:
+                        dist[v] = step
+                        nxt.append(v)
+            frontier = nxt
+        free = dist >= 0
+    all_movable = bool(free.all())
+    # fixed pieces: connected runs of fixed units of one zone
+    piece = np.full(len(base), -1)
+    n_piece = 0
+    for u in range(len(base)):
+        if free[u] or piece[u] >= 0:
+            continue
+        zone = codes[base[u][0]]
+        stack = [u]
+        piece[u] = n_piece
+        while stack:
+            w = stack.pop()
+            for v in adjacency[w]:
+                if not free[v] and piece[v] < 0 and codes[base[v][0]] == zone:
+                    piece[v] = n_piece
+                    stack.append(v)
+        n_piece += 1
+    members, is_free, unit_of_base = [], [], np.full(len(base), -1)
+    for u in np.flatnonzero(free):
+        unit_of_base[u] = len(members)
+        members.append(base[u])
+        is_free.append(True)
+    offset = len(members)
+    pieces: list[list[np.ndarray]] = [[] for _ in range(n_piece)]
+    for u in np.flatnonzero(~free):
+        pieces[piece[u]].append(base[u])
+        unit_of_base[u] = offset + piece[u]
+    for parts in pieces:
+        members.append(np.concatenate(parts))
+        is_free.append(False)
+    area_unit = {a: int(unit_of_base[u]) for a, u in base_of.items()}
+    edges = set()
+    for u, vs in enumerate(adjacency):
+        for v in vs:
+            a, b = int(unit_of_base[u]), int(unit_of_base[v])
+            if a != b:
+                edges.add((min(a, b), max(a, b)))
+    return _TierUnits(
+        members=members,
+        free=is_free,
+        old=[int(codes[ms[0]]) for ms in members],
+        fences=[set(ctx.fence[ms].tolist()) for ms in members],
+        area_unit=area_unit,
+        edges=sorted(edges),
+        all_movable=all_movable,
+    )
 
 
 def _fresh_name(tier: str, taken: set[str]) -> str:
@@ -261,148 +730,6 @@ def _infeasible_reason(
     return ""
 
 
-def _repair_cluster(
-    areas: Areas,
-    graph: Graph,
-    tiers: list[TierRules],
-    enc: list,
-    bounds: list[Bounds],
-    region: list[set[int]],
-    movable: list[np.ndarray],
-    broken: list[set[int]],
-    nulls: list[np.ndarray],
-    units: np.ndarray,
-    scale: int,
-    time_limit: float,
-    workers: int,
-    max_candidates: int,
-) -> tuple[str, list[dict[int, int]] | None]:
-    """Solve one cluster; returns (status, new code per movable area per tier or None)."""
-    T = len(tiers)
-    in_unit = np.zeros(areas.n, dtype=bool)
-    in_unit[units] = True
-    fence = areas.fence.astype(str)
-    counts = np.round(areas.counts * scale).astype(np.int64)
-    m = cp_model.CpModel()
-
-    cand: list[dict[int, list[int]]] = []
-    x: list[dict[tuple[int, int], cp_model.IntVar]] = []
-    used: list[dict[int, cp_model.IntVar]] = []
-    for t in range(T):
-        codes = enc[t].codes
-        mov = units[movable[t][units]]
-        zones = sorted(z for z in region[t] if in_unit[np.flatnonzero(codes == z)].any())
-        spares = _spare_count(areas, counts, bounds[t], scale, mov, zones, broken[t], codes, nulls[t])
-        spare_codes = list(range(enc[t].k, enc[t].k + spares))
-        near = _nearby_zones(graph, codes, mov, set(zones)) if len(zones) + spares > max_candidates else None
-        ct: dict[int, list[int]] = {}
-        for a in mov:
-            base = zones if near is None else sorted(near[a])
-            ct[int(a)] = list(base) + spare_codes
-        cand.append(ct)
-        xt = {(a, z): m.NewBoolVar(f"x{t}_{a}_{z}") for a, zs in ct.items() for z in zs}
-        x.append(xt)
-
-        # coverage: every movable area lies in exactly one zone of the tier
-        for a, zs in ct.items():
-            m.AddExactlyOne([xt[a, z] for z in zs])
-
-        # used zones: a zone is used when it holds an area; new zones open in order
-        members: dict[int, list[int]] = {}
-        for (a, z) in xt:
-            members.setdefault(z, []).append(a)
-        ut = {}
-        for z, ms in members.items():
-            u = m.NewBoolVar(f"u{t}_{z}")
-            for a in ms:
-                m.AddImplication(xt[a, z], u)
-            m.AddBoolOr([xt[a, z] for a in ms]).OnlyEnforceIf(u)
-            ut[z] = u
-        used.append(ut)
-        for s0, s1 in zip(spare_codes, spare_codes[1:]):
-            if s0 in ut and s1 in ut:
-                m.AddImplication(ut[s1], ut[s0])
-
-        # bounds: every zone that can change meets the tier's min and max when used
-        b = bounds[t]
-        for c in range(len(b.count_names)):
-            lo = math.ceil(b.lo[c] * scale - 1e-9) if np.isfinite(b.lo[c]) else None
-            hi = math.floor(b.hi[c] * scale + 1e-9) if np.isfinite(b.hi[c]) else None
-            for z, ms in members.items():
-                total = sum(int(counts[a, c]) * xt[a, z] for a in ms)
-                if lo is not None:
-                    m.Add(total >= lo * ut[z])
-                if hi is not None:
-                    m.Add(total <= hi * ut[z])
-
-        # fences: a zone holds areas of one fence only
-        for z, ms in members.items():
-            codes_f = sorted({fence[a] for a in ms})
-            if len(codes_f) < 2:
-                continue
-            q = {f: m.NewBoolVar(f"q{t}_{z}_{f}") for f in codes_f}
-            for a in ms:
-                m.AddImplication(xt[a, z], q[fence[a]])
-            m.AddAtMostOne(list(q.values()))
-
-        # contiguity: flow inside each zone from its root reaches every other member
-        _add_flow_contiguity(m, graph, t, mov, ct, xt, ut, members)
-
-    # nesting: each zone's areas share one zone of the tier above
-    for t in range(T - 1):
-        p: dict[tuple[int, int], cp_model.IntVar] = {}
-
-        def lits(tt: int, a: int) -> list[tuple[int, object]]:
-            if movable[tt][a]:
-                return [(z, x[tt][a, z]) for z in cand[tt][a]]
-            return [(int(enc[tt].codes[a]), True)]
-
-        for a in units:
-            for z, lz in lits(t, int(a)):
-                for P, lp in lits(t + 1, int(a)):
-                    if (z, P) not in p:
-                        p[z, P] = m.NewBoolVar(f"p{t}_{z}_{P}")
-                    clause = [p[z, P]]
-                    if lz is not True:
-                        clause.append(lz.Not())
-                    if lp is not True:
-                        clause.append(lp.Not())
-                    m.AddBoolOr(clause)
-        by_zone: dict[int, list] = {}
-        for (z, _), v in p.items():
-            by_zone.setdefault(z, []).append(v)
-        for vs in by_zone.values():
-            m.AddAtMostOne(vs)
-
-    # objective: keep as many (area, tier) labels as possible
-    kept = []
-    for t in range(T):
-        for a in cand[t]:
-            old = int(enc[t].codes[a])
-            if old >= 0 and (a, old) in x[t]:
-                kept.append(x[t][a, old])
-    m.Maximize(sum(kept))
-
-    solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = float(time_limit)
-    solver.parameters.num_workers = int(workers)
-    status = solver.Solve(m)
-    if status == cp_model.INFEASIBLE:
-        return "infeasible", None
-    if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-        return "unknown", None
-    result = []
-    for t in range(T):
-        assign = {}
-        for a, zs in cand[t].items():
-            for z in zs:
-                if solver.Value(x[t][a, z]):
-                    assign[a] = z
-                    break
-        result.append(assign)
-    return ("optimal" if status == cp_model.OPTIMAL else "feasible"), result
-
-
 def _spare_count(
     areas: Areas,
     counts: np.ndarray,
@@ -413,8 +740,14 @@ def _spare_count(
     broken: set[int],
     codes: np.ndarray,
     null: np.ndarray,
+    graph: Graph,
 ) -> int:
-    """New zone ids to offer: enough to split every broken zone, never past the floors' limit."""
+    """New zone ids to offer: as many as the pieces a broken zone may have to split into.
+
+    A zone in k parts, across k fences or k parents, or k ceilings' worth of counts may end
+    up as k zones; an area without a zone may need a zone of its own. Never more than the
+    floors allow in the movable areas.
+    """
     if mov.size == 0:
         return 0
     kmax = mov.size
@@ -427,12 +760,19 @@ def _spare_count(
         ms = mov[codes[mov] == z]
         if ms.size == 0:
             continue
-        parts = len(set(fence[ms]))
+        pieces = max(len(set(fence[ms])), _n_parts(graph, ms))
         for c in range(len(b.count_names)):
             if np.isfinite(b.hi[c]) and b.hi[c] > 0:
-                parts = max(parts, math.ceil(counts[ms, c].sum() / (b.hi[c] * scale)))
-        need += 2 * max(parts, 2)
+                pieces = max(pieces, math.ceil(counts[ms, c].sum() / (b.hi[c] * scale)))
+        need += pieces
     return int(max(0, min(kmax - len(zones), need)))
+
+
+def _n_parts(graph: Graph, members: np.ndarray) -> int:
+    sub = graph.subgraph(members)
+    i, j, _ = sub.edges()
+    adj = coo_matrix((np.ones(i.size), (i, j)), shape=(sub.n, sub.n))
+    return int(connected_components(adj, directed=False)[0])
 
 
 def _nearby_zones(graph: Graph, codes: np.ndarray, mov: np.ndarray, zones: set[int]) -> dict[int, set[int]]:
@@ -456,47 +796,42 @@ def _nearby_zones(graph: Graph, codes: np.ndarray, mov: np.ndarray, zones: set[i
 
 def _add_flow_contiguity(
     m: cp_model.CpModel,
-    graph: Graph,
     t: int,
-    mov: np.ndarray,
-    cand: dict[int, list[int]],
+    edges: list[tuple[int, int]],
+    cand: list[list[int]],
     x: dict[tuple[int, int], cp_model.IntVar],
     used: dict[int, cp_model.IntVar],
-    members: dict[int, list[int]],
+    holders: dict[int, list[int]],
 ) -> None:
-    """Single-commodity flow contiguity over the movable areas of one tier (Shirabe 2005)."""
-    is_mov = set(int(a) for a in mov)
-    cap = max(len(is_mov) - 1, 0)
+    """Single-commodity flow contiguity over the movable units of one tier (Shirabe 2005)."""
+    n = len(cand)
+    cap = max(n - 1, 0)
     # roots: one per used zone, inside the zone
-    root = {(a, z): m.NewBoolVar(f"r{t}_{a}_{z}") for (a, z) in x}
+    root = {key: m.NewBoolVar(f"r{t}_{key[0]}_{key[1]}") for key in x}
     for key, r in root.items():
         m.AddImplication(r, x[key])
-    for z, ms in members.items():
-        m.Add(sum(root[a, z] for a in ms) == used[z])
-    inflow: dict[int, list] = {a: [] for a in is_mov}
-    outflow: dict[int, list] = {a: [] for a in is_mov}
-    for a in sorted(is_mov):
-        for b in graph.neighbours(a):
-            b = int(b)
-            if b <= a or b not in is_mov:
-                continue
-            # same-zone indicator: flow may cross this edge only inside one zone
-            y = m.NewBoolVar(f"y{t}_{a}_{b}")
-            ca, cb = set(cand[a]), set(cand[b])
-            for z in ca | cb:
-                if z in ca and z in cb:
-                    m.AddBoolOr([y.Not(), x[a, z].Not(), x[b, z]])
-                    m.AddBoolOr([y.Not(), x[b, z].Not(), x[a, z]])
-                elif z in ca:
-                    m.AddBoolOr([y.Not(), x[a, z].Not()])
-                else:
-                    m.AddBoolOr([y.Not(), x[b, z].Not()])
-            for s, d in ((a, b), (b, a)):
-                f = m.NewIntVar(0, cap, f"f{t}_{s}_{d}")
-                m.Add(f <= cap * y)
-                outflow[s].append(f)
-                inflow[d].append(f)
-    # conservation: every non-root area takes in at least one unit of flow
-    for a in is_mov:
+    for z, us in holders.items():
+        m.Add(sum(root[u, z] for u in us) == used[z])
+    inflow: list[list] = [[] for _ in range(n)]
+    outflow: list[list] = [[] for _ in range(n)]
+    for a, b in edges:
+        # same-zone indicator: flow may cross this edge only inside one zone
+        y = m.NewBoolVar(f"y{t}_{a}_{b}")
+        ca, cb = set(cand[a]), set(cand[b])
+        for z in ca | cb:
+            if z in ca and z in cb:
+                m.AddBoolOr([y.Not(), x[a, z].Not(), x[b, z]])
+                m.AddBoolOr([y.Not(), x[b, z].Not(), x[a, z]])
+            elif z in ca:
+                m.AddBoolOr([y.Not(), x[a, z].Not()])
+            else:
+                m.AddBoolOr([y.Not(), x[b, z].Not()])
+        for s, d in ((a, b), (b, a)):
+            f = m.NewIntVar(0, cap, f"f{t}_{s}_{d}")
+            m.Add(f <= cap * y)
+            outflow[s].append(f)
+            inflow[d].append(f)
+    # conservation: every non-root unit takes in at least one unit of flow
+    for a in range(n):
         is_root = sum(root[a, z] for z in cand[a])
         m.Add(sum(inflow[a]) - sum(outflow[a]) >= 1 - (cap + 1) * is_root)

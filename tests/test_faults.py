@@ -1,0 +1,186 @@
+"""Faults: killed runs, untouched inputs, a failing fence, a memory cap.
+
+A run killed at any moment leaves the previous output whole (or no output), never half of
+one; inputs are never written; one fence's failure does not lose the others; a run past
+--max-memory stops cleanly with exit 2 and writes nothing.
+"""
+
+from __future__ import annotations
+
+import os
+import random
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pandas as pd
+import pytest
+from cli_support import RULES, checksums, read_summary, region, run_cli, write_inputs
+
+from zonedesign.hierarchy import task_seed
+from zonedesign.memory import MemoryLimitError, checkpoint, memory_guard
+
+QUICK = ("--quiet", "--no-report", "--no-certificate")
+SEED = 20240601  # the kill moments are random, but the same on every run of the suite
+
+
+def cli(*args: str | Path, cwd: Path) -> subprocess.Popen:
+    return subprocess.Popen(
+        [sys.executable, "-m", "zonedesign.cli", *map(str, args)],
+        cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+        env={**os.environ, "PYTHONUNBUFFERED": "1"},
+    )
+
+
+def beside(target: Path) -> list[str]:
+    """Hidden temporary or set-aside folders next to the target."""
+    return sorted(p.name for p in target.parent.iterdir() if p.name.startswith(f".{target.name}."))
+
+
+def kill_at(proc: subprocess.Popen, seconds: float, sig: int) -> bool:
+    """Send `sig` after `seconds` unless the run ended first; True when it was still running."""
+    try:
+        proc.wait(timeout=seconds)
+        return False
+    except subprocess.TimeoutExpired:
+        proc.send_signal(sig)
+        proc.wait(timeout=60)
+        return True
+
+
+def test_a_killed_run_leaves_the_previous_output_or_none(tmp_path: Path) -> None:
+    areas, rules = write_inputs(tmp_path / "in")
+    target = tmp_path / "out"
+    args = ("design", areas, "--rules", rules, "--out", target, *QUICK)
+    rng = random.Random(SEED)
+
+    # a first run killed outright: no output at all, or a whole one
+    t0 = time.perf_counter()
+    first = cli(*args, cwd=tmp_path)
+    assert first.wait(timeout=300) == 0, first.stderr.read()
+    full = time.perf_counter() - t0
+    whole = checksums(target)
+    assert {"lookup.csv", "summary.json", "zones.gpkg", "violations.csv"} <= set(whole)
+
+    # kill overwriting runs at random moments with each signal
+    for sig in (signal.SIGKILL, signal.SIGINT, signal.SIGTERM, signal.SIGKILL):
+        proc = cli(*args, "--overwrite", cwd=tmp_path)
+        killed = kill_at(proc, rng.uniform(0.3, 1.0) * full, sig)
+        now = checksums(target)
+        if killed and proc.returncode != 0:
+            assert now == whole, f"{sig!r} at a random moment changed the previous output"
+        else:  # the run finished first: a whole new output, same lookup (same seed)
+            assert set(now) == set(whole) and now["lookup.csv"] == whole["lookup.csv"]
+        if sig != signal.SIGKILL:
+            assert beside(target) == [], f"{sig!r}: the temporary folder was not cleared"
+            assert proc.returncode in (0, 130, 143, 1, -sig), proc.returncode
+
+    # the next successful run clears whatever killed runs left beside the target
+    done = cli(*args, "--overwrite", cwd=tmp_path)
+    assert done.wait(timeout=300) == 0
+    assert beside(target) == []
+    assert checksums(target)["lookup.csv"] == whole["lookup.csv"]
+
+
+def test_a_run_killed_before_its_first_output_leaves_no_folder(tmp_path: Path) -> None:
+    areas, rules = write_inputs(tmp_path / "in")
+    target = tmp_path / "out"
+    proc = cli("design", areas, "--rules", rules, "--out", target, *QUICK, cwd=tmp_path)
+    killed = kill_at(proc, random.Random(SEED + 1).uniform(0.5, 2.0), signal.SIGKILL)
+    if killed:
+        assert not target.exists()
+    else:
+        assert set(checksums(target)) >= {"lookup.csv", "summary.json"}
+
+
+# ---------------------------------------------------------------- inputs
+
+
+def test_inputs_are_never_written(capsys, tmp_path: Path) -> None:
+    folder = tmp_path / "in"
+    areas, rules = write_inputs(folder)
+    (folder / "links.csv").write_text("from,to\nG000001,G000002\n")
+    rules.write_text(RULES.replace("[[tier]]", '[graph]\nlinks = "links.csv"\n\n[[tier]]', 1))
+    before = checksums(folder)
+    assert run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "d", "--quiet").code == 0
+    assert checksums(folder) == before
+    # a lookup with one area put in a ward of its own: audit --repair has work to do
+    lookup = pd.read_csv(tmp_path / "d" / "lookup.csv", dtype=str)
+    lookup.to_csv(folder / "lookup.csv", index=False)
+    lookup.loc[lookup["area"] == "G000001", "ward"] = "F1-ward-0099"
+    lookup.to_csv(folder / "broken.csv", index=False)
+    before = checksums(folder)
+    ran = run_cli(capsys, "audit", areas, "--rules", rules, "--lookup", folder / "broken.csv",
+                  "--out", tmp_path / "a", "--repair", *QUICK)
+    assert ran.code == 1 and (tmp_path / "a" / "repair.csv").exists()
+    ran = run_cli(capsys, "redraw", areas, "--rules", rules, "--previous", folder / "lookup.csv",
+                  "--out", tmp_path / "r", *QUICK)
+    assert ran.code == 0
+    assert checksums(folder) == before
+
+
+# ---------------------------------------------------------------- a failing fence
+
+
+def test_a_failing_fence_is_reported_and_the_others_are_written(capsys, monkeypatch, tmp_path: Path) -> None:
+    import zonedesign.search.engine as engine
+
+    areas, rules = write_inputs(tmp_path / "in")
+    ran = run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "good", *QUICK)
+    assert ran.code == 0
+    solve = engine.solve
+    doomed = task_seed(5, "F2", 0)  # tier 1 ("block") of fence F2, seed 5 of the rules
+
+    def solve_or_fail(problem, **kw):
+        if kw.get("seed") == doomed:
+            raise RuntimeError("solver crashed")
+        return solve(problem, **kw)
+
+    monkeypatch.setattr(engine, "solve", solve_or_fail)
+    ran = run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "out",
+                  "--executor", "local", "--workers", "1", "--no-report", "--no-certificate")
+    assert ran.code == 1
+    assert any("fence F2 of tier block failed: RuntimeError: solver crashed" in line for line in ran.err_lines)
+    summary = read_summary(tmp_path / "out")
+    assert summary["fence_failures"] == [{"fence": "F2", "tier": "block", "error": "RuntimeError: solver crashed"}]
+    # every area is still zoned, and every other fence holds what an undisturbed run gives
+    got = pd.read_csv(tmp_path / "out" / "lookup.csv", dtype=str).set_index("area")
+    good = pd.read_csv(tmp_path / "good" / "lookup.csv", dtype=str).set_index("area")
+    assert sorted(got.index) == sorted(region()["id"])
+    others = region().set_index("id")["fence"] != "F2"
+    assert got.loc[others[others].index, "block"].equals(good.loc[others[others].index, "block"])
+    # the stand-in zone (all of F2) breaks the block ceiling, but it nests and is connected
+    assert {v["kind"] for v in summary["audit"]["violations"]} == {"bounds"}
+    assert {v["zone"] for v in summary["audit"]["violations"]} == {"F2-block-0001"}
+    shown = run_cli(capsys, "show", tmp_path / "out").out
+    assert "FAILED fence F2 tier block: RuntimeError: solver crashed" in shown
+
+
+# ---------------------------------------------------------------- a memory cap
+
+
+def test_a_run_past_max_memory_stops_cleanly_with_exit_2(tmp_path: Path) -> None:
+    areas, rules = write_inputs(tmp_path / "in")
+    target = tmp_path / "out"
+    proc = cli("design", areas, "--rules", rules, "--out", target, "--max-memory", "40MB", "--no-report",
+               cwd=tmp_path)
+    _, err = proc.communicate(timeout=300)
+    assert proc.returncode == 2, err
+    lines = [line for line in err.splitlines() if line.startswith("zonedesign")]
+    assert len(lines) == 1 and "Traceback" not in err
+    assert lines[0].startswith("zonedesign: error: the run reached ")
+    assert "above --max-memory 40MB; stopped before writing any output" in lines[0]
+    assert not target.exists() and beside(target) == []
+
+
+def test_the_memory_guard_stops_its_block_and_then_lets_go() -> None:
+    with pytest.raises(MemoryLimitError, match="above --max-memory 1MB"):
+        with memory_guard("1MB"):  # this process is far past 1 MB already
+            time.sleep(5)
+            pytest.fail("the guard let a run past its limit go on")
+    checkpoint()  # no guard is left behind to stop later work
+    with memory_guard("64GB"):
+        checkpoint()
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
