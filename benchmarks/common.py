@@ -301,3 +301,27 @@ def warm_engine() -> float:
         for method in METHODS:
             solve(problem, seed=1, method=method, time_limit=600.0)
     return c.seconds
+
+
+def code_snapshot(folder: Path) -> dict[str, str]:
+    """Copy the zonedesign package into `folder` and return a child environment that
+    imports that copy, with numba's cache beside it.
+
+    Child processes of a benchmark then run one fixed version of the code with a cache
+    that stays valid for the whole series, even when the working tree changes meanwhile.
+    """
+    import shutil
+
+    root = Path(__file__).resolve().parent.parent
+    folder = Path(folder)
+    target = folder / "zonedesign"
+    if target.exists():
+        shutil.rmtree(target)
+    shutil.copytree(root / "zonedesign", target, ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
+    shutil.copytree(root / "benchmarks", folder / "benchmarks", ignore=shutil.ignore_patterns("__pycache__", "*.pyc", "results"), dirs_exist_ok=True)
+    cache = folder / "numba-cache"
+    cache.mkdir(exist_ok=True)
+    env = dict(os.environ)
+    env["PYTHONPATH"] = str(folder) + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+    env["NUMBA_CACHE_DIR"] = str(cache)
+    return env

@@ -34,7 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
-from benchmarks.common import Clock, md_table, write_results
+from benchmarks.common import Clock, code_snapshot, md_table, write_results
 
 NAME = "scale"
 TITLE = "scale (end to end through the CLI)"
@@ -148,7 +148,9 @@ print(json.dumps({"rc": rc, "wall": time.perf_counter() - t0,
 """
 
 
-def run_cli_measured(areas: Path, rules: Path, out: Path, *, report: bool = False, certificate: bool = False) -> dict:
+def run_cli_measured(
+    areas: Path, rules: Path, out: Path, *, report: bool = False, certificate: bool = False, env: dict | None = None
+) -> dict:
     """`run_cli` through a small parent process whose only child is the run, so
     RUSAGE_CHILDREN.ru_maxrss is the run's own peak resident size."""
     if out.exists():
@@ -158,7 +160,7 @@ def run_cli_measured(areas: Path, rules: Path, out: Path, *, report: bool = Fals
         cmd.append("--no-report")
     if not certificate:
         cmd.append("--no-certificate")
-    done = subprocess.run([sys.executable, "-c", _RSS_SCRIPT, *cmd], capture_output=True, text=True)
+    done = subprocess.run([sys.executable, "-c", _RSS_SCRIPT, *cmd], capture_output=True, text=True, env=env)
     info = json.loads(done.stdout.strip().splitlines()[-1])
     summary = json.loads((out / "summary.json").read_text()) if (out / "summary.json").is_file() else {}
     return {
@@ -219,17 +221,19 @@ def main(quick: bool = False, folder: Path | None = None, log=print, sizes: list
     extra: list[dict] = []
     work = Path(tempfile.mkdtemp(prefix="zd-scale-"))
     try:
-        # one small run first, so numba's compile (or cache load) is not inside the series
+        # the runs use a copy of the code with its own numba cache, filled by one small run
+        # first, so no compile lands inside the series even if the working tree changes
+        env = code_snapshot(work / "code")
         warm = make_input(2000, work / "warm")["paths"]
         with Clock() as c:
-            run_cli_measured(warm["parquet"], warm["rules"], work / "warm_out")
+            run_cli_measured(warm["parquet"], warm["rules"], work / "warm_out", env=env)
         log(f"  warm-up run on 2,000 areas: {c.seconds:.1f} s")
         extra.append({"run": "warm-up, 2,000 areas (fills the numba cache)", "total_s": c.seconds})
         for n in sizes:
             made = make_input(n, work / f"in{n}")
             paths = made["paths"]
             log(f"  {n:,} areas: generated in {made['generate_s']:.1f} s ({made['fences']} fences); running the CLI ...")
-            res = run_cli_measured(paths["parquet"], paths["rules"], work / f"out{n}")
+            res = run_cli_measured(paths["parquet"], paths["rules"], work / f"out{n}", env=env)
             sec = res["summary"].get("seconds", {})
             floor = io_floor(paths["parquet"], work / f"out{n}", work / f"floor{n}") if res["summary"] else {}
             gpkg_read = read_gpkg_seconds(paths["gpkg"])
@@ -255,14 +259,14 @@ def main(quick: bool = False, folder: Path | None = None, log=print, sizes: list
             rows.append(row)
             log(f"  {n:,} areas: {total:.1f} s end to end ({row['x_floor']:.1f} x the I/O floor), peak RSS {row['peak_rss_gb']:.2f} GB")
             if n == sizes[0] and not quick:
-                cert = run_cli_measured(paths["parquet"], paths["rules"], work / f"cert{n}", certificate=True)
+                cert = run_cli_measured(paths["parquet"], paths["rules"], work / f"cert{n}", certificate=True, env=env)
                 cs = cert["summary"].get("seconds", {})
                 extra.append({"run": f"{n:,} areas with the CP-SAT certificate", "total_s": float(cs.get("total", cert["wall_s"])),
                               "audit_s": float(cs.get("audit", math.nan)), "peak_rss_gb": cert["peak_rss_gb"],
                               "x_plain_run": float(cs.get("total", cert["wall_s"])) / total})
                 log(f"  {n:,} areas with the certificate: {extra[-1]['total_s']:.1f} s")
             if n == 200_000 and not quick:
-                rep = run_cli_measured(paths["parquet"], paths["rules"], work / f"report{n}", report=True)
+                rep = run_cli_measured(paths["parquet"], paths["rules"], work / f"report{n}", report=True, env=env)
                 rs = rep["summary"].get("seconds", {})
                 extra.append({"run": f"{n:,} areas with the HTML report", "total_s": float(rs.get("total", rep["wall_s"])),
                               "report_s": float(rs.get("report", math.nan)), "peak_rss_gb": rep["peak_rss_gb"],

@@ -28,7 +28,6 @@ one run. numba's first compile (empty cache) is timed apart in a child process.
 from __future__ import annotations
 
 import math
-import os
 import subprocess
 import sys
 import tempfile
@@ -39,7 +38,7 @@ from pathlib import Path
 import numpy as np
 from numba import njit
 
-from benchmarks.common import Clock, frame_problem, md_table, write_results
+from benchmarks.common import Clock, code_snapshot, frame_problem, md_table, write_results
 from zonedesign import measures
 from zonedesign.records import Problem
 from zonedesign.search import kernels as K
@@ -369,12 +368,13 @@ print(f"{t1 - t0:.3f} {t2 - t1:.3f} {t3 - t2:.3f}")
 
 def first_compile() -> dict:
     """Seconds for the first descent solve and first driver call: empty cache, then warm."""
-    root = Path(__file__).resolve().parent.parent
     out = {}
-    with tempfile.TemporaryDirectory(prefix="zd-numba-") as cache:
-        env = dict(os.environ, NUMBA_CACHE_DIR=cache, PYTHONPATH=str(root) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    with tempfile.TemporaryDirectory(prefix="zd-numba-") as tmp:
+        # a copy of the code with an empty numba cache of its own: edits to the working
+        # tree between the two children cannot make the second compile again
+        env = code_snapshot(Path(tmp))
         for label in ("cold", "warm"):
-            done = subprocess.run([sys.executable, "-c", _COMPILE_SCRIPT], env=env, capture_output=True, text=True, cwd=root, timeout=1800)
+            done = subprocess.run([sys.executable, "-c", _COMPILE_SCRIPT], env=env, capture_output=True, text=True, cwd=tmp, timeout=1800)
             if done.returncode != 0:
                 out[f"{label}_error"] = (done.stderr or done.stdout).strip().splitlines()[-1:]
                 continue

@@ -40,7 +40,7 @@ target = { households = 600 }
 method = "descent"
 seed = 5
 constructions = 2
-time_limit_fence = 30.0
+time_limit_fence = 600.0  # a safety cap only: a cold numba compile must not reach it
 """
 
 
@@ -73,7 +73,11 @@ def checksums(folder: Path) -> dict[str, str]:
     }
 
 
-TIMING_KEYS = ("seconds", "construction_seconds")
+def is_timing(key: str) -> bool:
+    """`seconds`, `construction_seconds`, `compile_seconds`, ...: how long, not what."""
+    return key == "seconds" or key.endswith("_seconds")
+
+
 RUN_SETTINGS = ("executor", "workers")  # how the run was spread, not what it found
 
 
@@ -83,7 +87,7 @@ def comparable(summary: dict) -> dict:
 
     def strip(obj: Any) -> Any:
         if isinstance(obj, dict):
-            return {k: strip(v) for k, v in obj.items() if k not in TIMING_KEYS}
+            return {k: strip(v) for k, v in obj.items() if not is_timing(k)}
         if isinstance(obj, list):
             return [strip(v) for v in obj]
         return obj
@@ -119,3 +123,11 @@ def run_cli(capsys: Any, *args: str | Path) -> Ran:
     code = main([str(a) for a in args])
     out, err = capsys.readouterr()
     return Ran(code, out, err)
+
+
+def first_tiers(text: str, n: int) -> str:
+    """A rules text with only its first `n` [[tier]] tables (the tables after them kept)."""
+    head, *tiers = text.split("[[tier]]")
+    last, sep, tail = tiers[-1].partition("[search]")
+    tiers[-1] = last
+    return head + "".join("[[tier]]" + t for t in tiers[:n]) + sep + tail

@@ -360,6 +360,12 @@ def test_the_areas_file_itself_as_output_is_refused(capsys, designed) -> None:
     assert designed["areas"].read_bytes() == area_bytes
 
 
+def test_an_output_folder_below_a_file_is_refused(capsys, designed, tmp_path: Path) -> None:
+    ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out",
+                  designed["lookup"] / "sub", *QUICK)
+    refused(ran, r"output folder .*lookup\.csv/sub cannot be made: .*lookup\.csv is a file")
+
+
 # ---------------------------------------------------------------- usage
 
 
@@ -371,6 +377,8 @@ def test_usage_errors_are_one_line_too(capsys, tmp_path: Path) -> None:
     refused(run_cli(capsys, "demo", "--out", tmp_path / "d", "--areas", "300"),
             r"argument --areas: the demo region needs at least 500 areas, not 300")
     refused(run_cli(capsys, "frobnicate"), r"invalid choice: 'frobnicate'")
+    refused(run_cli(capsys), r"^zonedesign: error: a command is needed: design, redraw, audit, sweep, demo, rules or show")
+    refused(run_cli(capsys, "rules"), r"^zonedesign: error: rules needs an action: init or check")
 
 
 def test_bad_sweep_keys_and_sizes_are_named(capsys, designed, tmp_path: Path) -> None:

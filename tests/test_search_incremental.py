@@ -159,3 +159,21 @@ def _connected_pieces(graph, labels: np.ndarray) -> np.ndarray:
             out[list(comp)] = k
             k += 1
     return out
+
+
+def test_large_pairwise_path_matches_measures(monkeypatch):
+    """Above PAIRWISE_DENSE_LIMIT the search sums pairwise distances itself instead of
+    building measures' dense matrix; both give the same normaliser and score."""
+    from zonedesign.search import state as state_mod
+
+    problem = voronoi_problem(40, seed=2, lo=20, hi=90, target=50, weights=ALL_TERMS, homogeneity="pairwise")
+    labels = _connected_pieces(problem.graph, np.arange(problem.n) % 4)
+    dense_norm = state_mod.search_normalisers(problem)
+    dense = state_mod.full_score(problem, labels)
+    monkeypatch.setattr(state_mod, "PAIRWISE_DENSE_LIMIT", 10)
+    by_pairs_norm = state_mod.search_normalisers(problem)
+    by_pairs = state_mod.full_score(problem, labels)
+    assert dense_norm == pytest.approx(by_pairs_norm, rel=1e-12)
+    assert close(by_pairs.total, dense.total) and close(by_pairs.breaks, dense.breaks)
+    for t in dense.terms:
+        assert close(by_pairs.terms[t], dense.terms[t])

@@ -174,3 +174,15 @@ def test_solver_name_is_checked():
     rng = np.random.default_rng(3)
     with pytest.raises(InputError, match="solver 'glpk'"):
         solve_exact(random_problem(rng, grid_graph(2, 2)), solver="glpk")
+
+
+def test_reduced_cost_thinning_keeps_the_optimum():
+    # over 1,500 feasible zones: HiGHS first thins them by LP reduced costs; CP-SAT solves
+    # the full set partitioning, so both must reach the same proven optimum
+    rng = np.random.default_rng(8)
+    p = random_problem(rng, grid_graph(4, 5), lo=10.0, hi=40.0)
+    assert feasible_zones(p).n > 1_500
+    highs = solve_exact(p, solver="highs")
+    cp = solve_exact(p, solver="cp-sat")
+    assert highs.proven and cp.proven
+    assert highs.objective == pytest.approx(cp.objective, abs=1e-5)

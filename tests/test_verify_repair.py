@@ -218,6 +218,6 @@ def test_repair_respects_fences_and_nesting_on_a_bigger_grid(seed):
              TierRules("ward", min={"persons": 40}, max={"persons": 500})]
     assert audit(areas, graph, labels, tiers).ok
     broken = break_randomly(rng, labels, 4)
-    result = minimal_repair(areas, graph, broken, tiers, time_limit=30)
-    assert result.ok
+    result = minimal_repair(areas, graph, broken, tiers, time_limit=6)
+    assert result.ok  # proven fewest, or valid with the proof left open
     assert audit(areas, graph, result.labels, tiers).ok

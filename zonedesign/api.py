@@ -418,6 +418,11 @@ def _jsonable(obj: Any) -> Any:
 
 def _check_out(out: Path, overwrite: bool, inputs: list[Path] | None = None) -> None:
     out = out.resolve()
+    for parent in out.parents:
+        if parent.exists():
+            if not parent.is_dir():
+                raise InputError(f"output folder {out} cannot be made: {parent} is a file")
+            break
     if out.exists() and not overwrite:
         raise InputError(f"output folder exists: {out} (use --overwrite to replace it)")
     for p in inputs or []:
@@ -696,7 +701,8 @@ def audit(
         problems = []
     seconds = dict(prep.seconds)
     t0 = time.perf_counter()
-    _say(progress, "checking coverage, nesting, contiguity, fences and bounds")
+    stage = Stages(progress, "auditing", 1 + int(certify) + int(repair))
+    stage("checking coverage, nesting, contiguity, fences and bounds")
     checked = run_audit(prep.areas, prep.graph, labels, tiers, lookup_problems=problems)
     summary = base_summary(prep, "audit")
     summary["audit"] = _jsonable(checked.to_json())
@@ -707,7 +713,7 @@ def audit(
     if certify:
         from zonedesign.verify.certificate import certify as run_certify
 
-        _say(progress, "building the CP-SAT certificate per fence and tier")
+        stage("building the CP-SAT certificate per fence and tier")
         certs = run_certify(prep.areas, prep.graph, labels, tiers)
         summary["certificate"] = [_jsonable(c) for c in certs]
     seconds["audit"] = time.perf_counter() - t0
@@ -717,7 +723,7 @@ def audit(
         from zonedesign.verify.repair import minimal_repair
 
         t0 = time.perf_counter()
-        _say(progress, "searching for the fewest area moves that mend every break")
+        stage("searching for the fewest area moves that mend every break")
         res = minimal_repair(prep.areas, prep.graph, labels, tiers, time_limit=60.0)
         moves = res.repair_frame()
         repaired = res.labels
@@ -728,6 +734,7 @@ def audit(
             "repaired_lookup_passes": bool(recheck.ok) if recheck is not None else False,
         }
         seconds["repair"] = time.perf_counter() - t0
+    stage.close()
     tables = {}
     if all(_complete(labels[n]) for n in names):
         from zonedesign.zonetables import all_tables

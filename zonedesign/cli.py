@@ -237,7 +237,7 @@ def main(argv: list[str] | None = None) -> int:
     except SystemExit as exc:  # --help, --version and usage errors
         return exc.code if isinstance(exc.code, int) else 2
     if not args.command:
-        parser.print_help()
+        _error("a command is needed: design, redraw, audit, sweep, demo, rules or show (see zonedesign --help)")
         return 2
     debug = getattr(args, "debug", False)
     in_main = _in_main_thread()
@@ -295,7 +295,7 @@ def _run(args: argparse.Namespace) -> int:
     from zonedesign import api
     from zonedesign.progress import Progress
 
-    say = Progress(quiet=getattr(args, "quiet", False))
+    say = Progress(quiet=getattr(args, "quiet", False), keep_interrupt=True)
     cmd = args.command
     if cmd == "design":
         res = api.design(

@@ -12,6 +12,7 @@ huge allocation between two samples (it then surfaces as MemoryError).
 
 from __future__ import annotations
 
+import _thread
 import contextlib
 import os
 import resource
@@ -133,8 +134,9 @@ class _Watchdog(threading.Thread):
             if size > self.limit:
                 self.seen = size
                 if self.interrupt and not self.stop.is_set():
-                    # a real SIGINT also wakes a main thread blocked in sleep or I/O
-                    signal.pthread_kill(threading.main_thread().ident, signal.SIGINT)
+                    # runs Python's SIGINT handler in the main thread even where a library
+                    # has reset the system-level SIGINT action (a real signal would kill)
+                    _thread.interrupt_main()
                 return
             self.stop.wait(INTERVAL)
 

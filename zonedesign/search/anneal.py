@@ -21,6 +21,7 @@ from zonedesign.search.kernels import (
     IV_NB,
     apply_move,
     donor_ok,
+    inner,
     key_less,
     move_values,
     unit_links,
@@ -70,13 +71,13 @@ def sample_uphill(st, seed, nsamp):
     return tot / cnt if cnt > 0 else 0.0
 
 
-@njit(cache=True)
+@inner
 def is_new_best(st, db, do, ctl):
     """The move (db, do) about to be made beats the best labelling seen."""
     return key_less(st.fv[FV_BRK] + db, st.fv[FV_TOTAL] + do, ctl[0], ctl[1])
 
 
-@njit(cache=True)
+@inner
 def log_move(st, i, b, newbest, best_labels, log, ctl, cti):
     """Book the move just made (unit i into zone b); on a new best, update best_labels."""
     nl = cti[CT_LOG]

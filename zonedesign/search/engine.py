@@ -9,11 +9,24 @@ Phases:
    labelling seen, then phase 2 again. Phase 2 only ever improves, so the result is never
    worse than the labelling the phase started from.
 
+4. for "annealing" or "tabu", a reshape phase: forced merges, splits, regrowths and
+   moves around random zones, each repaired by a local descent and kept only when better,
+   then phase 2 once more (reaching labellings single improving moves cannot: another
+   number of zones, or units exchanged between zones).
+
 Repeatability: every random choice comes from generators seeded by `seed`, and every
 phase stops on move or iteration budgets proportional to the number of units, so a seed
 gives the same labels on any machine and under any load. `time_limit` is only a safety
 cap, checked between compiled blocks; a run that reaches it says so in
-`info["stopped_by_time"]` and is the one case that may not repeat exactly.
+`info["stopped_by_time"]` and is the one case that may not repeat exactly. The clock
+starts after the kernels are compiled (or loaded from numba's cache, once per process),
+so a first compile never eats into the search.
+
+info: method, constructions (tried), construction_seconds, moves_tried,
+moves_accepted, merges, splits, rounds (descent / merge / split rounds), reshapes (kept),
+temperatures (annealing), tabu_iterations, start_key ((breaks, total) the improvement
+started from), zones, bounds_met, stopped_by_time, seconds, compile_seconds (when this
+call compiled or loaded the kernels).
 
 Stability: zones carry an anchor, the previous zone id they stand for. With `start` and
 `anchors` the anchors are those given; with `start` but no `anchors`, zone j of `start`
@@ -83,7 +96,13 @@ MIN_WORK = 200  # floor of the per-unit budgets, for tiny problems
 
 @dataclass
 class Solution:
-    """labels 0..k-1 per unit; score from measures; anchors (k,) previous zone per zone."""
+    """The zones found.
+
+    labels: zone 0..k-1 of every unit, zones numbered in order of first appearance.
+    score: measures.score of labels (with anchors when the problem has previous zones).
+    info: what the search did (see the module docstring).
+    anchors: (k,) the previous zone each zone stands for (-1: a new zone).
+    """
 
     labels: np.ndarray
     score: Score
@@ -141,6 +160,7 @@ def solve(
     if not time_limit > 0:
         raise InputError(f"time limit must be positive, got {time_limit}", where="search.time_limit_fence")
     _check_problem(problem)
+    compile_seconds = warm_up()
     n = problem.n
     t0 = time.perf_counter()
     if n == 0:
@@ -152,6 +172,8 @@ def solve(
     run = _Run(state, rules, seed, time_limit)
     info = run.info
     info["method"] = method
+    if compile_seconds:
+        info["compile_seconds"] = compile_seconds
     if start is None:
         labels, tried = _construct(run, max(1, int(rules.constructions)))
         info["constructions"] = tried
@@ -183,6 +205,65 @@ def solve(
     info["bounds_met"] = bool(sc.breaks == 0.0)
     info["seconds"] = time.perf_counter() - t0
     return Solution(labels=labels, score=sc, info=info, anchors=zone_anchors)
+
+
+# ---------------------------------------------------------------- compiling
+
+
+_WARM = False
+
+
+def warm_up() -> float:
+    """Compile (or load from cache) every kernel a search uses; seconds taken, 0 if done.
+
+    Runs each kernel once on a four-unit problem, so compile time is never counted against
+    a search's time limit.
+    """
+    global _WARM
+    if _WARM:
+        return 0.0
+    t0 = time.perf_counter()
+    from zonedesign.records import Bounds, Graph
+
+    g = Graph.from_edges(4, np.array([0, 1, 2]), np.array([1, 2, 3]), np.ones(3))
+    tiny = Problem(
+        graph=g,
+        counts=np.ones((4, 1)),
+        bounds=Bounds(("c",), np.array([1.0]), np.array([3.0]), np.array([2.0])),
+        attrs=np.zeros((4, 1)),
+        weight=np.ones(4),
+        area=np.ones(4),
+        perimeter=np.full(4, 4.0),
+    )
+    state = ZoneState(tiny)
+    st, zones = state.st, state.zones
+    everyone = np.arange(4, dtype=np.int64)
+    labels = np.full(4, -1, dtype=np.int64)
+    grow_zones(st, 1, 1.0, 1.0, labels, everyone, 0, 1.0, 1.0)
+    state.load(labels)
+    absorb_enclaves(st, 1)
+    K.relabel(st, everyone, np.array([0, 0, 1, 1]), zones.anchor.copy(), everyone[:0])
+    state.load(np.array([0, 0, 1, 1]))
+    stats = np.zeros(2, dtype=np.int64)
+    descent_sweep(st, 1, np.empty(4, dtype=np.int64), stats)
+    local_descent(st, 1, everyone[:1], stats)
+    best, log, ctl, cti = _search_control(state)
+    sample_uphill(st, 1, 1)
+    anneal_block(st, 1, 1.0, 1, best, log, ctl, cti)
+    tabu_block(st, 1, 0, 1, 4, 1, 1, np.full(4, -1, dtype=np.int64), np.zeros(4, dtype=np.int64), best, log, ctl, cti)
+    b, _, _, anc = best_merge(st, 0, 0, 0)
+    if b >= 0:
+        merge_zones(st, 0, int(b), int(anc))
+    try_split(st, int(zones.labels[0]), 1, np.empty(4, dtype=np.int64), 1)
+    K.exact_totals(st)
+    state.load(np.array([0, 0, 1, 1]))
+    K.donor_ok(st, 1)
+    K.unit_links(st, 1, 0)
+    K.move_unit(st, 1, 1)
+    K.pair_total(np.zeros((2, 1)))
+    K.seed_rng(1)
+    _WARM = True
+    return time.perf_counter() - t0
 
 
 # ---------------------------------------------------------------- checks and starts
@@ -387,11 +468,12 @@ def _tabu(run: _Run) -> None:
 def _reshape(run: _Run) -> None:
     """Forced merges, splits and regrowths, each repaired by a local descent, kept if better.
 
-    A single move never changes the number of zones, and a merge or split that only pays
-    once a few units have moved is never taken by the improving passes. Here a random zone
-    is cut at its best tree cut, or merged with its best partner whatever the price, or
-    dissolved with some of its neighbours and grown again towards random aims around the
-    target; the neighbourhood is brought back to a local optimum and the result is kept
+    A single move never changes the number of zones, and a merge, split or exchange of
+    units that only pays once a few units have moved is never taken by the improving
+    passes. Here a random zone is cut at its best tree cut, or merged with its best partner
+    whatever the price, or dissolved with some of its neighbours and grown again towards
+    random aims around the target, or loses one edge unit to a neighbour even if a bound
+    breaks; the neighbourhood is brought back to a local optimum and the result is kept
     when it beats the labelling before the change (breaks first); otherwise that labelling
     is restored.
     """
@@ -410,8 +492,20 @@ def _reshape(run: _Run) -> None:
         a = int(live[run.rng.integers(live.size)])
         before = state.running_key()
         labels, anchors = zones.labels.copy(), zones.anchor.copy()
-        kind = run.rng.integers(3)
-        if kind == 0 and zones.size[a] >= 2:
+        kind = run.rng.integers(4)
+        if kind == 3:
+            # a forced move (a break allowed), which the repair may turn into a swap
+            edge = np.flatnonzero((labels == a) & (zones.bpos >= 0))
+            if edge.size == 0:
+                continue
+            u = int(edge[run.rng.integers(edge.size)])
+            if not K.donor_ok(st, u):
+                continue
+            others = state.neighbour_zones(u)
+            b = int(others[run.rng.integers(others.size)])
+            K.move_unit(st, u, b)
+            touched = np.array([a, b], dtype=np.int64)
+        elif kind == 0 and zones.size[a] >= 2:
             K.seed_rng(run.seed())
             new = int(try_split(st, a, N_TREES, loc, 1))
             touched = np.array([a, new], dtype=np.int64)

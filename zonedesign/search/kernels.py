@@ -24,6 +24,9 @@ import numpy as np
 from numba import njit, types
 from numba.experimental import structref
 
+# kernels only ever called from other kernels: no Python entry point to build
+inner = njit(cache=True, no_cpython_wrapper=True, no_cfunc_wrapper=True)
+
 # tolerances: a change smaller than these is no change (float noise of incremental sums)
 EPS_BRK = 1e-12
 EPS_OBJ = 1e-12
@@ -36,6 +39,10 @@ IV_ZSTAMP = 3  # visit stamp for zone marks
 # slots of Zones.fv
 FV_TOTAL = 0
 FV_BRK = 1
+# Data.par: coef (4), kind (3), then lo, hi, target, tmask (c each) from PAR_BOUNDS on;
+# one array instead of six keeps the most frequent call cheap
+PAR_KIND = 4
+PAR_BOUNDS = 7
 
 Data = namedtuple(
     "Data",
@@ -56,6 +63,7 @@ Data = namedtuple(
         "prev",  # (n,) int64 previous zone (-1 none)
         "coef",  # (4,) float64 term weight / normaliser: size, homogeneity, compactness, stability
         "kind",  # (3,) int64: pairwise homogeneity?, cut compactness?, stability kept?
+        "par",  # coef, kind and bounds packed for zone_value (see PAR_*)
     ],
 )
 
@@ -115,7 +123,7 @@ _F2 = types.Array(types.float64, 2, "C")
 _FIELD_TYPES = {
     "counts": _F2, "x": _F2, "csum": _F2, "S": _F2,
     "length": _F1, "lo": _F1, "hi": _F1, "target": _F1, "w": _F1, "q": _F1, "area": _F1,
-    "perim": _F1, "coef": _F1, "W": _F1, "Q": _F1, "H": _F1, "A": _F1, "P": _F1, "cost": _F1,
+    "perim": _F1, "coef": _F1, "par": _F1, "W": _F1, "Q": _F1, "H": _F1, "A": _F1, "P": _F1, "cost": _F1,
     "brk": _F1, "fv": _F1, "zacc": _F1, "tc": _F1,
 }  # fmt: skip
 STATE_TYPE = StateType([(f, _FIELD_TYPES.get(f, _I1)) for f in Data._fields + Zones._fields])
@@ -148,6 +156,7 @@ def make_data(
         prev=f(prev, dtype=np.int64),
         coef=f(coef, dtype=np.float64),
         kind=f(kind, dtype=np.int64),
+        par=f(np.concatenate([coef, kind, lo, hi, np.where(tmask == 1, target, 1.0), tmask]), dtype=np.float64),
     )
 
 
@@ -206,6 +215,7 @@ def _new_state(d, z):
     st.prev = d.prev
     st.coef = d.coef
     st.kind = d.kind
+    st.par = d.par
     st.labels = z.labels
     st.nxt = z.nxt
     st.prv = z.prv
@@ -246,19 +256,19 @@ def new_state(d: Data, z: Zones) -> State:
 # ---------------------------------------------------------------- small helpers
 
 
-@njit(cache=True)
+@inner
 def better(db, do):
     """A change (break change db, objective change do) that is a strict improvement."""
     return db < -EPS_BRK or (db <= EPS_BRK and do < -EPS_OBJ)
 
 
-@njit(cache=True)
+@inner
 def key_less(b1, t1, b2, t2):
     """(b1, t1) strictly before (b2, t2), breaks first."""
     return b1 < b2 - EPS_BRK or (b1 <= b2 + EPS_BRK and t1 < t2 - EPS_OBJ)
 
 
-@njit(cache=True)
+@inner
 def dist(x, i, j):
     s = 0.0
     for t in range(x.shape[1]):
@@ -267,7 +277,7 @@ def dist(x, i, j):
     return np.sqrt(s)
 
 
-@njit(cache=True)
+@inner
 def link(st, i, zone):
     head = st.head
     h = head[zone]
@@ -278,7 +288,7 @@ def link(st, i, zone):
     head[zone] = i
 
 
-@njit(cache=True)
+@inner
 def unlink(st, i, zone):
     nxt = st.nxt
     prv = st.prv
@@ -294,7 +304,7 @@ def unlink(st, i, zone):
     prv[i] = -1
 
 
-@njit(cache=True)
+@inner
 def boundary_status(st, j):
     """Put j on the boundary list when it has a neighbour in another zone, else take it off."""
     bpos = st.bpos
@@ -316,7 +326,7 @@ def boundary_status(st, j):
         iv[IV_NB] = nb
 
 
-@njit(cache=True)
+@inner
 def pop_free(st):
     nf = st.iv[IV_NFREE] - 1
     st.iv[IV_NFREE] = nf
@@ -325,7 +335,7 @@ def pop_free(st):
     return zone
 
 
-@njit(cache=True)
+@inner
 def push_free(st, zone):
     st.free[st.iv[IV_NFREE]] = zone
     st.iv[IV_NFREE] += 1
@@ -334,33 +344,33 @@ def push_free(st, zone):
 # ---------------------------------------------------------------- zone value
 
 
-@njit(cache=True)
-def zone_value(st, s, npos, W, Ssq, Q, H, A, P, nstab):
+@inner
+def zone_value(par, s, npos, W, Ssq, Q, H, A, P, nstab):
     """(weighted normalised cost, bound break) of a zone from its sums (measures' formulas).
 
-    s: count sums (c,); npos: members with positive weight; W, Ssq, Q: weight sum, squared
-    norm of the weighted attribute sum, sum of w ||x||^2; H: pairwise distance sum; A, P:
-    area and perimeter; nstab: members whose previous zone differs from the anchor.
+    par: Data.par; s: count sums (c,); npos: members with positive weight; W, Ssq, Q:
+    weight sum, squared norm of the weighted attribute sum, sum of w ||x||^2; H: pairwise
+    distance sum; A, P: area and perimeter; nstab: members whose previous zone differs
+    from the anchor.
     """
-    tmask = st.tmask
-    target = st.target
-    lo = st.lo
-    hi = st.hi
+    nc = s.shape[0]
     size = 0.0
     brk = 0.0
-    for c in range(s.shape[0]):
+    for c in range(nc):
         v = s[c]
-        if tmask[c] == 1:
-            size += abs(v - target[c]) / target[c]
+        lo = par[PAR_BOUNDS + c]
+        hi = par[PAR_BOUNDS + nc + c]
+        target = par[PAR_BOUNDS + 2 * nc + c]
+        if par[PAR_BOUNDS + 3 * nc + c] == 1.0:
+            size += abs(v - target) / target
         under = 0.0
         over = 0.0
-        if np.isfinite(lo[c]) and v < lo[c]:
-            under = (lo[c] - v) / max(abs(lo[c]), 1.0)
-        if np.isfinite(hi[c]) and v > hi[c]:
-            over = (v - hi[c]) / max(abs(hi[c]), 1.0)
+        if np.isfinite(lo) and v < lo:
+            under = (lo - v) / max(abs(lo), 1.0)
+        if np.isfinite(hi) and v > hi:
+            over = (v - hi) / max(abs(hi), 1.0)
         brk += under + over
-    kind = st.kind
-    if kind[0] == 1:
+    if par[PAR_KIND] == 1.0:
         hom = H
     elif npos > 0:
         hom = Q - Ssq / W
@@ -368,18 +378,17 @@ def zone_value(st, s, npos, W, Ssq, Q, H, A, P, nstab):
             hom = 0.0
     else:
         hom = 0.0
-    if kind[1] == 1:
+    if par[PAR_KIND + 1] == 1.0:
         comp = P / 2.0
     elif P > 0.0:
         comp = 1.0 - 4.0 * np.pi * A / (P * P)
     else:
         comp = 1.0
-    coef = st.coef
-    cost = coef[0] * size + coef[1] * hom + coef[2] * comp + coef[3] * nstab
+    cost = par[0] * size + par[1] * hom + par[2] * comp + par[3] * nstab
     return cost, brk
 
 
-@njit(cache=True)
+@inner
 def dist_to_zone(st, i, zone):
     """Sum of attribute distances from unit i to the members of zone (i itself excluded)."""
     s = 0.0
@@ -395,7 +404,7 @@ def dist_to_zone(st, i, zone):
     return s
 
 
-@njit(cache=True)
+@inner
 def value_with(st, zone, i, sign, lz, hz):
     """(cost, break) of `zone` after adding (sign=+1) or removing (sign=-1) unit i.
 
@@ -425,10 +434,10 @@ def value_with(st, zone, i, sign, lz, hz):
     ns = st.nstab[zone]
     if st.kind[2] == 1 and st.prev[i] != st.anchor[zone]:
         ns += isign
-    return zone_value(st, tc, npos, W, Ssq, Q, H, A, P, ns)
+    return zone_value(st.par, tc, npos, W, Ssq, Q, H, A, P, ns)
 
 
-@njit(cache=True)
+@inner
 def stored_value(st, zone):
     """(cost, break) of zone from its kept sums."""
     if st.size[zone] == 0:
@@ -438,14 +447,14 @@ def stored_value(st, zone):
     for t in range(S.shape[1]):
         Ssq += S[zone, t] * S[zone, t]
     return zone_value(
-        st, st.csum[zone], st.npos[zone], st.W[zone], Ssq, st.Q[zone], st.H[zone], st.A[zone], st.P[zone], st.nstab[zone]
+        st.par, st.csum[zone], st.npos[zone], st.W[zone], Ssq, st.Q[zone], st.H[zone], st.A[zone], st.P[zone], st.nstab[zone]
     )
 
 
 # ---------------------------------------------------------------- boundary
 
 
-@njit(cache=True)
+@inner
 def recount(st, j):
     """Recount j's neighbours in other zones and update the boundary list."""
     indptr = st.indptr
@@ -460,7 +469,7 @@ def recount(st, j):
     boundary_status(st, j)
 
 
-@njit(cache=True)
+@inner
 def refresh_zone_boundary(st, zone):
     """Recount the boundary status of zone's members and of their neighbours."""
     indptr = st.indptr
@@ -480,7 +489,7 @@ def refresh_zone_boundary(st, zone):
 # ---------------------------------------------------------------- building
 
 
-@njit(cache=True)
+@inner
 def recompute_zone(st, zone):
     """Recompute zone's sums from its members (exact), keeping the running totals."""
     fv = st.fv
@@ -756,7 +765,7 @@ def donor_ok(st, i):
     return False
 
 
-@njit(cache=True)
+@inner
 def move_values(st, i, a, b, la, lb):
     """(donor cost, donor break, receiver cost, receiver break) after moving i from a to b."""
     ha = 0.0
@@ -772,7 +781,7 @@ def move_values(st, i, a, b, la, lb):
     return ca, ba, cb, bb
 
 
-@njit(cache=True)
+@inner
 def apply_move(st, i, b, la, lb):
     """Move unit i to zone b (i may be unassigned); la, lb: i's shared length with each."""
     labels = st.labels

@@ -23,6 +23,7 @@ from zonedesign.search.kernels import (
     IV_ZSTAMP,
     better,
     dist,
+    inner,
     is_better,
     key_less,
     link,
@@ -42,7 +43,7 @@ N_EXACT = 8  # cuts priced exactly per tree when the pairwise term needs the mem
 # ---------------------------------------------------------------- merge
 
 
-@njit(cache=True)
+@inner
 def zone_neighbours(st, a):
     """Zones adjacent to a: st.ztouch[:nt] with shared length in st.zacc; returns nt."""
     indptr = st.indptr
@@ -72,7 +73,7 @@ def zone_neighbours(st, a):
     return nt
 
 
-@njit(cache=True)
+@inner
 def merge_value(st, a, b, shared, anc):
     """(cost, break) of the union of zones a and b with anchor anc."""
     tc = st.tc
@@ -107,7 +108,7 @@ def merge_value(st, a, b, shared, anc):
                     ns += 1
                 u = nxt[u]
     return zone_value(
-        st,
+        st.par,
         tc,
         st.npos[a] + st.npos[b],
         st.W[a] + st.W[b],
@@ -235,7 +236,7 @@ def merge_delta(st, a, b):
 # ---------------------------------------------------------------- split
 
 
-@njit(cache=True)
+@inner
 def pair_sum(x, mem, part, side):
     """Pairwise distance sum over members whose part flag equals side."""
     m = mem.shape[0]
@@ -249,7 +250,7 @@ def pair_sum(x, mem, part, side):
     return h
 
 
-@njit(cache=True)
+@inner
 def mark_part(order, parent, k, part):
     """part[p] = 1 for the subtree below order[k] (parents precede children in order)."""
     m = part.shape[0]
@@ -262,7 +263,7 @@ def mark_part(order, parent, k, part):
             part[v] = 1
 
 
-@njit(cache=True)
+@inner
 def random_tree(st, zone, mem, loc, parent, depth, order):
     """A random spanning tree of zone over local indices: grown from a random root by
     taking frontier units at random. Returns the number of units reached."""
@@ -305,7 +306,7 @@ def random_tree(st, zone, mem, loc, parent, depth, order):
     return cnt
 
 
-@njit(cache=True)
+@inner
 def subtree_sums(st, zone, mem, loc, parent, depth, order, sv, si):
     """Per tree node, the sums over its subtree, packed.
 
@@ -369,7 +370,7 @@ def subtree_sums(st, zone, mem, loc, parent, depth, order, sv, si):
             si[pv, col] += si[v, col]
 
 
-@njit(cache=True)
+@inner
 def packed_value(st, row, npos, ns, perimeter):
     """(cost, break) of a part from a packed row of subtree sums (see subtree_sums)."""
     nc = st.counts.shape[1]
@@ -378,7 +379,10 @@ def packed_value(st, row, npos, ns, perimeter):
     for t in range(na):
         Ssq += row[nc + t] * row[nc + t]
     base = nc + na
-    return zone_value(st, row[:nc], npos, row[base], Ssq, row[base + 1], 0.0, row[base + 2], perimeter, ns)
+    tc = st.tc
+    for c in range(nc):
+        tc[c] = row[c]
+    return zone_value(st.par, tc, npos, row[base], Ssq, row[base + 1], 0.0, row[base + 2], perimeter, ns)
 
 
 @njit(cache=True)

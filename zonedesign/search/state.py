@@ -34,10 +34,11 @@ def search_normalisers(problem: Problem) -> dict[str, float]:
 
 
 def unit_attrs(problem: Problem) -> np.ndarray:
+    """The standardised attributes as a C-ordered (n, a) float array (a may be 0)."""
     x = np.asarray(problem.attrs, dtype=np.float64)
-    if x.ndim == 1:
-        x = x.reshape(problem.n, -1)
-    return np.ascontiguousarray(x.reshape(problem.n, -1) if x.size else np.zeros((problem.n, 0)))
+    if x.size == 0:
+        return np.zeros((problem.n, 0))
+    return np.ascontiguousarray(x.reshape(problem.n, -1))
 
 
 def problem_data(problem: Problem, norm: dict[str, float] | None = None) -> K.Data:

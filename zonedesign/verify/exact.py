@@ -453,8 +453,9 @@ def solve_exact(
     return ExactResult(labels, objective, proven, status, zones.n, seconds)
 
 
-def _milp(costs: np.ndarray, a: csc_matrix, time_limit: float):
-    return milp(
+def _milp(costs: np.ndarray, a: csc_matrix, time_limit: float) -> tuple[int, np.ndarray | None]:
+    """(scipy milp status, x or None) for set partitioning over the columns of `a`."""
+    res = milp(
         costs,
         constraints=LinearConstraint(a, 1.0, 1.0),
         integrality=np.ones(costs.shape[0]),
@@ -463,17 +464,24 @@ def _milp(costs: np.ndarray, a: csc_matrix, time_limit: float):
         # proven in 2 s without)
         options={"time_limit": max(float(time_limit), 0.05), "disp": False, "presolve": False},
     )
+    return int(res.status), res.x
 
 
-DIRECT_COLUMNS = 20_000  # above this, columns are first thinned by LP reduced costs
+# HiGHS overruns its time limit on large set-partitioning models while it separates cuts
+# at the root (trial runs: 43 s on a 14 s limit with 20,000 zones), so it only ever sees
+# this many zones; larger models are thinned by reduced costs first, and what remains
+# beyond this size goes to CP-SAT, which keeps to its limit
+HIGHS_COLUMNS = 5_000
+# zones of least reduced cost that the first MIP (the one that sets UB) may choose from
+TRIAL_COLUMNS = 1_500
 
 
 def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
     """Set partitioning with HiGHS; large models are thinned by reduced-cost fixing.
 
     With the LP optimum LB and duals y, a zone j in any partition costing at most UB needs
-    LB + (c_j - a_j.y) <= UB, so zones with larger reduced cost are dropped before the MIP;
-    UB comes from a MIP over the zones of least reduced cost.
+    LB + (c_j - a_j.y) <= UB, so zones with larger reduced cost are dropped; UB comes from
+    a MIP over the zones of least reduced cost.
     """
     start = time.perf_counter()
     cols = np.repeat(np.arange(zones.n), np.diff(zones.ptr))
@@ -481,37 +489,49 @@ def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
     costs = zones.costs
     keep = np.arange(zones.n)
     incumbent = None
-    if zones.n > DIRECT_COLUMNS:
+    if zones.n > TRIAL_COLUMNS:
         lp = linprog(costs, A_eq=a, b_eq=np.ones(n), bounds=(0, None), method="highs",
-                     options={"time_limit": max(time_limit * 0.4, 0.05), "presolve": False})
+                     options={"time_limit": max(time_limit * 0.3, 0.05), "presolve": False})
         if lp.status == 2:
             return None, True, "infeasible: no set of feasible zones covers every unit exactly once"
         if lp.status == 0:
             reduced = costs - a.T @ lp.eqlin.marginals
-            order = np.argsort(reduced, kind="stable")
-            trial = np.sort(order[:DIRECT_COLUMNS])
+            trial = np.sort(np.argsort(reduced, kind="stable")[:TRIAL_COLUMNS])
             left = time_limit - (time.perf_counter() - start)
-            res = _milp(costs[trial], a[:, trial], left * 0.5)
-            if res.x is not None:
-                incumbent = trial[res.x > 0.5]
+            status, x = _milp(costs[trial], a[:, trial], left * 0.3)
+            if x is not None:
+                incumbent = trial[x > 0.5]
                 upper = float(costs[incumbent].sum())
                 keep = np.flatnonzero(reduced <= upper - lp.fun + 1e-9)
     left = time_limit - (time.perf_counter() - start)
-    res = _milp(costs[keep], a[:, keep], left)
-    if res.status == 2 and incumbent is None:
-        return None, True, "infeasible: no set of feasible zones covers every unit exactly once"
-    if res.x is not None:
-        chosen = keep[res.x > 0.5]
-        if res.status == 0:
+    if keep.size <= HIGHS_COLUMNS:
+        status, x = _milp(costs[keep], a[:, keep], left)
+        proven = status == 0
+        chosen = keep[x > 0.5] if x is not None else None
+        if status == 2 and incumbent is None:
+            return None, True, "infeasible: no set of feasible zones covers every unit exactly once"
+    else:
+        sub = FeasibleZones(
+            ptr=np.concatenate([[0], np.cumsum(np.diff(zones.ptr)[keep])]),
+            members=np.concatenate([zones.zone(j) for j in keep]),
+            costs=costs[keep], complete=True, reason="",
+        )
+        hint = np.searchsorted(keep, incumbent) if incumbent is not None else None
+        picked, proven, text = _partition_cp_sat(n, sub, left, hint=hint)
+        if picked is None and proven and incumbent is None:
+            return None, True, text
+        chosen = keep[picked] if picked is not None else None
+    if chosen is not None:
+        if proven:
             return chosen, True, "optimal"
         if incumbent is None or costs[chosen].sum() < costs[incumbent].sum():
             incumbent = chosen
     if incumbent is None:
-        return None, False, f"too large to prove: HiGHS found no partition within {time_limit:.3g} s"
+        return None, False, f"too large to prove: no partition found within {time_limit:.3g} s"
     return incumbent, False, f"feasible, optimality not proven within {time_limit:.3g} s"
 
 
-def _partition_cp_sat(n: int, zones: FeasibleZones, time_limit: float):
+def _partition_cp_sat(n: int, zones: FeasibleZones, time_limit: float, hint: np.ndarray | None = None):
     from ortools.sat.python import cp_model
 
     m = cp_model.CpModel()
@@ -525,8 +545,12 @@ def _partition_cp_sat(n: int, zones: FeasibleZones, time_limit: float):
         m.AddExactlyOne(cover[i])
     # objective: least total cost (in millionths)
     m.Minimize(sum(int(round(c * COST_SCALE)) * v for c, v in zip(zones.costs, z)))
+    if hint is not None:
+        chosen = set(int(j) for j in hint)
+        for j, v in enumerate(z):
+            m.AddHint(v, int(j in chosen))
     solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = float(time_limit)
+    solver.parameters.max_time_in_seconds = max(float(time_limit), 0.05)
     solver.parameters.num_workers = 1
     solver.parameters.cp_model_presolve = False
     status = solver.Solve(m)

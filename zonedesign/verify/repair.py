@@ -22,9 +22,13 @@ models. Each cluster is solved in stages: first only areas within 1, 2, 4, 8 ste
 offending areas (the detached part of a zone, the areas across a fence or under the wrong
 parent, a zone outside its bounds, areas without a zone) may move, the rest of each
 region zone held as fixed pieces; then the whole region. The fewest moves found is kept.
-"optimal" means proven fewest over the whole region; when the region is too large to
-prove (more than `max_units` movable units on a tier, or out of time), the result is
-"feasible" and the reason says within how many steps the count is proven fewest. On
+A lower bound ends the stages early: faults that share no (area, tier) label each need a
+move of their own (an area without a zone takes a label, a zone across a fence loses one
+of its areas, a zone under two parents relabels one of its areas), so a repair with that
+many moves is proven fewest. "optimal" means proven fewest over the whole region; when
+the region is too large to prove (more than `max_units` movable units on a tier, or out
+of time), the result is "feasible" and the reason says within how many steps the count
+is proven fewest. On
 regions with many zones a unit may only move to zones near it (its own, those within two
 steps, and the new ones).
 """
