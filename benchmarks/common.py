@@ -231,7 +231,11 @@ def fmt(v, digits: int = 3) -> str:
 def md_table(rows: list[dict], columns: Sequence[str] | None = None, digits: int = 3) -> str:
     if not rows:
         return "(no rows)\n"
-    columns = list(columns or rows[0].keys())
+    if columns is None:
+        columns = []
+        for r in rows:
+            columns += [k for k in r if k not in columns]
+    columns = list(columns)
     out = ["| " + " | ".join(columns) + " |", "|" + "|".join("---" for _ in columns) + "|"]
     for r in rows:
         out.append("| " + " | ".join(fmt(r.get(c, ""), digits) for c in columns) + " |")

@@ -143,8 +143,9 @@ _RSS_SCRIPT = """
 import os, resource, subprocess, sys, time, json
 t0 = time.perf_counter()
 rc = subprocess.call(sys.argv[1:])
-print(json.dumps({"rc": rc, "wall": time.perf_counter() - t0,
-                  "maxrss_kb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss}))
+ru = resource.getrusage(resource.RUSAGE_CHILDREN)
+print(json.dumps({"rc": rc, "wall": time.perf_counter() - t0, "cpu": ru.ru_utime + ru.ru_stime,
+                  "maxrss_kb": ru.ru_maxrss}))
 """
 
 
@@ -165,6 +166,7 @@ def run_cli_measured(
     summary = json.loads((out / "summary.json").read_text()) if (out / "summary.json").is_file() else {}
     return {
         "wall_s": info["wall"],
+        "cpu_s": info["cpu"],
         "exit_code": info["rc"],
         "peak_rss_gb": info["maxrss_kb"] / 1024**2,
         "stderr": done.stderr.strip().splitlines()[-3:],
@@ -178,12 +180,16 @@ def io_floor(areas: Path, out: Path, scratch: Path) -> dict:
     import pandas as pd
     import pyogrio
 
+    gpd.read_parquet(areas)  # untimed: the first call in a process also loads pyarrow's readers
+    c0 = time.process_time()
     with Clock() as r:
         gdf = gpd.read_parquet(areas)
     n = len(gdf)
     del gdf
+    c1 = time.process_time()
     lookup = pd.read_csv(out / "lookup.csv", dtype=str)
     layers = {name: pyogrio.read_dataframe(out / "zones.gpkg", layer=name) for name, _ in pyogrio.list_layers(out / "zones.gpkg")}
+    read_back = time.process_time() - c1
     scratch.mkdir(parents=True, exist_ok=True)
     with Clock() as w1:
         lookup.to_csv(scratch / "lookup.csv", index=False, lineterminator="\n")
@@ -193,7 +199,9 @@ def io_floor(areas: Path, out: Path, scratch: Path) -> dict:
     with Clock() as w2:
         for name, layer in layers.items():
             pyogrio.write_dataframe(layer, target, layer=name, driver="GPKG")
+    cpu = time.process_time() - c0  # read and writes; the reads of the run's outputs between are excluded below
     return {
+        "floor_cpu_s": cpu - read_back,
         "areas": n,
         "read_s": r.seconds,
         "write_lookup_s": w1.seconds,
@@ -206,6 +214,7 @@ def io_floor(areas: Path, out: Path, scratch: Path) -> dict:
 def read_gpkg_seconds(path: Path) -> float:
     import pyogrio
 
+    pyogrio.read_dataframe(path, layer="areas", max_features=10)
     with Clock() as c:
         pyogrio.read_dataframe(path, layer="areas")
     return c.seconds
@@ -244,6 +253,7 @@ def main(quick: bool = False, folder: Path | None = None, log=print, sizes: list
                 "exit_code": res["exit_code"],
                 "wall_s": res["wall_s"],
                 "total_s": total,
+                "cpu_s": res["cpu_s"],
                 **{f"{k}_s": float(v) for k, v in sec.items() if k != "total"},
                 "peak_rss_gb": res["peak_rss_gb"],
                 "floor_s": floor.get("floor_s", math.nan),
@@ -251,26 +261,30 @@ def main(quick: bool = False, folder: Path | None = None, log=print, sizes: list
                 "floor_write_lookup_s": floor.get("write_lookup_s", math.nan),
                 "floor_write_layers_s": floor.get("write_layers_s", math.nan),
                 "gpkg_read_s": gpkg_read,
+                "floor_cpu_s": floor.get("floor_cpu_s", math.nan),
                 "x_floor": total / floor["floor_s"] if floor else math.nan,
+                "x_floor_cpu": res["cpu_s"] / floor["floor_cpu_s"] if floor else math.nan,
                 "zones": ", ".join(f"{k} {v:,}" for k, v in floor.get("zones", {}).items()),
                 "bound_breaks": len(res["summary"].get("bound_breaks", [])),
                 "audit_ok": res["summary"].get("audit", {}).get("ok"),
             }
             rows.append(row)
-            log(f"  {n:,} areas: {total:.1f} s end to end ({row['x_floor']:.1f} x the I/O floor), peak RSS {row['peak_rss_gb']:.2f} GB")
+            log(f"  {n:,} areas: {total:.1f} s end to end, {row['cpu_s']:.1f} CPU s ({row['x_floor_cpu']:.1f} x the I/O floor by CPU), peak RSS {row['peak_rss_gb']:.2f} GB")
             if n == sizes[0] and not quick:
                 cert = run_cli_measured(paths["parquet"], paths["rules"], work / f"cert{n}", certificate=True, env=env)
                 cs = cert["summary"].get("seconds", {})
                 extra.append({"run": f"{n:,} areas with the CP-SAT certificate", "total_s": float(cs.get("total", cert["wall_s"])),
                               "audit_s": float(cs.get("audit", math.nan)), "peak_rss_gb": cert["peak_rss_gb"],
-                              "x_plain_run": float(cs.get("total", cert["wall_s"])) / total})
+                              "x_plain_run": float(cs.get("total", cert["wall_s"])) / total,
+                              "cpu_s": cert["cpu_s"], "x_plain_run_cpu": cert["cpu_s"] / res["cpu_s"]})
                 log(f"  {n:,} areas with the certificate: {extra[-1]['total_s']:.1f} s")
             if n == 200_000 and not quick:
                 rep = run_cli_measured(paths["parquet"], paths["rules"], work / f"report{n}", report=True, env=env)
                 rs = rep["summary"].get("seconds", {})
                 extra.append({"run": f"{n:,} areas with the HTML report", "total_s": float(rs.get("total", rep["wall_s"])),
                               "report_s": float(rs.get("report", math.nan)), "peak_rss_gb": rep["peak_rss_gb"],
-                              "x_plain_run": float(rs.get("total", rep["wall_s"])) / total})
+                              "x_plain_run": float(rs.get("total", rep["wall_s"])) / total,
+                              "cpu_s": rep["cpu_s"], "x_plain_run_cpu": rep["cpu_s"] / res["cpu_s"]})
                 log(f"  {n:,} areas with the report: {extra[-1]['total_s']:.1f} s")
             shutil.rmtree(work / f"in{n}", ignore_errors=True)
     finally:
@@ -285,20 +299,30 @@ def main(quick: bool = False, folder: Path | None = None, log=print, sizes: list
 
 def _goals(rows: list[dict]) -> str:
     by = {r["areas"]: r for r in rows}
-    lines = []
+    lines = [
+        "Ratios by CPU seconds (the child's user + system time against this process's for the "
+        "floor) are the ones judged: on a shared machine they move far less with the load than "
+        "wall-clock ratios, which are given beside them.",
+        "",
+    ]
     big = by.get(200_000) or rows[-1]
     lines.append(
-        f"- {big['areas']:,} areas x 3 tiers end to end: {big['total_s']:.1f} s = **{big['x_floor']:.1f} x** the I/O floor "
-        f"({big['floor_s']:.2f} s) (goal <= {GOAL_FLOOR:.0f} x: {'met' if big['x_floor'] <= GOAL_FLOOR else 'MISSED'})"
+        f"- {big['areas']:,} areas x 3 tiers end to end: {big['cpu_s']:.1f} CPU s = **{big['x_floor_cpu']:.1f} x** the I/O "
+        f"floor ({big['floor_cpu_s']:.2f} CPU s) (goal <= {GOAL_FLOOR:.0f} x: {'met' if big['x_floor_cpu'] <= GOAL_FLOOR else 'MISSED'}); "
+        f"by wall clock {big['total_s']:.1f} s = {big['x_floor']:.1f} x ({big['floor_s']:.2f} s)"
     )
     if 200_000 in by and 20_000 in by:
-        g = by[200_000]["total_s"] / by[20_000]["total_s"]
-        lines.append(f"- time(200k) / time(20k) = **{g:.1f}** (goal <= {GOAL_GROWTH:.0f}: {'met' if g <= GOAL_GROWTH else 'MISSED'})")
+        g = by[200_000]["cpu_s"] / by[20_000]["cpu_s"]
+        gw = by[200_000]["total_s"] / by[20_000]["total_s"]
+        lines.append(
+            f"- time(200k) / time(20k) = **{g:.1f}** by CPU seconds (goal <= {GOAL_GROWTH:.0f}: "
+            f"{'met' if g <= GOAL_GROWTH else 'MISSED'}); {gw:.1f} by wall clock"
+        )
     else:
         lines.append("- time(200k) / time(20k): not measured in this mode")
     peak = max(r["peak_rss_gb"] for r in rows)
     lines.append(f"- peak RSS **{peak:.2f} GB** (goal <= {GOAL_RSS_GB:.0f} GB: {'met' if peak <= GOAL_RSS_GB else 'MISSED'})")
-    phases = [k for k in rows[-1] if k.endswith("_s") and k not in ("wall_s", "total_s") and not k.startswith(("floor", "gpkg"))]
+    phases = [k for k in rows[-1] if k.endswith("_s") and k not in ("wall_s", "total_s", "cpu_s") and not k.startswith(("floor", "gpkg"))]
     if phases:
         top = max(phases, key=lambda k: rows[-1][k])
         lines.append(f"- the largest phase at {rows[-1]['areas']:,} areas: {top[:-2]} ({rows[-1][top]:.1f} s of {rows[-1]['total_s']:.1f} s)")

@@ -7,6 +7,7 @@ same labelling, and each predicted change must equal the change that happened.
 
 from __future__ import annotations
 
+import networkx as nx
 import numpy as np
 import pytest
 from search_support import grid_graph, make_problem, nx_graph, voronoi_problem
@@ -149,8 +150,6 @@ def test_walk_without_previous_zones_matches_measures():
 
 
 def _connected_pieces(graph, labels: np.ndarray) -> np.ndarray:
-    import networkx as nx
-
     g = nx_graph(graph)
     out = np.full(graph.n, -1, dtype=np.int64)
     k = 0

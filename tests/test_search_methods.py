@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import networkx as nx
 import numpy as np
 import pytest
@@ -174,8 +176,6 @@ def test_redraw_keeps_zones_that_still_meet_the_rules_when_stability_dominates()
     problem = grid_case(8)
     old = solve(problem, method="tabu", seed=4)
     assert old.score.breaks == 0.0
-    from dataclasses import replace
-
     redraw = replace(
         problem,
         previous=old.labels.copy(),

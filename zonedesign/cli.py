@@ -229,6 +229,15 @@ def _on_sigterm(signum: int, frame: object) -> NoReturn:
     raise SystemExit(128 + signum)
 
 
+_interrupted: list[int] = []
+
+
+def _on_sigint(signum: int, frame: object) -> NoReturn:
+    # remembered, because a library may turn the KeyboardInterrupt into an error of its own
+    _interrupted.append(signum)
+    raise KeyboardInterrupt
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run one command; returns the exit code (see the module docstring)."""
     parser = _parser()
@@ -242,6 +251,8 @@ def main(argv: list[str] | None = None) -> int:
     debug = getattr(args, "debug", False)
     in_main = _in_main_thread()
     previous = signal.signal(signal.SIGTERM, _on_sigterm) if in_main else None
+    previous_int = signal.signal(signal.SIGINT, _on_sigint) if in_main else None
+    _interrupted.clear()
     try:
         from zonedesign.memory import memory_guard
 
@@ -272,6 +283,9 @@ def main(argv: list[str] | None = None) -> int:
         _error(f"{where}{exc.strerror or exc}")
         return 2
     except Exception as exc:  # noqa: BLE001 - a bug: one line, the traceback on request
+        if _interrupted and not debug:
+            print("zonedesign: interrupted; no output folder was left half-written", file=sys.stderr)
+            return 130
         if debug:
             raise
         first = (str(exc).splitlines() or [""])[0]
@@ -283,6 +297,8 @@ def main(argv: list[str] | None = None) -> int:
     finally:
         if in_main and previous is not None:
             signal.signal(signal.SIGTERM, previous)
+        if in_main and previous_int is not None:
+            signal.signal(signal.SIGINT, previous_int)
 
 
 def _in_main_thread() -> bool:

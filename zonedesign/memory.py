@@ -185,9 +185,10 @@ def memory_guard(limit: str | int | None) -> Iterator[None]:
         yield
         return
     size = parse_size(limit)
-    # interrupt only a main thread whose SIGINT raises KeyboardInterrupt (the default)
+    # interrupt only a main thread whose SIGINT runs a Python handler (which raises
+    # KeyboardInterrupt by default); elsewhere the checkpoints alone stop the run
     main = threading.current_thread() is threading.main_thread()
-    dog = _Watchdog(size, str(limit), interrupt=main and signal.getsignal(signal.SIGINT) is signal.default_int_handler)
+    dog = _Watchdog(size, str(limit), interrupt=main and callable(signal.getsignal(signal.SIGINT)))
     soft, hard = resource.getrlimit(resource.RLIMIT_AS)
     cap = size + ADDRESS_MARGIN
     if hard != resource.RLIM_INFINITY:

@@ -202,7 +202,7 @@ def _certify_fence(
     # contiguity, flow capacity: (zone size - 1) on an arc whose ends share a zone, else 0
     inflow: list[list] = [[] for _ in range(units.size)]
     outflow: list[list] = [[] for _ in range(units.size)]
-    n_arcs = 0
+    flow: dict[tuple[int, int], cp_model.IntVar] = {}
     for e, (a, b) in enumerate(edges):
         cap = max(size.get(int(lab[a]), 1), size.get(int(lab[b]), 1)) - 1
         for s, t in ((a, b), (b, a)):
@@ -210,16 +210,23 @@ def _certify_fence(
             m.Add(fl <= cap * y[e])
             outflow[s].append(fl)
             inflow[t].append(fl)
-            n_arcs += 1
+            flow[s, t] = fl
+    n_arcs = len(flow)
 
     # contiguity, conservation: a non-root consumes one unit; a root sends out size - 1
     for a in range(units.size):
         supply = sum(size.get(z, 1) * r[a, z] for z in cand[a])
         m.Add(sum(inflow[a]) - sum(outflow[a]) == 1 - supply)
 
+    _hint_tree(m, lab, edges, r, flow)
+
     solver = cp_model.CpSolver()
     solver.parameters.max_time_in_seconds = float(time_limit)
     solver.parameters.num_workers = int(workers)
+    # the model is a plain flow check once x is fixed: symmetry detection and repeated
+    # presolve cost far more than the search (0.6 s of 0.65 s in trial runs)
+    solver.parameters.symmetry_level = 0
+    solver.parameters.max_presolve_iterations = 1
     status = STATUS.get(solver.Solve(m), "UNKNOWN")
     return Certificate(
         fence=f,
@@ -230,3 +237,34 @@ def _certify_fence(
         n_units=int(units.size),
         n_arcs=n_arcs,
     )
+
+
+def _hint_tree(m: cp_model.CpModel, lab: np.ndarray, edges: list[tuple[int, int]], r: dict, flow: dict) -> None:
+    """Suggest a search start: each zone rooted at its first unit, flow along a
+    breadth-first tree of its edges. Only a hint: a zone in pieces leaves units the tree
+    never reaches, and the solver still has to prove the model infeasible on its own."""
+    nb: dict[int, list[int]] = {}
+    for a, b in edges:
+        if lab[a] == lab[b] and lab[a] >= 0:
+            nb.setdefault(a, []).append(b)
+            nb.setdefault(b, []).append(a)
+    seen = np.zeros(lab.shape[0], dtype=bool)
+    hinted_root = set()
+    for a in range(lab.shape[0]):
+        if lab[a] < 0 or seen[a] or int(lab[a]) in hinted_root:
+            continue
+        z = int(lab[a])
+        hinted_root.add(z)
+        m.AddHint(r[a, z], 1)
+        order, parent = [a], {a: -1}
+        seen[a] = True
+        for u in order:
+            for v in nb.get(u, []):
+                if not seen[v]:
+                    seen[v] = True
+                    parent[v] = u
+                    order.append(v)
+        below = {u: 1 for u in order}
+        for u in reversed(order[1:]):
+            below[parent[u]] += below[u]
+            m.AddHint(flow[parent[u], u], below[u])

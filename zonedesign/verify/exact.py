@@ -12,23 +12,29 @@
 3. Choose zones covering every unit exactly once at least total cost: a set-partitioning
    model solved with scipy's `milp` (HiGHS) or, on request, CP-SAT; both with presolve
    off, which stalls on these models (it found nothing in 60 s on a 6x6 grid that solves
-   in 2 s without it).
+   in 2 s without it). Beyond 1,500 zones the LP relaxation comes first: a partition
+   among the 1,500 zones of least reduced cost sets an upper bound, and every zone whose
+   reduced cost shows it cannot take part in a cheaper partition is dropped (reduced-cost
+   fixing). HiGHS sees at most 5,000 zones (on more it overran its time limit threefold
+   in trial runs); a larger remainder goes to CP-SAT.
 
 No partition: the fence is proven infeasible. The enumeration is capped
 (`max_zones_enumerated`) and timed; past either limit the result says "too large to prove"
 and returns no labels rather than a guess.
 
-Reach, measured on this code (grids of 1x1 squares, counts drawn from 1..20, bounds
-[40, 80] persons, size and compactness terms; one solve per size on a shared 2-core
-machine): zones hold 4 to 8 units on average;
-  6x6   (36 units)  ~    3,900 feasible zones, proven in ~0.2 s
-  8x8   (64 units)  ~   11,000 feasible zones, proven in ~0.5 s
-  10x10 (100 units) ~   19,000 feasible zones, proven in ~2 s
-  12x12 (144 units) ~   29,000 feasible zones, proven in ~7 s
-  14x14 (196 units) ~   41,000 feasible zones, proven in ~15 s
-  16x16 (256 units) ~   55,000 feasible zones, proven in ~40 s
-Units far below the floor (many tiny units) multiply the count of connected sets and end
-the enumeration long before these sizes.
+Reach, measured with this code on a shared 2-core machine (grids of unit squares, counts
+drawn uniformly from 1..20, size, homogeneity (two attributes) and compactness terms,
+time_limit 60 s; seconds include enumeration and pricing):
+
+- zones of about 3 units (bounds [20, 40]): 16x16 (256 units) in 2 s, 20x20 (400) in
+  1 s, 24x24 (576) in 3 s, 28x28 (784) in 17 s, 32x32 (1,024 units, 86,017 feasible zones)
+  in 48 s;
+- zones of 5 to 6 units (bounds [40, 80]): 6x6 in 3 s, 8x8 (64 units, 516,510 feasible
+  zones) in 10 s, 9x9 in 1 s, 10x10 (100 units, 100,000 to 350,000 feasible zones) in 10
+  to 11 s for three count draws of four; the fourth draw (1.8 million feasible zones) and
+  a 12x12 grid (1.2 million) are too large to prove: the LP relaxation does not finish.
+
+The number of feasible zones, not the number of units, decides what can be proven.
 """
 
 from __future__ import annotations
@@ -440,6 +446,9 @@ def solve_exact(
     remaining = max(time_limit - (time.perf_counter() - start), 0.1)
     if solver == "highs":
         chosen, proven, status = _partition_highs(n, zones, remaining)
+    elif zones.n > CP_SAT_COLUMNS:
+        chosen, proven = None, False
+        status = f"too large to prove: {zones.n:,} feasible zones are more than CP-SAT takes ({CP_SAT_COLUMNS:,})"
     else:
         chosen, proven, status = _partition_cp_sat(n, zones, remaining)
     seconds = time.perf_counter() - start
@@ -474,6 +483,8 @@ def _milp(costs: np.ndarray, a: csc_matrix, time_limit: float) -> tuple[int, np.
 HIGHS_COLUMNS = 5_000
 # zones of least reduced cost that the first MIP (the one that sets UB) may choose from
 TRIAL_COLUMNS = 1_500
+# building a CP-SAT model takes about 50 us per zone in Python, outside its time limit
+CP_SAT_COLUMNS = 100_000
 
 
 def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
@@ -491,7 +502,7 @@ def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
     incumbent = None
     if zones.n > TRIAL_COLUMNS:
         lp = linprog(costs, A_eq=a, b_eq=np.ones(n), bounds=(0, None), method="highs",
-                     options={"time_limit": max(time_limit * 0.3, 0.05), "presolve": False})
+                     options={"time_limit": max(time_limit * 0.5, 0.05), "presolve": False})
         if lp.status == 2:
             return None, True, "infeasible: no set of feasible zones covers every unit exactly once"
         if lp.status == 0:
@@ -503,7 +514,21 @@ def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
                 incumbent = trial[x > 0.5]
                 upper = float(costs[incumbent].sum())
                 keep = np.flatnonzero(reduced <= upper - lp.fun + 1e-9)
+        else:
+            return None, False, (
+                f"too large to prove: the LP relaxation over {zones.n:,} zones was not solved "
+                f"within {time_limit:.3g} s"
+            )
     left = time_limit - (time.perf_counter() - start)
+    if keep.size > CP_SAT_COLUMNS or left <= 0.1:
+        why = (
+            f"{keep.size:,} zones remain after reduced-cost thinning"
+            if keep.size > CP_SAT_COLUMNS
+            else f"no time left within {time_limit:.3g} s"
+        )
+        if incumbent is not None:
+            return incumbent, False, f"feasible, optimality not proven: {why}"
+        return None, False, f"too large to prove: {why}"
     if keep.size <= HIGHS_COLUMNS:
         status, x = _milp(costs[keep], a[:, keep], left)
         proven = status == 0
