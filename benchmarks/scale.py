@@ -232,7 +232,8 @@ def main(quick: bool = False, folder: Path | None = None, log=print, sizes: list
     try:
         # the runs use a copy of the code with its own numba cache, filled by one small run
         # first, so no compile lands inside the series even if the working tree changes
-        env = code_snapshot(work / "code")
+        # (--quick runs the working tree with its usual cache, to stay quick)
+        env = code_snapshot(work / "code") if not quick else None
         warm = make_input(2000, work / "warm")["paths"]
         with Clock() as c:
             run_cli_measured(warm["parquet"], warm["rules"], work / "warm_out", env=env)

@@ -23,14 +23,17 @@ from zonedesign.synthetic import grid_with_holes, voronoi_tessellation
 from zonedesign.verify.checks import audit
 
 
-def rules_text(block: tuple[int, int], ward: tuple[int, int], method: str) -> str:
+def rules_text(
+    block: tuple[int, int], ward: tuple[int, int], method: str, *, seed: int = 3, more: str = 'weight = "persons"'
+) -> str:
+    attributes = '["attr_a", "attr_b"]' if more else '["attr_a"]'
     return f"""
 [areas]
 id = "id"
 counts = ["households", "persons"]
-attributes = ["attr_a", "attr_b"]
+attributes = {attributes}
 fence = "fence"
-weight = "persons"
+{more}
 
 [[tier]]
 name = "block"
@@ -44,7 +47,7 @@ max = {{ households = {ward[1]} }}
 
 [search]
 method = "{method}"
-seed = 3
+seed = {seed}
 constructions = 2
 time_limit_fence = 600.0
 """
@@ -95,17 +98,28 @@ def regions(draw) -> tuple[gpd.GeoDataFrame, str]:
     return gdf, rules_text(block, ward, method)
 
 
-@settings(max_examples=10, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=6, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
 @given(regions())
 def test_random_designs_pass_the_audit_and_explain_every_break(region: tuple[gpd.GeoDataFrame, str]) -> None:
     check_design(*region)
 
 
 def test_a_tight_window_that_a_valid_zoning_meets_is_met_or_explained() -> None:
-    # found by the property above: fence F2 (17 cells, 447 households) has a valid zoning
-    # into four blocks of 114, 111, 111 and 111 households (zonedesign.verify.exact.solve_exact
-    # proves it optimal; CP-SAT in the proofs finds it too), so a break there is unexplained
+    # a case the property found where every search method left fence F2 (17 cells, 447
+    # households) below the floor, although it has a valid zoning into four blocks of 114,
+    # 111, 111 and 111 households (zonedesign.verify.exact.solve_exact proves it optimal;
+    # CP-SAT in the proofs finds it too): a break there would be unexplained
     gdf = voronoi_tessellation(41, seed=522, n_fences=3)
     gdf["households"] = [38, 43, 2, 54, 29, 37, 1, 26, 54, 6, 29, 44, 28, 27, 4, 29, 47, 2, 15, 45, 28,
                          45, 43, 47, 47, 37, 23, 4, 3, 17, 59, 6, 15, 56, 2, 10, 37, 35, 52, 32, 5]
     check_design(gdf, rules_text((110, 123), (191, 1206), "annealing"))
+
+
+def test_a_window_that_tabu_meets_is_met_by_annealing_or_explained() -> None:
+    # a case the property found (one attribute, no weight, seed 2) where annealing left one
+    # block of fence F1 (18 cells, 512 households) at 120 households, although tabu and the
+    # CP-SAT model in the proofs both find valid zonings into blocks of 123-166
+    gdf = voronoi_tessellation(45, seed=742, n_fences=2)
+    gdf["households"] = [12, 46, 45, 51, 47, 31, 5, 42, 31, 36, 4, 6, 41, 41, 54, 49, 24, 12, 28, 39, 37, 25, 12,
+                         29, 40, 38, 48, 7, 26, 57, 6, 0, 37, 56, 27, 34, 32, 23, 15, 37, 52, 30, 6, 24, 58]
+    check_design(gdf, rules_text((123, 166), (141, 764), "annealing", seed=2, more=""))

@@ -135,7 +135,7 @@ CASES = [
     ('fence = "district"', 'fences = "district"', "areas.fences: unknown key in [areas]", 'fence = "district"', 0),
     ('contiguity = "queen"', 'adjacency = "queen"', "graph.adjacency: unknown key in [graph]", 'contiguity = "queen"', 0),
     ('name = "quarter"', 'name = "quarter"\ncolour = "red"', "tier.2.colour: unknown key in [[tier]]", 'name = "quarter"', 1),
-    ("seed = 7", "seed = 7\nrestarts = 3", "search.restarts: unknown key in [search]", "seed = 7", 1),
+    ("seed = 7", "seed = 7\nretries = 3", "search.retries: unknown key in [search]", "seed = 7", 1),
     ("[search]", "[searching]", "searching: unknown key in the rules file", "[search]", 0),
     ("min = { persons = 1000 }", "min = { persons = 1000, persns = 5 }",
      "tier.2.min.persns: unknown key in min (keys are [areas].counts) (allowed: persons, households); did you mean 'persons'?",

@@ -91,7 +91,7 @@ def test_unrepairable_region_says_why():
     tiers = [TierRules("block", min={"persons": 10}, max={"persons": 40}),
              TierRules("ward", min={"persons": 45}, max={"persons": 200})]  # each fence holds 40
     result = minimal_repair(areas, graph, broken, tiers, time_limit=20)
-    assert result.status == "infeasible"
+    assert result.status == "infeasible" and result.remaining  # the area is still without a zone
     assert "fence E has 40 persons; the tier floor is 45" in result.reason or \
         "fence W has 40 persons; the tier floor is 45" in result.reason
 
@@ -108,6 +108,7 @@ def test_random_broken_hierarchies_always_repair_to_a_valid_lookup():
         assert result.ok, result.reason
         after = audit(areas, graph, result.labels, TIERS)
         assert after.ok, after.violations_frame().to_string()
+        assert result.remaining == []
         repaired += bool(result.moves)
     assert repaired >= 10
 

@@ -91,7 +91,9 @@ class SearchRules:
     time_limit_fence: float = 10.0
     time_limit_total: float = 600.0
     # annealing
-    cooling: float = 0.9
+    cooling: float = 0.97
+    # independent runs from fresh constructions, best kept; 0: about 3,000 / units, 1 to 16
+    restarts: int = 0
     moves_per_temperature: int = 0  # 0: a multiple of the number of units
     # tabu
     tenure: int = 10
@@ -133,6 +135,7 @@ SEARCH_KEYS = (
     "moves_per_temperature",
     "tenure",
     "max_no_improve",
+    "restarts",
 )
 TOP_KEYS = ("areas", "graph", "tier", "search")
 
@@ -471,6 +474,7 @@ def _search(value: object, check: _Check) -> SearchRules:
         "moves_per_temperature": {"whole": True, "at_least": 0},
         "tenure": {"whole": True, "at_least": 0},
         "max_no_improve": {"whole": True, "at_least": 0},
+        "restarts": {"whole": True, "at_least": 0},
     }
     for key, limit in limits.items():
         if key in t:
