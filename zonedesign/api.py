@@ -188,7 +188,10 @@ def design(
         _say(progress, f"tier {i}/{n} '{name}' designed")
 
     _say(progress, f"designing {len(prep.rules.tiers)} tiers over {len(set(prep.areas.fence))} fences")
-    result = build_hierarchy(prep.areas, prep.graph, prep.rules, executor=run, on_tier=on_tier)
+    try:
+        result = build_hierarchy(prep.areas, prep.graph, prep.rules, executor=run, on_tier=on_tier)
+    finally:
+        getattr(run, 'close', lambda: None)()  # a dask cluster lives for one run
     lookup = result.lookup()
     seconds = dict(prep.seconds)
     seconds.update(result.seconds)
@@ -571,7 +574,10 @@ def redraw(
         _check_out(Path(out), overwrite, prep.inputs)
     prev, problems = read_previous(previous, prep, mend=mend)
     _say(progress, f"redrawing {len(prep.rules.tiers)} tiers against {previous}")
-    result = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, executor=run)
+    try:
+        result = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, executor=run)
+    finally:
+        getattr(run, 'close', lambda: None)()  # a dask cluster lives for one run
     lookup = result.lookup()
     changes = result.changes()
     seconds = dict(prep.seconds)
@@ -631,7 +637,10 @@ def sweep(
     vs = variants(prep.rules, keys)
     _say(progress, f"sweeping {len(vs)} variant(s)")
     tasks = [VariantTask(variant=v, areas=prep.areas, graph=prep.graph, previous=prev) for v in vs]
-    rows = run(tasks, run_variant)
+    try:
+        rows = run(tasks, run_variant)
+    finally:
+        getattr(run, 'close', lambda: None)()  # a dask cluster lives for one run
     lookups = [r.pop("_lookup") for r in rows]
     table = pd.DataFrame(rows)
     summary = base_summary(prep, "sweep")
@@ -837,7 +846,7 @@ def later_scenario(
     areas = input_dir / "areas.gpkg"
     later = input_dir / "areas.later.gpkg"
     rules = input_dir / "rules.toml"
-    work = Path(tempfile.mkdtemp(prefix=".zonedesign-later-", dir=Path(out).resolve().parent))
+    work = Path(tempfile.mkdtemp(prefix="zonedesign-later-"))
     try:
         _say(progress, "designing the first hierarchy")
         first = design(areas, rules, work / "design", executor=executor, workers=workers,

@@ -28,8 +28,12 @@ def run_demo(
     from zonedesign.scenarios import write_demo_input
 
     out = Path(out)
+    if n < 500:
+        raise InputError(f"--areas must be at least 500 for the demo region, not {n}")
     api._check_out(out.resolve(), overwrite)
-    staging = Path(tempfile.mkdtemp(prefix=".zonedesign-demo-", dir=out.resolve().parent))
+    # the generated input is staged in the system's temporary folder, so a killed demo
+    # leaves nothing beside the target; it is copied into OUT/input/ atomically
+    staging = Path(tempfile.mkdtemp(prefix="zonedesign-demo-"))
     try:
         if progress:
             progress(f"making the demo region ({n} areas, seed {seed})")

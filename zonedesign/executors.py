@@ -6,6 +6,7 @@ not depend on the executor or on the number of workers.
 
 from __future__ import annotations
 
+import atexit
 import os
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor
@@ -81,30 +82,40 @@ def _dask_executor(workers: int, scheduler: str | None, on_done: Callable[[Any],
         raise InputError("--executor dask needs the dask extra: pip install 'zonedesign[dask]'") from exc
     from zonedesign.hierarchy import run_task
 
-    def run(tasks: list[Any], fn: Callable[[Any], Any] = run_task) -> list[Any]:
-        if scheduler:
-            client = Client(scheduler)
-            cluster = None
-        else:
-            cluster = LocalCluster(
-                n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
-            )
-            client = Client(cluster)
-        try:
-            order = _largest_first(tasks)
-            # each task is scattered on its own: a worker receives one fence's arrays only
-            futures = [client.submit(fn, tasks[i], pure=False, key=f"fence-{i}") for i in order]
-            where = {f.key: i for f, i in zip(futures, order)}
-            results: list[Any] = [None] * len(tasks)
-            for fut in as_completed(futures):
-                r = fut.result()
-                results[where[fut.key]] = r
-                if on_done:
-                    on_done(r)
-            return results
-        finally:
-            client.close()
-            if cluster is not None:
-                cluster.close()
+    state: dict[str, Any] = {}
 
+    def client():
+        # one cluster for the whole run: starting one per tier costs seconds each time
+        if "client" not in state:
+            if scheduler:
+                state["client"] = Client(scheduler)
+            else:
+                state["cluster"] = LocalCluster(
+                    n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
+                )
+                state["client"] = Client(state["cluster"])
+            atexit.register(close)
+        return state["client"]
+
+    def close() -> None:
+        if "client" in state:
+            state.pop("client").close()
+        if "cluster" in state:
+            state.pop("cluster").close()
+
+    def run(tasks: list[Any], fn: Callable[[Any], Any] = run_task) -> list[Any]:
+        c = client()
+        order = _largest_first(tasks)
+        # each task is submitted on its own: a worker receives one fence's arrays only
+        futures = [c.submit(fn, tasks[i], pure=False) for i in order]
+        where = {f.key: i for f, i in zip(futures, order)}
+        results: list[Any] = [None] * len(tasks)
+        for fut in as_completed(futures):
+            r = fut.result()
+            results[where[fut.key]] = r
+            if on_done:
+                on_done(r)
+        return results
+
+    run.close = close  # type: ignore[attr-defined]
     return run

@@ -214,4 +214,5 @@ class TaskBars:
                 finally:
                     self.open.pop()
 
+        tracked.close = getattr(run, "close", lambda: None)  # type: ignore[attr-defined]
         return tracked

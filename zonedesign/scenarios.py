@@ -28,7 +28,6 @@ N_DISTRICTS = 10
 N_TOWNS = 8
 GROWTH_PUSH = 8.0
 # generated files carry this date instead of the clock, so equal seeds give equal bytes
-FILE_DATE = "2000-01-01T00:00:00.000Z"
 
 _ONSETS = ("Br", "Dr", "Fl", "Gw", "Kr", "Qu", "Sk", "Thr", "Vr", "Hesk", "Orv", "Ysk")
 _NUCLEI = ("a", "e", "i", "o", "ae", "ei", "au", "y")
@@ -491,21 +490,10 @@ def demo_links(gdf: gpd.GeoDataFrame | None = None, *, seed: int = 7, n: int = 5
 
 
 def write_gpkg(gdf: gpd.GeoDataFrame, path: Path, layer: str) -> None:
-    """Write one GeoPackage layer whose bytes depend on the data alone.
+    """Write one GeoPackage layer whose bytes depend on the data alone."""
+    from zonedesign.io.output import write_layers_gpkg
 
-    GDAL stamps GeoPackage metadata with the current time unless OGR_CURRENT_DATE is
-    set; it is set for the write and restored afterwards.
-    """
-    import pyogrio
-
-    previous = pyogrio.get_gdal_config_option("OGR_CURRENT_DATE")
-    pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": FILE_DATE})
-    try:
-        if path.exists():
-            path.unlink()
-        pyogrio.write_dataframe(gdf, path, layer=layer, driver="GPKG")
-    finally:
-        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": previous})
+    write_layers_gpkg(path, {layer: gdf})
 
 
 def write_demo_input(

@@ -144,8 +144,16 @@ def _plain(obj: object) -> object:
     raise TypeError(f"no JSON form for {type(obj).__name__}")
 
 
+# GDAL stamps GeoPackage metadata with the current time unless OGR_CURRENT_DATE is set;
+# a fixed date makes equal runs write equal bytes
+FILE_DATE = "2000-01-01T00:00:00.000Z"
+
+
 def write_layers_gpkg(path: str | Path, layers: Mapping[str, gpd.GeoDataFrame]) -> None:
-    """One GeoPackage layer per entry (e.g. per tier), in order; the file is rewritten."""
+    """One GeoPackage layer per entry (e.g. per tier), in order; the file is rewritten.
+
+    The bytes depend on the data alone (a fixed metadata date), so equal runs give equal files.
+    """
     import pyogrio  # here, so that writing plain outputs needs no GDAL start-up
 
     if not layers:
@@ -153,5 +161,10 @@ def write_layers_gpkg(path: str | Path, layers: Mapping[str, gpd.GeoDataFrame]) 
     path = Path(path)
     if path.exists():
         path.unlink()
-    for name, frame in layers.items():
-        pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG")
+    previous = pyogrio.get_gdal_config_option("OGR_CURRENT_DATE")
+    pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": FILE_DATE})
+    try:
+        for name, frame in layers.items():
+            pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG")
+    finally:
+        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": previous})

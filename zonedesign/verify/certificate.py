@@ -26,6 +26,7 @@ from ortools.sat.python import cp_model
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import TierRules
 from zonedesign.verify.checks import encode_labels, tier_bounds
+from zonedesign.verify.solving import solve_model
 
 STATUS = {
     cp_model.OPTIMAL: "OPTIMAL",
@@ -227,7 +228,7 @@ def _certify_fence(
     # presolve cost far more than the search (0.6 s of 0.65 s in trial runs)
     solver.parameters.symmetry_level = 0
     solver.parameters.max_presolve_iterations = 1
-    status = STATUS.get(solver.Solve(m), "UNKNOWN")
+    status = STATUS.get(solve_model(solver, m), "UNKNOWN")
     return Certificate(
         fence=f,
         tier=tier,

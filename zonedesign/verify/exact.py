@@ -52,6 +52,7 @@ from scipy.sparse import csc_matrix
 from zonedesign import measures
 from zonedesign.errors import InputError
 from zonedesign.records import Problem
+from zonedesign.verify.solving import solve_model
 
 SOLVERS = ("highs", "cp-sat")
 COST_SCALE = 1_000_000  # CP-SAT works on integers: costs in millionths
@@ -578,7 +579,7 @@ def _partition_cp_sat(n: int, zones: FeasibleZones, time_limit: float, hint: np.
     solver.parameters.max_time_in_seconds = max(float(time_limit), 0.05)
     solver.parameters.num_workers = 1
     solver.parameters.cp_model_presolve = False
-    status = solver.Solve(m)
+    status = solve_model(solver, m)
     if status == cp_model.INFEASIBLE:
         return None, True, "infeasible: no set of feasible zones covers every unit exactly once"
     if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):

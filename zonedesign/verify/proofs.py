@@ -30,6 +30,7 @@ from scipy.sparse.csgraph import connected_components
 
 from zonedesign.records import Problem
 from zonedesign.verify.certificate import STATUS, integer_scale
+from zonedesign.verify.solving import solve_model
 
 
 @dataclass(frozen=True)
@@ -291,15 +292,14 @@ def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, wo
     solver = cp_model.CpSolver()
     solver.parameters.max_time_in_seconds = float(time_limit)
     solver.parameters.num_workers = int(workers)
-    status = STATUS.get(solver.Solve(m), "UNKNOWN")
+    status = STATUS.get(solve_model(solver, m), "UNKNOWN")
     seconds = time.perf_counter() - start
     figures = {"units": n, "max_zones": K, "min_zones": kmin, "time_limit": time_limit}
     zones = f"{kmin} zones" if kmin == K else f"{kmin} to {K} zones"
     if status == "INFEASIBLE":
         text = (
             f"{label} cannot be divided into contiguous zones that meet the tier's bounds: CP-SAT "
-            f"proved that no division of its {n} units into {zones} works "
-            f"(in {seconds:.2f} s)"
+            f"proved that no division of its {n} units into {zones} works"
         )
         return Proof(fence, tier, "cp-sat", text, figures, "INFEASIBLE", seconds)
     if status in ("OPTIMAL", "FEASIBLE"):

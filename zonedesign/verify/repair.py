@@ -51,6 +51,7 @@ from zonedesign.rules import TierRules
 from zonedesign.verify.certificate import integer_scale
 from zonedesign.verify.checks import audit, encode_labels, tier_bounds, zone_members
 from zonedesign.verify.proofs import arithmetic_proof
+from zonedesign.verify.solving import solve_model
 
 REPAIRED_KINDS = ("bounds", "contiguity", "fence", "nesting")
 
@@ -586,7 +587,7 @@ class _ClusterModel:
         solver = cp_model.CpSolver()
         solver.parameters.max_time_in_seconds = max(float(time_limit), 0.05)
         solver.parameters.num_workers = int(ctx.workers)
-        status = solver.Solve(m)
+        status = solve_model(solver, m)
         if status == cp_model.INFEASIBLE:
             return "infeasible", None, 0
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
