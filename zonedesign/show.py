@@ -55,11 +55,14 @@ def show(folder: str | Path) -> str:
             + (f", within 10% of target: {within}" if within else "")
             + (f", median Polsby-Popper {pp:.2f}" if pp is not None else "")
         )
-    for name, c in (s.get("changes") or {}).items():
+    changes = s.get("changes") or {}
+    order = [t for t in (s.get("tier_order") or []) if t in changes] or list(changes)
+    for name, c in ((t, changes[t]) for t in order):
         if isinstance(c, dict) and "share_changed" in c:
             lines.append(
-                f"  changed in tier {name}: {c['share_changed']:.1%} of areas "
-                f"({c.get('kept', '?')} of {c.get('previous_zones', '?')} previous zones kept)"
+                f"  changed in tier {name}: {c['share_changed']:.1%} of previous zones "
+                f"({c.get('kept', '?')} of {c.get('previous_zones', '?')} kept), "
+                f"{c.get('areas_moved', '?')} areas moved"
             )
     lines += _sweep_lines(s)
     audit = s.get("audit") or {}
