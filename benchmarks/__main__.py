@@ -27,6 +27,10 @@ def main(argv: list[str] | None = None) -> int:
         module = importlib.import_module(f"benchmarks.{name}")
         module.main(quick=args.quick, folder=args.out, log=lambda s: print(s, flush=True))
         print(f"{name}: done in {time.perf_counter() - t0:.0f} s", flush=True)
+    if not args.quick and args.out is None:
+        from benchmarks.common import refresh_readme
+
+        refresh_readme()
     return 0
 
 

@@ -61,6 +61,21 @@ def machine() -> dict[str, str]:
     }
 
 
+def code_version() -> str:
+    """The commit the code was run at, and whether the package had uncommitted changes."""
+    import subprocess
+
+    root = Path(__file__).resolve().parent.parent
+    try:
+        head = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=root, capture_output=True, text=True, timeout=10)
+        dirty = subprocess.run(["git", "status", "--porcelain", "--", "zonedesign"], cwd=root, capture_output=True, text=True, timeout=10)
+    except (OSError, subprocess.TimeoutExpired):
+        return "unknown"
+    if head.returncode != 0:
+        return "unknown"
+    return head.stdout.strip() + (" with uncommitted changes to zonedesign/" if dirty.stdout.strip() else "")
+
+
 class Clock:
     """Wall-clock seconds of a block: `with Clock() as c: ...; c.seconds`."""
 
@@ -261,7 +276,7 @@ def write_results(
         "",
         f"- date: {m['date']}",
         f"- machine: {m['nproc']} cores ({m['cpu']}), {m['ram']} RAM, load average {m['load']} at the end",
-        f"- Python {m['python']}; mode: {'--quick' if quick else 'full'}; run time {seconds:.0f} s",
+        f"- Python {m['python']}; code at commit {code_version()}; mode: {'--quick' if quick else 'full'}; run time {seconds:.0f} s",
         f"- command: `python -m benchmarks {name}{' --quick' if quick else ''}`",
         "",
     ]
@@ -329,3 +344,40 @@ def code_snapshot(folder: Path) -> dict[str, str]:
     env["PYTHONPATH"] = str(folder) + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
     env["NUMBA_CACHE_DIR"] = str(cache)
     return env
+
+
+README = Path(__file__).resolve().parent / "README.md"
+LATEST_MARK = "<!-- latest -->"
+
+
+def refresh_readme(folder: Path | None = None, readme: Path = README) -> None:
+    """Rewrite the README below its marker: each result's header lines and goals."""
+    folder = RESULTS if folder is None else Path(folder)
+    text = readme.read_text(encoding="utf-8")
+    if LATEST_MARK not in text:
+        return
+    parts = [text.split(LATEST_MARK, 1)[0].rstrip() + "\n\n" + LATEST_MARK + "\n"]
+    for name in ("quality", "speed", "scale", "baseline", "redraw"):
+        md = folder / f"{name}.md"
+        if not md.is_file():
+            continue
+        lines = md.read_text(encoding="utf-8").splitlines()
+        title = lines[0].removeprefix("# Benchmark: ")
+        head = [ln for ln in lines[1:8] if ln.startswith(("- date", "- machine", "- Python"))]
+        goals = _section(lines, "## Goals")
+        parts.append(f"\n### {title}\n\n" + "\n".join(head) + "\n\n" + "\n".join(goals).strip() + "\n")
+    readme.write_text("".join(parts), encoding="utf-8")
+
+
+def _section(lines: list[str], heading: str) -> list[str]:
+    out: list[str] = []
+    inside = False
+    for ln in lines:
+        if ln.startswith("## "):
+            if inside:
+                break
+            inside = ln.strip() == heading
+            continue
+        if inside:
+            out.append(ln)
+    return out
