@@ -1,0 +1,50 @@
+"""`audit --repair` always hands back a lookup that passes the audit."""
+
+from __future__ import annotations
+
+import pandas as pd
+from cli_support import write_inputs
+
+from zonedesign import api
+from zonedesign.verify.repair import RepairResult
+
+
+def _broken_lookup(tmp_path):
+    areas, rules = write_inputs(tmp_path / "in")
+    first = api.design(areas, rules, tmp_path / "designed", report=False, certify=False)
+    assert first.exit_code == 0
+    lookup = pd.read_csv(tmp_path / "designed" / "lookup.csv", dtype=str)
+    # a far area put into another fence's block, and two blocks of one ward merged
+    far = lookup.index[lookup["ward"] != lookup.loc[0, "ward"]][-1]
+    lookup.loc[0, "block"] = lookup.loc[far, "block"]
+    ward = lookup.loc[5, "ward"]
+    blocks = sorted(set(lookup.loc[lookup["ward"] == ward, "block"]))
+    lookup.loc[lookup["block"] == blocks[1], "block"] = blocks[0]
+    path = tmp_path / "broken.csv"
+    lookup.to_csv(path, index=False)
+    return areas, rules, path
+
+
+def test_repair_gives_a_lookup_that_passes(tmp_path):
+    areas, rules, broken = _broken_lookup(tmp_path)
+    res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, report=False)
+    assert res.exit_code == 1  # the input hierarchy breaks rules
+    assert res.summary["repair"]["repaired_lookup_passes"]
+    again = api.audit(areas, rules, None, lookup=tmp_path / "audit" / "lookup.repaired.csv", report=False)
+    assert again.exit_code == 0
+    moves = pd.read_csv(tmp_path / "audit" / "repair.csv")
+    assert len(moves) == res.summary["repair"]["moves"] > 0
+
+
+def test_when_the_cp_sat_repair_cannot_finish_the_search_mends_it_and_says_so(tmp_path, monkeypatch):
+    areas, rules, broken = _broken_lookup(tmp_path)
+
+    def gives_up(areas_, graph, labels, tiers, **kw):
+        return RepairResult(moves=[], labels=None, status="unknown", reason="time limit")
+
+    monkeypatch.setattr("zonedesign.verify.repair.minimal_repair", gives_up)
+    res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, report=False, certify=False)
+    assert res.summary["repair"]["method"].startswith("redraw search")
+    assert res.summary["repair"]["repaired_lookup_passes"]
+    again = api.audit(areas, rules, None, lookup=tmp_path / "audit" / "lookup.repaired.csv", report=False, certify=False)
+    assert again.exit_code == 0
