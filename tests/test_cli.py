@@ -243,7 +243,8 @@ def as_pattern(example: str) -> str:
 
 def test_readme_exit_code_examples_match_what_the_cli_prints(capsys, tmp_path: Path) -> None:
     examples = readme_exit_examples()
-    assert sorted(examples) == [0, 1, 2]
+    assert sorted(examples) == [0, 1, 2, 3]
+    assert examples[3] == "zonedesign: internal error: ..."  # shape checked in the exit-3 test below
 
     areas, rules = write_inputs(tmp_path / "ok")
     ran = run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "ok" / "out", "--no-report", "--no-certificate")
