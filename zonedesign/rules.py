@@ -92,7 +92,7 @@ class SearchRules:
     time_limit_total: float = 600.0
     # annealing
     cooling: float = 0.97
-    # independent runs from fresh constructions, best kept; 0: about 3,000 / units, 1 to 16
+    # independent runs from fresh constructions, best kept; 0: about 1,500 / units, 1 to 16
     restarts: int = 0
     moves_per_temperature: int = 0  # 0: a multiple of the number of units
     # tabu

@@ -143,7 +143,7 @@ def restarts_for(rules: SearchRules, n: int) -> int:
     a single run often stops a few percent above the optimum), large ones one."""
     if rules.restarts > 0:
         return int(rules.restarts)
-    return int(min(16, max(1, round(3000 / max(n, 1)))))
+    return int(min(16, max(1, round(1500 / max(n, 1)))))
 
 
 def solve(
