@@ -1,7 +1,7 @@
 """quality: the engine's objective against the proven optimum on small fences.
 
-The exact solver (every feasible zone enumerated, then set partitioning with CP-SAT)
-proves the best zoning of fences of 20 to about 100 units. The engine runs each of its
+The exact solver (`verify.exact.solve_exact`: every feasible zone enumerated, then set
+partitioning with its default solver) proves the best zoning of fences of 20 to about 100 units. The engine runs each of its
 methods (descent, annealing, tabu) with default search settings on the same Problem; the
 gap is (engine - optimum) / optimum in per cent, on `measures.score(...).total` with no
 bound broken.
@@ -128,7 +128,7 @@ def evaluate(inst: Instance, exact_time: float = EXACT_TIME, methods=METHODS) ->
 
     p = inst.problem
     with Clock() as c:
-        ex = solve_exact(p, time_limit=exact_time, solver="cp-sat")
+        ex = solve_exact(p, time_limit=exact_time)
     optimal = ex.proven and ex.labels is not None
     infeasible = ex.proven and ex.labels is None
     row = {
