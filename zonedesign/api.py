@@ -172,17 +172,10 @@ def design(
     extra_files: Mapping[str, Path] | None = None,
 ) -> RunResult:
     """Design every tier of a nested hierarchy and write it to `out`."""
-    from zonedesign.executors import make_executor
     from zonedesign.hierarchy import build_hierarchy
 
     t_start = time.perf_counter()
-    bars = TaskBars(progress, lambda tasks: f"tier '{tasks[0].tier}' by fence")
-    run = bars.wrap(make_executor(executor, workers, scheduler, on_done=bars.done))
-    if out is not None:
-        _check_out(Path(out), overwrite)
-    prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
-    if out is not None:
-        _check_out(Path(out), overwrite, prep.inputs)
+    run, prep = _start_run(areas_path, rules, out, overwrite, layer, crs, executor, workers, scheduler, progress)
 
     def on_tier(name: str, i: int, n: int) -> None:
         _say(progress, f"tier {i}/{n} '{name}' designed")
@@ -221,6 +214,24 @@ def design(
         extra_files=extra_files,
         failed=bool(failures),
     )
+
+
+def _start_run(areas_path, rules, out, overwrite, layer, crs, executor, workers, scheduler, progress,
+               extra_input: str | Path | None = None):
+    """Executor with per-tier progress bars, then the inputs read; the output folder is
+    checked before the (slow) read and again once every input path is known."""
+    from zonedesign.executors import make_executor
+
+    bars = TaskBars(progress, lambda tasks: f"tier '{tasks[0].tier}' by fence")
+    run = bars.wrap(make_executor(executor, workers, scheduler, on_done=bars.done))
+    if out is not None:
+        _check_out(Path(out), overwrite)
+    prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
+    if extra_input is not None:
+        prep.inputs.append(Path(extra_input))
+    if out is not None:
+        _check_out(Path(out), overwrite, prep.inputs)
+    return run, prep
 
 
 def fence_figures(result: Any) -> list[dict]:
@@ -590,18 +601,12 @@ def redraw(
     extra_files: Mapping[str, Path] | None = None,
 ) -> RunResult:
     """Redraw a published hierarchy on new counts, changing as little as possible."""
-    from zonedesign.executors import make_executor
     from zonedesign.redraw import change_shares, redraw_hierarchy
 
     t_start = time.perf_counter()
-    bars = TaskBars(progress, lambda tasks: f"tier '{tasks[0].tier}' by fence")
-    run = bars.wrap(make_executor(executor, workers, scheduler, on_done=bars.done))
-    if out is not None:
-        _check_out(Path(out), overwrite)
-    prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
-    prep.inputs.append(Path(previous))
-    if out is not None:
-        _check_out(Path(out), overwrite, prep.inputs)
+    run, prep = _start_run(
+        areas_path, rules, out, overwrite, layer, crs, executor, workers, scheduler, progress, extra_input=previous
+    )
     prev, problems = read_previous(previous, prep, mend=mend)
     _say(progress, f"redrawing {len(prep.rules.tiers)} tiers against {previous}")
     try:

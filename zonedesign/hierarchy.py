@@ -211,19 +211,27 @@ def run_task(task: FenceTask) -> FenceResult:
             info=_plain(sol.info),
         )
     except Exception as exc:  # noqa: BLE001 - one fence's failure must not lose the others
-        labels = fallback_labels(task.problem)
-        s = score(task.problem, labels)
-        return FenceResult(
-            fence=task.fence,
-            tier=task.tier,
-            labels=labels,
-            breaks=s.breaks,
-            total=s.total,
-            terms=s.terms,
-            seconds=time.perf_counter() - t0,
+        return scored_result(
+            task, fallback_labels(task.problem), t0, {"traceback": traceback.format_exc(limit=5)},
             error=f"{type(exc).__name__}: {exc}",
-            info={"traceback": traceback.format_exc(limit=5)},
         )
+
+
+def scored_result(task: FenceTask, labels: np.ndarray, t0: float, info: dict, error: str = "") -> FenceResult:
+    """A fence's result for a labelling the search did not score itself."""
+    labels, _ = compact_labels(labels)
+    s = score(task.problem, labels)
+    return FenceResult(
+        fence=task.fence,
+        tier=task.tier,
+        labels=labels,
+        breaks=s.breaks,
+        total=s.total,
+        terms=s.terms,
+        seconds=time.perf_counter() - t0,
+        info=info,
+        error=error,
+    )
 
 
 def fallback_labels(problem: Problem) -> np.ndarray:

@@ -38,6 +38,7 @@ from zonedesign.hierarchy import (
     fence_order,
     fence_problem,
     next_units,
+    scored_result,
     serial_executor,
     task_seed,
 )
@@ -172,7 +173,7 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
     broken = np.flatnonzero(bound_breaks(sums, p.bounds) > 0)
     info: dict = {"broken_zones": int(broken.size), "rings": 0}
     if broken.size == 0:
-        return _fence_result(task, labels, t0, info)
+        return scored_result(task, labels, t0, info)
     active = broken
     best = labels
     for ring in range(1, rings + 1):
@@ -210,7 +211,7 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
         if fresh.score.breaks < score(p, compact_labels(best)[0]).breaks:
             best = np.asarray(fresh.labels, dtype=np.int64)
             info["redesigned"] = True
-    return _fence_result(task, best, t0, info)
+    return scored_result(task, best, t0, info)
 
 
 def _sub_problem(p, units: np.ndarray):
@@ -228,33 +229,16 @@ def _sub_problem(p, units: np.ndarray):
     )
 
 
-def _fence_result(task: FenceTask, labels: np.ndarray, t0: float, info: dict) -> FenceResult:
-    from zonedesign.measures import score
-
-    labels, _ = compact_labels(labels)
-    s = score(task.problem, labels)
-    return FenceResult(
-        fence=task.fence,
-        tier=task.tier,
-        labels=labels,
-        breaks=s.breaks,
-        total=s.total,
-        terms=s.terms,
-        seconds=time.perf_counter() - t0,
-        info=info,
-    )
-
-
 def run_redraw_task(task: FenceTask) -> FenceResult:
     try:
         return redraw_fence(task)
     except Exception as exc:  # noqa: BLE001 - a failed fence keeps its start labelling
         import traceback
 
-        res = _fence_result(task, task.start, time.perf_counter(), {})
-        res.error = f"{type(exc).__name__}: {exc}"
-        res.info = {"traceback": traceback.format_exc(limit=5)}
-        return res
+        return scored_result(
+            task, task.start, time.perf_counter(), {"traceback": traceback.format_exc(limit=5)},
+            error=f"{type(exc).__name__}: {exc}",
+        )
 
 
 # ---------------------------------------------------------------- ids and changes
