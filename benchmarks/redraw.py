@@ -93,6 +93,9 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
         fewest = len(rep.moves) if rep.ok else math.nan
         proven = rep.status in ("optimal", "nothing to repair")
         ratio = _ratio(matched, fewest) if proven else math.nan
+        # unproven: the repair found still bounds the fewest from above, so moved / found
+        # bounds the ratio from below
+        ratio_at_least = _ratio(matched, fewest) if (not proven and rep.ok) else ratio
         breaks_after = [v for v in getattr(checked, "violations", []) if _fence_of(v) == fence]
         rows.append(
             {
@@ -103,6 +106,7 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
                 "fewest_moves": fewest,
                 "repair_status": rep.status,
                 "ratio": ratio,
+                "ratio_at_least": ratio_at_least,
                 "moved_by_id": moved,
                 "ratio_by_id": _ratio(moved, fewest) if proven else math.nan,
                 "redraw_violations": len(breaks_after),
@@ -135,15 +139,25 @@ def main(quick: bool = False, folder: Path | None = None, log=print) -> dict:
     ratios = np.array([r["ratio"] for r in rows], dtype=np.float64)
     have = ratios[~np.isnan(ratios)]
     worst = float(have.max()) if have.size else math.nan
-    total_moved = sum(r["moved"] for r in rows)
+    lower = np.array([r["ratio_at_least"] for r in rows if math.isnan(r["ratio"])], dtype=np.float64)
+    lower = lower[~np.isnan(lower)]
+    # an unproven fence whose ratio is already above the goal misses it too
+    met = bool(have.size and worst <= GOAL and (lower <= GOAL).all())
+    total_moved = sum(r["moved"] for r in rows if not math.isnan(r["fewest_moves"]))
     total_fewest = sum(r["fewest_moves"] for r in rows if not math.isnan(r["fewest_moves"]))
-    met = bool(have.size and worst <= GOAL)
     goal = (
         f"- ratio moved / fewest per fence: worst **{worst:.2f}**, median {float(np.median(have)) if have.size else math.nan:.2f} "
         f"over {have.size} fences with a proven bound (goal <= {GOAL}: {'met' if met else 'MISSED'}"
         + ("" if met or math.isnan(worst) else f", over by {worst - GOAL:.2f}")
         + ")\n"
-        f"- all fences: {total_moved:,} areas moved by the redraw against a proven fewest of {total_fewest:,}\n"
+        + (
+            f"- fences without a proof within the time limit: {lower.size}; there the repair found bounds "
+            f"the ratio from below: at least {', '.join(f'{v:.2f}' for v in lower)}\n"
+            if lower.size
+            else ""
+        )
+        + f"- fences with a repair found: {total_moved:,} areas moved by the redraw against a fewest of "
+        f"{total_fewest:,} (proven, or the best repair found where unproven)\n"
         f"- the redraw's tier-1 zones pass the independent audit: {'yes' if info['audit_ok'] else 'NO'}\n"
         f"- design {info['design_s']:.1f} s, redraw {info['redraw_s']:.1f} s "
         f"(redraw / design = {info['redraw_s'] / info['design_s']:.2f}) on {info['areas']:,} areas\n"
