@@ -201,6 +201,8 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
         best = out
         info["rings"] = ring
         if sol.score.breaks == 0:
+            if ring == 1:
+                best = _fewer_moves(task, labels, units, best, info)
             break
     else:
         # the rings could not mend every break: redesign the whole fence (still weighing
@@ -212,6 +214,69 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
             best = np.asarray(fresh.labels, dtype=np.int64)
             info["redesigned"] = True
     return scored_result(task, best, t0, info)
+
+
+def matched_moves(before: np.ndarray, after: np.ndarray) -> int:
+    """Units that changed zone under the best one-to-one matching of new zones to old ones
+    (so a zone that only changed its number is not counted as moved)."""
+    from scipy.optimize import linear_sum_assignment
+
+    b, kb = compact_labels(np.asarray(before))
+    a, ka = compact_labels(np.asarray(after))
+    overlap = np.zeros((kb, ka))
+    np.add.at(overlap, (b, a), 1.0)
+    rows, cols = linear_sum_assignment(-overlap)
+    return int(b.shape[0] - overlap[rows, cols].sum())
+
+
+def _fewer_moves(task: FenceTask, labels: np.ndarray, units: np.ndarray, searched: np.ndarray, info: dict) -> np.ndarray:
+    """The CP-SAT fewest-move mend of the broken zones and their neighbours, when it proves
+    one that moves fewer units than the search did (splits and merges move whole parts)."""
+    from zonedesign.records import Areas
+    from zonedesign.rules import TierRules
+    from zonedesign.verify.repair import minimal_repair
+
+    p = task.problem
+    b = p.bounds
+    tier = TierRules(
+        name=task.tier,
+        min={c: float(v) for c, v in zip(b.count_names, b.lo) if np.isfinite(v)},
+        max={c: float(v) for c, v in zip(b.count_names, b.hi) if np.isfinite(v)},
+    )
+    n = units.shape[0]
+    ring = Areas(
+        ids=np.array([f"u{u}" for u in units], dtype=object),
+        count_names=tuple(b.count_names),
+        counts=p.counts[units],
+        attr_names=(),
+        attrs=np.zeros((n, 0)),
+        weight=np.ones(n),
+        area=p.area[units],
+        perimeter=p.perimeter[units],
+        fence=np.full(n, task.fence, dtype=object),
+    )
+    start = np.array([f"z{z}" for z in labels[units]], dtype=object)
+    try:
+        rep = minimal_repair(ring, p.graph.subgraph(units), {task.tier: start}, [tier], time_limit=10.0)
+    except Exception:  # noqa: BLE001 - the search's mend stands when the model cannot be built
+        return searched
+    if rep.status != "optimal" or not rep.labels:
+        return searched
+    mended = np.asarray(rep.labels[task.tier], dtype=object)
+    codes, _ = compact_labels(mended)
+    sums = zone_sums(codes, int(codes.max()) + 1, p.counts[units])
+    if bound_breaks(sums, b).sum() > 0:
+        return searched
+    cp_moves = matched_moves(labels[units], codes)
+    search_moves = matched_moves(labels[units], searched[units])
+    info["moves_search"] = search_moves
+    info["moves_fewest"] = cp_moves
+    if cp_moves >= search_moves:
+        return searched
+    out = searched.copy()
+    out[units] = int(searched.max()) + 1 + codes
+    info["mended_by"] = "cp-sat fewest moves"
+    return out
 
 
 def _sub_problem(p, units: np.ndarray):
