@@ -201,8 +201,6 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
         best = out
         info["rings"] = ring
         if sol.score.breaks == 0:
-            if ring == 1:
-                best = _fewer_moves(task, labels, units, best, info)
             break
     else:
         # the rings could not mend every break: redesign the whole fence (still weighing
@@ -213,6 +211,8 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
         if fresh.score.breaks < score(p, compact_labels(best)[0]).breaks:
             best = np.asarray(fresh.labels, dtype=np.int64)
             info["redesigned"] = True
+    if p.previous is not None:
+        best = _fewer_moves(task, best, info)
     return scored_result(task, best, t0, info)
 
 
@@ -229,54 +229,107 @@ def matched_moves(before: np.ndarray, after: np.ndarray) -> int:
     return int(b.shape[0] - overlap[rows, cols].sum())
 
 
-def _fewer_moves(task: FenceTask, labels: np.ndarray, units: np.ndarray, searched: np.ndarray, info: dict) -> np.ndarray:
-    """The CP-SAT fewest-move mend of the broken zones and their neighbours, when it proves
-    one that moves fewer units than the search did (splits and merges move whole parts)."""
+def fewest_moves_bound(previous: np.ndarray, counts: np.ndarray, bounds) -> int:
+    """A lower bound on the units any valid redraw moves (counted as `matched_moves` does).
+
+    previous: previous zone code per unit (-1: new). A zone above a ceiling keeps at most a
+    ceiling's worth of its units in its matched zone, so it loses at least as many units as
+    its largest units take to cover the excess; these losses are different units for
+    different zones. A zone below a floor either gains units (at least as many as the
+    largest other units take to cover the shortfall) or is taken apart (all its units move).
+    """
+    prev = np.asarray(previous, dtype=np.int64)
+    if not (prev >= 0).any():
+        return 0
+    k = int(prev.max()) + 1
+    sums = zone_sums(np.where(prev >= 0, prev, 0), k, np.where((prev >= 0)[:, None], counts, 0.0))
+    leaving = 0
+    shortfall = 0
+    for z in range(k):
+        members = prev == z
+        if not members.any():
+            continue
+        need_out, need_in = 0, 0
+        for c in range(counts.shape[1]):
+            excess = sums[z, c] - bounds.hi[c]
+            if excess > 1e-9:
+                need_out = max(need_out, _units_to_cover(counts[members, c], excess))
+            lack = bounds.lo[c] - sums[z, c]
+            if lack > 1e-9:
+                need_in = max(need_in, _units_to_cover(counts[~members, c], lack))
+        leaving += need_out
+        if need_in:
+            shortfall = max(shortfall, min(need_in, int(members.sum())))
+    return max(leaving, shortfall)
+
+
+def _units_to_cover(values: np.ndarray, amount: float) -> int:
+    """The fewest of `values` whose sum reaches `amount` (all of them when none do)."""
+    top = np.cumsum(np.sort(values)[::-1])
+    return int(min(np.searchsorted(top, amount - 1e-9) + 1, values.shape[0]))
+
+
+REPAIR_WORK = 3.0  # CP-SAT deterministic time per fence for the fewest-move mend
+REPAIR_CAP = 120.0  # seconds: a safety cap that a normal run never reaches
+
+
+def _fewer_moves(task: FenceTask, searched: np.ndarray, info: dict) -> np.ndarray:
+    """The search's labelling, or the CP-SAT fewest-move repair of the previous zones when
+    that repair breaks no bound and moves fewer units.
+
+    The repair is only tried when the search moved more units than `fewest_moves_bound`
+    allows for; its budget is deterministic, so a redraw repeats exactly under any load.
+    """
     from zonedesign.records import Areas
     from zonedesign.rules import TierRules
     from zonedesign.verify.repair import minimal_repair
 
     p = task.problem
+    prev = np.asarray(p.previous, dtype=np.int64)
     b = p.bounds
+    search_moves = matched_moves(prev, searched)
+    bound = fewest_moves_bound(prev, p.counts, b)
+    searched_breaks = bound_breaks(zone_sums(compact_labels(searched)[0], int(searched.max()) + 1, p.counts), b).sum()
+    info["moves_search"] = search_moves
+    info["moves_bound"] = bound
+    if searched_breaks == 0 and search_moves <= bound:
+        return searched
     tier = TierRules(
         name=task.tier,
         min={c: float(v) for c, v in zip(b.count_names, b.lo) if np.isfinite(v)},
         max={c: float(v) for c, v in zip(b.count_names, b.hi) if np.isfinite(v)},
     )
-    n = units.shape[0]
-    ring = Areas(
-        ids=np.array([f"u{u}" for u in units], dtype=object),
+    n = prev.shape[0]
+    fence_areas = Areas(
+        ids=np.array([f"u{u}" for u in range(n)], dtype=object),
         count_names=tuple(b.count_names),
-        counts=p.counts[units],
+        counts=p.counts,
         attr_names=(),
         attrs=np.zeros((n, 0)),
         weight=np.ones(n),
-        area=p.area[units],
-        perimeter=p.perimeter[units],
+        area=p.area,
+        perimeter=p.perimeter,
         fence=np.full(n, task.fence, dtype=object),
     )
-    start = np.array([f"z{z}" for z in labels[units]], dtype=object)
+    start = np.array([f"z{z}" if z >= 0 else "" for z in prev], dtype=object)
     try:
-        rep = minimal_repair(ring, p.graph.subgraph(units), {task.tier: start}, [tier], time_limit=10.0)
+        rep = minimal_repair(
+            fence_areas, p.graph, {task.tier: start}, [tier], time_limit=REPAIR_CAP, deterministic_time=REPAIR_WORK
+        )
     except Exception:  # noqa: BLE001 - the search's mend stands when the model cannot be built
         return searched
-    if rep.status != "optimal" or not rep.labels:
+    info["repair_status"] = rep.status
+    if not rep.ok or rep.remaining or not rep.labels:
         return searched
-    mended = np.asarray(rep.labels[task.tier], dtype=object)
-    codes, _ = compact_labels(mended)
-    sums = zone_sums(codes, int(codes.max()) + 1, p.counts[units])
-    if bound_breaks(sums, b).sum() > 0:
+    codes, k = compact_labels(np.asarray(rep.labels[task.tier], dtype=object))
+    if bound_breaks(zone_sums(codes, k, p.counts), b).sum() > 0:
         return searched
-    cp_moves = matched_moves(labels[units], codes)
-    search_moves = matched_moves(labels[units], searched[units])
-    info["moves_search"] = search_moves
-    info["moves_fewest"] = cp_moves
-    if cp_moves >= search_moves:
+    repair_moves = matched_moves(prev, codes)
+    info["moves_repair"] = repair_moves
+    if searched_breaks == 0 and repair_moves >= search_moves:
         return searched
-    out = searched.copy()
-    out[units] = int(searched.max()) + 1 + codes
-    info["mended_by"] = "cp-sat fewest moves"
-    return out
+    info["mended_by"] = "cp-sat fewest moves" + (" (proven)" if rep.status == "optimal" else "")
+    return codes
 
 
 def _sub_problem(p, units: np.ndarray):

@@ -37,6 +37,8 @@ _ENDINGS = ("amere", "ovale", "enholt", "askeld", "orrin", "ethwy", "umbry", "id
 RULES_TEXT = """\
 # Rules for the demo region: three nested tiers of statistical zones inside districts.
 # Bounds follow census output-zone practice (Cockings, Harfoot, Martin & Hornby 2011).
+# Stability only counts in a redraw: it prices every area that leaves its previous zone,
+# set high so that zones still within their bounds stay as they were.
 
 [areas]
 id = "code"
@@ -54,21 +56,21 @@ name = "block"
 min = { households = 40, persons = 100 }
 max = { households = 250, persons = 625 }
 target = { households = 125 }
-weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 1.0 }
+weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 20.0 }
 
 [[tier]]
 name = "ward"
 min = { households = 400, persons = 1000 }
 max = { households = 1200, persons = 3000 }
 target = { households = 800 }
-weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 1.0 }
+weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 20.0 }
 
 [[tier]]
 name = "sector"
 min = { households = 2000, persons = 5000 }
 max = { households = 6000, persons = 15000 }
 target = { households = 4000 }
-weights = { size = 1.0, homogeneity = 0.5, compactness = 1.0, stability = 1.0 }
+weights = { size = 1.0, homogeneity = 0.5, compactness = 1.0, stability = 20.0 }
 
 [search]
 method = "annealing"

@@ -132,17 +132,22 @@ def minimal_repair(
     workers: int = 1,
     max_candidates: int = 12,
     max_units: int = 150,
+    deterministic_time: float | None = None,
 ) -> RepairResult:
     """Relabel the fewest areas so that every bound, contiguity, nesting and fence rule holds.
 
     time_limit: seconds for all repair models together; workers: CP-SAT num_workers;
     max_candidates: above this many zones in a region, a unit may only move to zones near
-    it; max_units: the most movable units per tier in one model (see the module notes).
+    it; max_units: the most movable units per tier in one model (see the module notes);
+    deterministic_time: when given, the budget is this much CP-SAT deterministic time (work
+    counted by the solver, not the clock) and time_limit is only a safety cap, so the same
+    input gives the same repair on a busy machine as on an idle one.
 
     >>> result = minimal_repair(areas, graph, lookup, rules.tiers, time_limit=30)
     >>> result.status, result.repair_frame()
     """
     start = time.perf_counter()
+    budget = _Budget(time_limit, deterministic_time)
     tiers = list(tiers)
     names = [t.name for t in tiers]
     enc = [encode_labels(labels[t.name]) for t in tiers]
@@ -206,10 +211,9 @@ def minimal_repair(
     reasons: list[str] = []
     for n_done, cid in enumerate(cluster_ids):
         units = np.flatnonzero(roots == cid)
-        left = time_limit - (time.perf_counter() - start)
-        budget = max(left / (len(cluster_ids) - n_done), 0.5)
+        share = budget.share(1.0 / (len(cluster_ids) - n_done))
         t0 = time.perf_counter()
-        status, result, note = _repair_cluster(ctx, units, budget, max_units)
+        status, result, note = _repair_cluster(ctx, units, share, max_units)
         info = {"areas": int(units.size), "status": status, "seconds": round(time.perf_counter() - t0, 3)}
         statuses.append(status)
         if note:
@@ -264,6 +268,56 @@ def minimal_repair(
             v.message for v in remaining[:3]
         )
     return RepairResult(moves, new_labels, status, reason, cluster_info, time.perf_counter() - start, remaining)
+
+
+class _Budget:
+    """Solver time: wall-clock seconds, or CP-SAT deterministic time when `work` is given.
+
+    Deterministic time depends only on the model and the search, so a budget counted in it
+    stops every run at the same point; the wall-clock cap still ends a run that goes on far
+    longer than expected.
+    """
+
+    def __init__(self, seconds: float, work: float | None = None, parent: _Budget | None = None):
+        self.seconds = float(seconds)
+        self.work = None if work is None else float(work)
+        self.parent = parent
+        self.start = time.perf_counter()
+        self.used = 0.0
+
+    @property
+    def deterministic(self) -> bool:
+        return self.work is not None
+
+    def left(self) -> float:
+        """What is left, in the budget's own unit."""
+        if self.deterministic:
+            return self.work - self.used
+        return self.seconds - (time.perf_counter() - self.start)
+
+    def wall_left(self) -> float:
+        return self.seconds - (time.perf_counter() - self.start)
+
+    def share(self, fraction: float) -> _Budget:
+        """A child budget of this fraction of what is left (at least a small floor)."""
+        floor = 0.1 if self.deterministic else 0.5
+        work = max(self.left() * fraction, floor) if self.deterministic else None
+        seconds = max(self.wall_left() * (fraction if not self.deterministic else 1.0), 0.5)
+        return _Budget(seconds, work, parent=self)
+
+    def limit(self, solver: cp_model.CpSolver, fraction: float = 1.0) -> None:
+        """Set the solver's limits to this fraction of what is left."""
+        if self.deterministic:
+            solver.parameters.max_deterministic_time = max(self.left() * fraction, 0.01)
+            solver.parameters.max_time_in_seconds = max(self.wall_left(), 0.05)
+        else:
+            solver.parameters.max_time_in_seconds = max(self.left() * fraction, 0.05)
+
+    def charge(self, solver: cp_model.CpSolver) -> None:
+        budget: _Budget | None = self
+        while budget is not None:
+            budget.used += float(solver.deterministic_time)
+            budget = budget.parent
 
 
 @dataclass
@@ -335,10 +389,9 @@ def _faults(ctx: _Context, report, names: list[str]) -> tuple[list[set[int]], li
 
 
 def _repair_cluster(
-    ctx: _Context, units: np.ndarray, budget: float, max_units: int
+    ctx: _Context, units: np.ndarray, budget: _Budget, max_units: int
 ) -> tuple[str, list[dict[int, int]] | None, str]:
     """Stages of growing reach; returns (status, assignment or None, note)."""
-    deadline = time.perf_counter() + budget
     best: list[dict[int, int]] | None = None
     best_moves = math.inf
     proven_reach = None
@@ -347,14 +400,13 @@ def _repair_cluster(
     # the search grows from the faults outwards; a repair with as few moves as the faults
     # demand is proven fewest at once
     for reach in (1, 2, 4, 8, None):
-        left = deadline - time.perf_counter()
-        if left <= 0.05:
+        if budget.left() <= (0.01 if budget.deterministic else 0.05) or budget.wall_left() <= 0.05:
             break
         model = _ClusterModel(ctx, units, reach)
         if model.too_large(max_units):
             break
         final = model.covers_region
-        status, result, moves = model.solve(left if final else left * 0.4)
+        status, result, moves = model.solve(budget, 1.0 if final else 0.4)
         if result is not None and moves < best_moves:
             best, best_moves = result, moves
             proven_reach = None
@@ -436,7 +488,7 @@ class _ClusterModel:
         return list(out.values())
 
     def solve(
-        self, time_limit: float, hint: list[dict[int, int]] | None = None
+        self, budget: _Budget, fraction: float = 1.0, hint: list[dict[int, int]] | None = None
     ) -> tuple[str, list[dict[int, int]] | None, int]:
         ctx = self.ctx
         T = len(ctx.enc)
@@ -575,19 +627,21 @@ class _ClusterModel:
                 if own is not None and above is not None:
                     m.Add(sum(own) + sum(above) <= len(own) + len(above) - 1)
         m.Maximize(sum(kept))
-        if hint is not None:
-            for t in range(T):
-                tu = self.tier_units[t]
-                for u, zs in enumerate(cand[t]):
-                    if tu.free[u]:
-                        target = hint[t].get(int(tu.members[u][0]), tu.old[u])
-                        for z in zs:
-                            m.AddHint(x[t][u, z], int(z == target))
+        # a hint, or else the labels as they stand: the search starts next to a repair
+        # instead of from nothing, which on one worker decides whether it finds one at all
+        for t in range(T):
+            tu = self.tier_units[t]
+            for u, zs in enumerate(cand[t]):
+                if tu.free[u]:
+                    target = tu.old[u] if hint is None else hint[t].get(int(tu.members[u][0]), tu.old[u])
+                    for z in zs:
+                        m.AddHint(x[t][u, z], int(z == target))
 
         solver = cp_model.CpSolver()
-        solver.parameters.max_time_in_seconds = max(float(time_limit), 0.05)
+        budget.limit(solver, fraction)
         solver.parameters.num_workers = int(ctx.workers)
         status = solve_model(solver, m)
+        budget.charge(solver)
         if status == cp_model.INFEASIBLE:
             return "infeasible", None, 0
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):

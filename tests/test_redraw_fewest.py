@@ -1,0 +1,139 @@
+"""Redraw moves as few areas as the rules allow.
+
+On fences small enough to enumerate, the fewest areas any valid redraw must move is found by
+brute force here: every way of moving 1, 2 or 3 areas to another zone or to new zones is
+tried, bounds summed with numpy and contiguity checked with networkx (reference library).
+The redraw must reach that fewest, and `fewest_moves_bound` must never exceed it.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import replace
+
+import networkx as nx
+import numpy as np
+import pytest
+from hierarchy_support import nx_graph
+from verify_support import grid_graph, make_areas
+
+from zonedesign.measures import bound_breaks, compact_labels, zone_sums
+from zonedesign.records import Bounds
+from zonedesign.redraw import _fewer_moves, fewest_moves_bound, matched_moves, redraw_hierarchy
+from zonedesign.rules import AreasRules, Rules, SearchRules, TierRules
+from zonedesign.search.engine import solve
+
+ROWS, COLS = 3, 4
+LO, HI = 40.0, 90.0
+
+
+def _rules() -> Rules:
+    tier = TierRules(name="block", min={"persons": LO}, max={"persons": HI})
+    return Rules(
+        areas=AreasRules(id="id", counts=("persons",), fence="fence"),
+        tiers=(tier,),
+        search=SearchRules(method="annealing", seed=3, constructions=2, time_limit_fence=20.0),
+    )
+
+
+def _valid(g: nx.Graph, labels: np.ndarray, counts: np.ndarray) -> bool:
+    for z in np.unique(labels):
+        members = np.flatnonzero(labels == z)
+        total = counts[members].sum()
+        if total < LO or total > HI or not nx.is_connected(g.subgraph(members.tolist())):
+            return False
+    return True
+
+
+def _brute_fewest(g: nx.Graph, prev: np.ndarray, counts: np.ndarray, most: int = 3) -> int | None:
+    """The fewest relabelled areas after which every zone meets the bounds and is connected
+    (None when more than `most` are needed). New zones get fresh ids in order of use."""
+    zones = sorted(set(prev.tolist()))
+    n = prev.shape[0]
+    for k in range(most + 1):
+        for moved in itertools.combinations(range(n), k):
+            options = [[z for z in zones if z != prev[a]] + [100 + j for j in range(k)] for a in moved]
+            for dest in itertools.product(*options):
+                new = [d for d in dest if d >= 100]
+                if new != sorted(set(new)) or (new and new[0] != 100) or any(b - a > 1 for a, b in zip(new, new[1:])):
+                    continue  # one canonical order of fresh ids
+                labels = prev.copy()
+                labels[list(moved)] = dest
+                if _valid(g, labels, counts):
+                    return k
+    return None
+
+
+def _instances(wanted: int = 5):
+    """3 x 4 grids of three row zones that met 40..90 persons before two areas grew or
+    shrank, chosen so that mending them takes two or three moves."""
+    graph = grid_graph(ROWS, COLS)
+    g = nx_graph(graph)
+    prev = np.repeat(np.arange(ROWS), COLS)
+    found = []
+    for seed in range(400):
+        rng = np.random.default_rng(seed)
+        before = rng.integers(8, 22, size=ROWS * COLS).astype(float)
+        if not _valid(g, prev, before):
+            continue
+        after = before.copy()
+        for a in rng.choice(ROWS * COLS, size=2, replace=False):
+            after[a] = after[a] + rng.integers(15, 45) if rng.random() < 0.6 else 1.0
+        if _valid(g, prev, after):
+            continue
+        fewest = _brute_fewest(g, prev, after)
+        if fewest is None or fewest < 2:
+            continue
+        found.append((seed, graph, prev, after, fewest))
+        if len(found) == wanted:
+            break
+    assert len(found) == wanted
+    return found
+
+
+INSTANCES = _instances()
+
+
+def _redraw(graph, prev, counts):
+    areas = make_areas(counts, ids=[f"a{i:02d}" for i in range(counts.shape[0])])
+    previous = {"block": np.array([f"B{z}" for z in prev], dtype=object)}
+    return redraw_hierarchy(areas, graph, _rules(), previous)
+
+
+@pytest.mark.parametrize("seed, graph, prev, counts, fewest", INSTANCES, ids=[f"seed{i[0]}" for i in INSTANCES])
+def test_the_bound_never_exceeds_the_fewest_moves_found_by_enumeration(seed, graph, prev, counts, fewest):
+    bounds = Bounds(("persons",), np.array([LO]), np.array([HI]), np.array([np.nan]))
+    assert 1 <= fewest_moves_bound(prev, counts[:, None], bounds) <= fewest
+
+
+@pytest.mark.parametrize("seed, graph, prev, counts, fewest", INSTANCES, ids=[f"seed{i[0]}" for i in INSTANCES])
+def test_the_redraw_moves_the_fewest_areas_that_enumeration_allows(seed, graph, prev, counts, fewest):
+    result = _redraw(graph, prev, counts)
+    now = result.lookup()["block"]
+    assert _valid(nx_graph(graph), compact_labels(now)[0], counts)
+    assert matched_moves(prev, now) == fewest
+
+
+def test_a_search_that_moved_too_much_gives_way_to_the_fewest_move_repair():
+    _, graph, prev, counts, fewest = INSTANCES[0]
+    captured = []
+
+    def keep_tasks(tasks, fn):
+        captured.extend(tasks)
+        return [fn(t) for t in tasks]
+
+    areas = make_areas(counts, ids=[f"a{i:02d}" for i in range(counts.shape[0])])
+    redraw_hierarchy(areas, graph, _rules(), {"block": np.array([f"B{z}" for z in prev], dtype=object)},
+                     executor=keep_tasks)
+    task = captured[0]
+    # a fresh design of the fence, blind to the previous zones: valid, but moves more
+    blind = replace(task.problem, previous=None)
+    fresh = np.asarray(solve(blind, search_rules=task.search, seed=11).labels, dtype=np.int64)
+    k = int(fresh.max()) + 1
+    assert bound_breaks(zone_sums(fresh, k, task.problem.counts), task.problem.bounds).sum() == 0
+    assert matched_moves(prev, fresh) > fewest
+    info: dict = {}
+    mended = _fewer_moves(task, fresh, info)
+    assert matched_moves(prev, mended) == fewest
+    assert _valid(nx_graph(graph), mended, counts)
+    assert info["mended_by"].startswith("cp-sat fewest moves")
