@@ -89,7 +89,9 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
         # the fewest is known when the repair proves it, or when a valid labelling meets the
         # counting bound; otherwise moved / found and moved / bound bracket the ratio
         reached = min([found] + ([matched] if not breaks_after else []))
-        if rep.status in ("optimal", "nothing to repair"):
+        if rep.status == "nothing to repair":
+            fewest, proof = 0, "no break"
+        elif rep.status == "optimal":
             fewest, proof = found, "cp-sat"
         elif reached == bound:
             fewest, proof = bound, "counting bound"

@@ -160,10 +160,9 @@ def test_homogeneity_only_rules_zero_the_other_weights(tmp_path):
 # ---------------------------------------------------------------- redraw
 
 
-def test_matched_moves_ignore_zone_names():
-    prev = np.array(["a", "a", "b", "b", "c"], dtype=object)
-    assert redraw_bench.matched_moves(prev, np.array(["x", "x", "y", "y", "z"], dtype=object)) == 0
-    assert redraw_bench.matched_moves(prev, np.array(["x", "y", "y", "y", "z"], dtype=object)) == 1
+def test_the_redraw_benchmark_codes_new_areas_as_without_a_previous_zone():
+    codes, k = redraw_bench._codes(np.array(["b", "", "a", "b"], dtype=object))
+    assert codes.tolist() == [1, -1, 0, 1]
 
 
 # ---------------------------------------------------------------- common

@@ -100,6 +100,12 @@ def _redraw(graph, prev, counts):
     return redraw_hierarchy(areas, graph, _rules(), previous)
 
 
+def test_matched_moves_ignore_zone_names():
+    prev = np.array(["a", "a", "b", "b", "c"], dtype=object)
+    assert matched_moves(prev, np.array(["x", "x", "y", "y", "z"], dtype=object)) == 0
+    assert matched_moves(prev, np.array(["x", "y", "y", "y", "z"], dtype=object)) == 1
+
+
 @pytest.mark.parametrize("seed, graph, prev, counts, fewest", INSTANCES, ids=[f"seed{i[0]}" for i in INSTANCES])
 def test_the_bound_never_exceeds_the_fewest_moves_found_by_enumeration(seed, graph, prev, counts, fewest):
     bounds = Bounds(("persons",), np.array([LO]), np.array([HI]), np.array([np.nan]))

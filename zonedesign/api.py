@@ -186,15 +186,7 @@ def design(
     finally:
         getattr(run, 'close', lambda: None)()  # a dask cluster lives for one run
     lookup = result.lookup()
-    seconds = dict(prep.seconds)
-    seconds.update(result.seconds)
-    summary = base_summary(prep, "design")
-    summary["search"] = {
-        "method": prep.rules.search.method,
-        "seed": prep.rules.search.seed,
-        "executor": executor,
-        "workers": workers,
-    }
+    seconds, summary = _run_summary(prep, "design", result, executor, workers)
     summary["fences"] = fence_figures(result)
     failures = [
         {"fence": f.fence, "tier": f.tier, "error": f.error} for f in result.failures
@@ -232,6 +224,20 @@ def _start_run(areas_path, rules, out, overwrite, layer, crs, executor, workers,
     if out is not None:
         _check_out(Path(out), overwrite, prep.inputs)
     return run, prep
+
+
+def _run_summary(prep: Prepared, command: str, result: Any, executor: str, workers: int) -> tuple[dict, dict]:
+    """Phase timings and the summary's head shared by design and redraw."""
+    seconds = dict(prep.seconds)
+    seconds.update(result.seconds)
+    summary = base_summary(prep, command)
+    summary["search"] = {
+        "method": prep.rules.search.method,
+        "seed": prep.rules.search.seed,
+        "executor": executor,
+        "workers": workers,
+    }
+    return seconds, summary
 
 
 def fence_figures(result: Any) -> list[dict]:
@@ -615,11 +621,7 @@ def redraw(
         getattr(run, 'close', lambda: None)()  # a dask cluster lives for one run
     lookup = result.lookup()
     changes = result.changes()
-    seconds = dict(prep.seconds)
-    seconds.update(result.seconds)
-    summary = base_summary(prep, "redraw")
-    summary["search"] = {"method": prep.rules.search.method, "seed": prep.rules.search.seed,
-                         "executor": executor, "workers": workers}
+    seconds, summary = _run_summary(prep, "redraw", result, executor, workers)
     summary["previous"] = {"lookup": str(previous), **problems}
     summary["changes"] = change_shares(changes, [t.name for t in prep.rules.tiers], lookup, prev)
     failures = [{"fence": f.fence, "tier": t.name, "error": f.error} for t in result.tiers for f in t.fences if f.error]

@@ -376,28 +376,10 @@ def _coverage(
             named = [str(z) for z in zone_lists[t.name] if not is_null(z)]
             used = set(encoded[t.name].names.tolist())
             for z in sorted(set(named) - used):
-                out.append(
-                    Violation(
-                        kind="coverage",
-                        tier=t.name,
-                        zone=z,
-                        areas=(),
-                        n_areas=0,
-                        figures={"empty_zone": z},
-                        message=f"zone {z} of tier {t.name} is named but holds no area",
-                    )
-                )
+                out.append(_zone_list_fault(t.name, z, "empty_zone", "is named but holds no area"))
             for z in sorted(used - set(named)):
                 out.append(
-                    Violation(
-                        kind="coverage",
-                        tier=t.name,
-                        zone=z,
-                        areas=(),
-                        n_areas=0,
-                        figures={"unknown_zone": z},
-                        message=f"zone {z} of tier {t.name} holds areas but is not in the tier's zone list",
-                    )
+                    _zone_list_fault(t.name, z, "unknown_zone", "holds areas but is not in the tier's zone list")
                 )
     # Duque, Ramos & Surinach 2007: no more regions than the units they are built from
     units = areas.n
@@ -420,6 +402,14 @@ def _coverage(
             )
         units, unit_word = encoded[t.name].k, f"zones of tier {t.name}"
     return out
+
+
+def _zone_list_fault(tier: str, zone: str, key: str, what: str) -> Violation:
+    """A zone named in the tier's zone list but empty, or holding areas but not named."""
+    return Violation(
+        kind="coverage", tier=tier, zone=zone, areas=(), n_areas=0,
+        figures={key: zone}, message=f"zone {zone} of tier {tier} {what}",
+    )
 
 
 def _lookup_problem(p: object) -> Violation:
