@@ -182,15 +182,21 @@ def test_a_run_past_max_memory_stops_cleanly_with_exit_2(tmp_path: Path) -> None
 
 
 def test_the_memory_guard_stops_its_block_and_then_lets_go() -> None:
-    with pytest.raises(MemoryLimitError, match="above --max-memory 1MB"):
-        with memory_guard("1MB"):  # this process is far past 1 MB already
-            for _ in range(500):
-                time.sleep(0.01)
-            pytest.fail("the guard let a run past its limit go on")
-    checkpoint()  # no guard is left behind to stop later work
-    with memory_guard("64GB"):
-        checkpoint()
-    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+    # a command-line run has Python's own SIGINT handler; a test session started in the
+    # background by a shell may inherit SIGINT ignored, so install it as a run would have it
+    inherited = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        with pytest.raises(MemoryLimitError, match="above --max-memory 1MB"):
+            with memory_guard("1MB"):  # this process is far past 1 MB already
+                for _ in range(500):
+                    time.sleep(0.01)
+                pytest.fail("the guard let a run past its limit go on")
+        checkpoint()  # no guard is left behind to stop later work
+        with memory_guard("64GB"):
+            checkpoint()
+        assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+    finally:
+        signal.signal(signal.SIGINT, inherited)
 
 
 def test_resident_size_follows_an_allocation_and_counts_child_processes() -> None:

@@ -22,6 +22,9 @@ from zonedesign.progress import Stages, TaskBars
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import Rules, load_rules
 
+AUDIT_REPAIR_WORK = 15.0  # CP-SAT deterministic time for audit --repair (about a minute on 2 cores)
+AUDIT_REPAIR_CAP = 600.0  # seconds: ends only a model far slower than expected
+
 CAUTION = (
     "Thresholds must follow your own statistical-disclosure-control rules. These results "
     "inform official statistics and need review by the responsible statistician before "
@@ -770,7 +773,10 @@ def audit(
 
         t0 = time.perf_counter()
         stage("searching for the fewest area moves that mend every break")
-        res = minimal_repair(prep.areas, prep.graph, labels, tiers, time_limit=60.0)
+        # the budget is solver work, not seconds, so the same lookup gets the same repair on
+        # any machine and under any load; the wall-clock cap only ends a runaway model
+        res = minimal_repair(prep.areas, prep.graph, labels, tiers, time_limit=AUDIT_REPAIR_CAP,
+                             deterministic_time=AUDIT_REPAIR_WORK)
         moves = res.repair_frame()
         repaired = res.labels
         recheck = run_audit(prep.areas, prep.graph, repaired, tiers) if repaired is not None else None
