@@ -19,7 +19,13 @@ from verify_support import grid_graph, make_areas
 
 from zonedesign.measures import bound_breaks, compact_labels, zone_sums
 from zonedesign.records import Bounds
-from zonedesign.redraw import _fewer_moves, fewest_moves_bound, matched_moves, redraw_hierarchy
+from zonedesign.redraw import (
+    STABILITY_FIRST,
+    _fewer_moves,
+    fewest_moves_bound,
+    matched_moves,
+    redraw_hierarchy,
+)
 from zonedesign.rules import AreasRules, Rules, SearchRules, TierRules
 from zonedesign.search.engine import solve
 
@@ -27,8 +33,9 @@ ROWS, COLS = 3, 4
 LO, HI = 40.0, 90.0
 
 
-def _rules() -> Rules:
-    tier = TierRules(name="block", min={"persons": LO}, max={"persons": HI})
+def _rules(stability: float = 0.0) -> Rules:
+    weights = {"size": 1.0, "homogeneity": 1.0, "compactness": 1.0, "stability": stability}
+    tier = TierRules(name="block", min={"persons": LO}, max={"persons": HI}, weights=weights)
     return Rules(
         areas=AreasRules(id="id", counts=("persons",), fence="fence"),
         tiers=(tier,),
@@ -94,10 +101,10 @@ def _instances(wanted: int = 5):
 INSTANCES = _instances()
 
 
-def _redraw(graph, prev, counts):
+def _redraw(graph, prev, counts, stability: float = 0.0, executor=None):
     areas = make_areas(counts, ids=[f"a{i:02d}" for i in range(counts.shape[0])])
     previous = {"block": np.array([f"B{z}" for z in prev], dtype=object)}
-    return redraw_hierarchy(areas, graph, _rules(), previous)
+    return redraw_hierarchy(areas, graph, _rules(stability), previous, executor=executor)
 
 
 def test_matched_moves_ignore_zone_names():
@@ -112,45 +119,65 @@ def test_the_bound_never_exceeds_the_fewest_moves_found_by_enumeration(seed, gra
     assert 1 <= fewest_moves_bound(prev, counts[:, None], bounds) <= fewest
 
 
+@pytest.mark.parametrize("stability", [0.0, 0.01], ids=["default stability", "stability weighed low"])
 @pytest.mark.parametrize("seed, graph, prev, counts, fewest", INSTANCES, ids=[f"seed{i[0]}" for i in INSTANCES])
-def test_the_redraw_moves_the_fewest_areas_that_enumeration_allows(seed, graph, prev, counts, fewest):
-    result = _redraw(graph, prev, counts)
+def test_the_redraw_moves_the_fewest_areas_that_enumeration_allows(seed, graph, prev, counts, fewest, stability):
+    # a redraw promises the fewest moves even where the rules weigh stability low
+    result = _redraw(graph, prev, counts, stability)
     now = result.lookup()["block"]
     assert _valid(nx_graph(graph), compact_labels(now)[0], counts)
     assert matched_moves(prev, now) == fewest
 
 
-def test_a_search_that_moved_too_much_gives_way_to_the_fewest_move_repair():
-    _, graph, prev, counts, fewest = INSTANCES[0]
+def _task_and_blind_design(instance, stability: float):
+    """The fence's redraw task, and a fresh design of the fence blind to the previous
+    zones: valid, but moving more areas than needed."""
+    _, graph, prev, counts, fewest = instance
     captured = []
 
     def keep_tasks(tasks, fn):
         captured.extend(tasks)
         return [fn(t) for t in tasks]
 
-    areas = make_areas(counts, ids=[f"a{i:02d}" for i in range(counts.shape[0])])
-    redraw_hierarchy(areas, graph, _rules(), {"block": np.array([f"B{z}" for z in prev], dtype=object)},
-                     executor=keep_tasks)
+    _redraw(graph, prev, counts, stability, executor=keep_tasks)
     task = captured[0]
-    # a fresh design of the fence, blind to the previous zones: valid, but moves more
     blind = replace(task.problem, previous=None)
     fresh = np.asarray(solve(blind, search_rules=task.search, seed=11).labels, dtype=np.int64)
     k = int(fresh.max()) + 1
     assert bound_breaks(zone_sums(fresh, k, task.problem.counts), task.problem.bounds).sum() == 0
     assert matched_moves(prev, fresh) > fewest
+    return task, fresh
+
+
+def test_a_search_that_moved_too_much_is_searched_again_with_stability_first():
+    _, graph, prev, counts, fewest = INSTANCES[0]
+    task, fresh = _task_and_blind_design(INSTANCES[0], stability=0.01)
     info: dict = {}
-    mended = _fewer_moves(task, fresh, info)
+    mended = _fewer_moves(task, fresh, np.arange(int(task.anchors.shape[0])), info)
+    assert matched_moves(prev, mended) == fewest
+    assert _valid(nx_graph(graph), mended, counts)
+    assert info["mended_by"] == "search, stability first"
+
+
+def test_where_the_search_still_moves_too_much_the_fewest_move_repair_takes_over():
+    _, graph, prev, counts, fewest = INSTANCES[0]
+    # stability already first in the rules: no second search, straight to CP-SAT
+    task, fresh = _task_and_blind_design(INSTANCES[0], stability=STABILITY_FIRST)
+    info: dict = {}
+    mended = _fewer_moves(task, fresh, np.arange(int(task.anchors.shape[0])), info)
     assert matched_moves(prev, mended) == fewest
     assert _valid(nx_graph(graph), mended, counts)
     assert info["mended_by"].startswith("cp-sat fewest moves")
+    assert "moves_stability_first" not in info
 
 
 def test_a_redraw_mended_by_the_repair_repeats_exactly():
     # the repair's budget is counted in solver work, not seconds, so a second run (on a
     # machine as busy or idle as it likes) takes the same path to the same zones
-    mended = [i for i in INSTANCES if "mended_by" in _redraw(*i[1:4]).tiers[0].fences[0].info]
+    runs = [(i, _redraw(*i[1:4], stability=STABILITY_FIRST)) for i in INSTANCES]
+    mended = [i for i, r in runs if r.tiers[0].fences[0].info.get("mended_by", "").startswith("cp-sat")]
     assert mended, "no instance needed the repair"
     _, graph, prev, counts, _ = mended[0]
-    first, second = _redraw(graph, prev, counts), _redraw(graph, prev, counts)
+    first, second = (_redraw(graph, prev, counts, stability=STABILITY_FIRST) for _ in range(2))
     assert np.array_equal(first.lookup()["block"], second.lookup()["block"])
     assert first.tiers[0].fences[0].info == second.tiers[0].fences[0].info

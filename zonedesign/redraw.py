@@ -178,29 +178,9 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
     best = labels
     for ring in range(1, rings + 1):
         active = zone_neighbours(p.graph, labels, active)
-        units = np.flatnonzero(np.isin(labels, active))
-        sub = _sub_problem(p, units)
-        local, kk = compact_labels(labels[units])
-        local_anchor = np.full(kk, -1, dtype=np.int64)
-        local_anchor[local] = anchors[labels[units]]
-        sol = solve(
-            sub,
-            search_rules=task.search,
-            seed=task.seed + ring,
-            time_limit=task.search.time_limit_fence,
-            start=local,
-            anchors=local_anchor,
-        )
-        out = labels.copy()
-        # zones of the searched part are numbered after the untouched zones
-        untouched = np.setdiff1d(np.arange(k), active)
-        renum = np.full(k, -1, dtype=np.int64)
-        renum[untouched] = np.arange(untouched.shape[0])
-        out[~np.isin(labels, active)] = renum[labels[~np.isin(labels, active)]]
-        out[units] = untouched.shape[0] + np.asarray(sol.labels, dtype=np.int64)
-        best = out
+        best, breaks = _search_ring(task, p, active, task.seed + ring)
         info["rings"] = ring
-        if sol.score.breaks == 0:
+        if breaks == 0:
             break
     else:
         # the rings could not mend every break: redesign the whole fence (still weighing
@@ -212,8 +192,38 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
             best = np.asarray(fresh.labels, dtype=np.int64)
             info["redesigned"] = True
     if p.previous is not None:
-        best = _fewer_moves(task, best, info)
+        best = _fewer_moves(task, best, active, info)
     return scored_result(task, best, t0, info)
+
+
+def _search_ring(task: FenceTask, p, active: np.ndarray, seed: int) -> tuple[np.ndarray, float]:
+    """Search the units of the `active` zones from the start labelling; every other zone
+    is kept. Returns the fence's labels (searched zones numbered after the kept ones) and
+    the search's bound breaks."""
+    from zonedesign.search.engine import solve
+
+    labels, anchors = task.start, task.anchors
+    k = anchors.shape[0]
+    units = np.flatnonzero(np.isin(labels, active))
+    local, kk = compact_labels(labels[units])
+    local_anchor = np.full(kk, -1, dtype=np.int64)
+    local_anchor[local] = anchors[labels[units]]
+    sol = solve(
+        _sub_problem(p, units),
+        search_rules=task.search,
+        seed=seed,
+        time_limit=task.search.time_limit_fence,
+        start=local,
+        anchors=local_anchor,
+    )
+    out = labels.copy()
+    untouched = np.setdiff1d(np.arange(k), active)
+    renum = np.full(k, -1, dtype=np.int64)
+    renum[untouched] = np.arange(untouched.shape[0])
+    kept = ~np.isin(labels, active)
+    out[kept] = renum[labels[kept]]
+    out[units] = untouched.shape[0] + np.asarray(sol.labels, dtype=np.int64)
+    return out, sol.score.breaks
 
 
 def matched_moves(before: np.ndarray, after: np.ndarray) -> int:
@@ -273,12 +283,17 @@ REPAIR_WORK = 3.0  # CP-SAT deterministic time per fence for the fewest-move men
 REPAIR_CAP = 120.0  # seconds: a safety cap that a normal run never reaches
 
 
-def _fewer_moves(task: FenceTask, searched: np.ndarray, info: dict) -> np.ndarray:
-    """The search's labelling, or the CP-SAT fewest-move repair of the previous zones when
-    that repair breaks no bound and moves fewer units.
+STABILITY_FIRST = 1000.0  # the stability weight of the fewest-move search pass
 
-    The repair is only tried when the search moved more units than `fewest_moves_bound`
-    allows for; its budget is deterministic, so a redraw repeats exactly under any load.
+
+def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info: dict) -> np.ndarray:
+    """The search's labelling, or one that moves fewer units and breaks no bound.
+
+    Only when the search moved more units than `fewest_moves_bound` allows for: first the
+    same zones are searched again with stability put first (weight STABILITY_FIRST: the
+    rules' lower weight traded moves for shape, and a redraw promises the fewest moves),
+    then the CP-SAT fewest-move repair of the previous zones is tried. Its budget is
+    deterministic, so a redraw repeats exactly under any load.
     """
     from zonedesign.records import Areas
     from zonedesign.rules import TierRules
@@ -294,6 +309,18 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, info: dict) -> np.ndarra
     info["moves_bound"] = bound
     if searched_breaks == 0 and search_moves <= bound:
         return searched
+    if p.term_weights.get("stability", 0.0) < STABILITY_FIRST:
+        from dataclasses import replace
+
+        first = replace(task, problem=replace(p, term_weights={**p.term_weights, "stability": STABILITY_FIRST}))
+        again, breaks = _search_ring(first, first.problem, active, task.seed + 100)
+        again_moves = matched_moves(prev, again)
+        info["moves_stability_first"] = again_moves
+        if breaks == 0 and (searched_breaks > 0 or again_moves < search_moves):
+            searched, search_moves, searched_breaks = again, again_moves, 0
+            info["mended_by"] = "search, stability first"
+            if search_moves <= bound:
+                return searched
     tier = TierRules(
         name=task.tier,
         min={c: float(v) for c, v in zip(b.count_names, b.lo) if np.isfinite(v)},
