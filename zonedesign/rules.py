@@ -828,6 +828,8 @@ def starter_rules(columns: Sequence[str], dtypes: Sequence[str], sample: pd.Data
             out.append(f"{key} = {_toml_value(table)}")
         out += [
             "weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 0.0 }",
+            "# stability counts only in a redraw (0 means 20 there); where these weights would move",
+            "# more areas than needed, a redraw searches again for the fewest moves",
             'homogeneity = "ssd"   # or "pairwise"',
             'compactness = "polsby"   # or "cut"',
         ]
