@@ -6,7 +6,7 @@ import pandas as pd
 from cli_support import write_inputs
 
 from zonedesign import api
-from zonedesign.verify.repair import RepairResult
+from zonedesign.verify.repair import Move, RepairResult
 
 
 def _broken_lookup(tmp_path):
@@ -48,3 +48,31 @@ def test_when_the_cp_sat_repair_cannot_finish_the_search_mends_it_and_says_so(tm
     assert res.summary["repair"]["repaired_lookup_passes"]
     again = api.audit(areas, rules, None, lookup=tmp_path / "audit" / "lookup.repaired.csv", report=False, certify=False)
     assert again.exit_code == 0
+
+
+def test_an_unproven_cp_sat_repair_gives_way_to_a_search_repair_with_fewer_moves(tmp_path, monkeypatch):
+    areas, rules, broken = _broken_lookup(tmp_path)
+    designed = pd.read_csv(tmp_path / "designed" / "lookup.csv", dtype=str)
+    # a valid but wasteful "repair": the design itself with two blocks of a ward swapping names
+    ward = designed.loc[0, "ward"]
+    a, b = sorted(set(designed.loc[designed["ward"] == ward, "block"]))[:2]
+    wasteful = designed["block"].map({a: b, b: a}).fillna(designed["block"]).to_numpy(dtype=object)
+
+    def wastes(areas_, graph, labels, tiers, **kw):
+        new = {t.name: designed[t.name].to_numpy(dtype=object) for t in tiers}
+        new["block"] = wasteful
+        moves = [
+            Move(str(areas_.ids[i]), t, str(labels[t][i]), str(new[t][i]))
+            for t in new for i in range(areas_.n) if str(labels[t][i]) != str(new[t][i])
+        ]
+        return RepairResult(moves=moves, labels=new, status="feasible", reason="not proven")
+
+    monkeypatch.setattr("zonedesign.verify.repair.minimal_repair", wastes)
+    res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, report=False, certify=False)
+    repair = res.summary["repair"]
+    assert repair["method"].startswith("redraw search") and repair["cp_sat_status"] == "feasible"
+    assert repair["repaired_lookup_passes"]
+    moves = pd.read_csv(tmp_path / "audit" / "repair.csv")
+    # the search's zones keep the names they carry on, so only areas that moved are listed
+    wasted = int((designed["block"] != pd.Series(wasteful)).sum())
+    assert len(moves) == repair["moves"] < wasted

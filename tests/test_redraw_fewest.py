@@ -23,6 +23,7 @@ from zonedesign.redraw import (
     STABILITY_FIRST,
     _fewer_moves,
     fewest_moves_bound,
+    keep_matched_ids,
     matched_moves,
     redraw_hierarchy,
 )
@@ -181,3 +182,17 @@ def test_a_redraw_mended_by_the_repair_repeats_exactly():
     first, second = (_redraw(graph, prev, counts, stability=STABILITY_FIRST) for _ in range(2))
     assert np.array_equal(first.lookup()["block"], second.lookup()["block"])
     assert first.tiers[0].fences[0].info == second.tiers[0].fences[0].info
+
+
+def test_matched_ids_are_given_back_so_only_areas_that_moved_change_id():
+    before = np.array(["a", "a", "a", "b", "b", "", ""], dtype=object)
+    after = np.array(["n1", "n1", "n2", "n2", "n2", "n3", "n3"], dtype=object)
+    named = keep_matched_ids(before, after)
+    # n1 carries on a, n2 carries on b; n3 holds only areas that had no zone: a name of its own
+    assert named.tolist() == ["a", "a", "b", "b", "b", "n3", "n3"]
+    assert int((named[:5] != before[:5]).sum()) == matched_moves(before[:5], after[:5]) == 1
+    # an unmatched zone that already bore a name given back is renamed apart
+    clash = keep_matched_ids(
+        np.array(["a", "a", "b", "b", "b"], dtype=object), np.array(["x", "x", "y", "y", "a"], dtype=object)
+    )
+    assert clash.tolist()[:4] == ["a", "a", "b", "b"] and clash[4] not in ("a", "b", "x", "y")

@@ -572,12 +572,14 @@ def search_repair(prep: Prepared, labels: Mapping[str, np.ndarray]) -> dict[str,
     """Mend a broken hierarchy with the redraw search: nesting by majority, then every
     broken zone and its neighbours re-searched with a heavy stability weight. Not proven
     minimal; used when the CP-SAT repair cannot finish."""
-    from zonedesign.redraw import redraw_hierarchy
+    from zonedesign.redraw import keep_matched_ids, redraw_hierarchy
 
     names = [t.name for t in prep.rules.tiers]
-    prev = {n: np.array(["" if v is None else str(v) for v in labels[n]], dtype=object) for n in names}
-    prev = mend_nesting(prev, names)
-    return redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev).lookup()
+    given = {n: np.array(["" if v is None else str(v) for v in labels[n]], dtype=object) for n in names}
+    prev = mend_nesting(given, names)
+    now = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev).lookup()
+    # zones keep the names they are matched to, so the moves listed are areas that moved
+    return {n: keep_matched_ids(given[n], now[n]) for n in names}
 
 
 def repair_moves(ids: np.ndarray, before: Mapping[str, np.ndarray], after: Mapping[str, np.ndarray]) -> pd.DataFrame:
@@ -786,13 +788,18 @@ def audit(
             "moves": int(len(moves)),
             "repaired_lookup_passes": bool(recheck.ok) if recheck is not None else False,
         }
-        if recheck is None or not recheck.ok:
-            stage("the CP-SAT repair did not finish; mending with the redraw search instead")
+        if recheck is None or not recheck.ok or res.status != "optimal":
+            # not proven fewest: the redraw search may mend with fewer moves, or mend at all
+            stage("the CP-SAT repair is not proven fewest; trying the redraw search as well")
             mended = search_repair(prep, labels)
             again = run_audit(prep.areas, prep.graph, mended, tiers)
-            if again.ok or recheck is None or len(again.violations) < len(recheck.violations):
+            search_moves = repair_moves(prep.areas.ids, labels, mended)
+            summary["repair"]["redraw_search_moves"] = int(len(search_moves)) if again.ok else None
+            if (again.ok and (recheck is None or not recheck.ok or len(search_moves) < len(moves))) or (
+                not again.ok and (recheck is None or len(again.violations) < len(recheck.violations))
+            ):
                 repaired = mended
-                moves = repair_moves(prep.areas.ids, labels, mended)
+                moves = search_moves
                 summary["repair"] = {
                     "method": "redraw search (not proven fewest moves)",
                     "status": "feasible" if again.ok else "partial",

@@ -226,17 +226,46 @@ def _search_ring(task: FenceTask, p, active: np.ndarray, seed: int) -> tuple[np.
     return out, sol.score.breaks
 
 
+def _matching(before: np.ndarray, after: np.ndarray):
+    """The one-to-one matching of new zones to old ones that keeps most units in place:
+    (old codes, new codes, old names, new names, matched rows, matched cols, overlap)."""
+    from scipy.optimize import linear_sum_assignment
+
+    bn, b = np.unique(np.asarray(before, dtype=str), return_inverse=True)
+    an, a = np.unique(np.asarray(after, dtype=str), return_inverse=True)
+    overlap = np.zeros((bn.shape[0], an.shape[0]))
+    np.add.at(overlap, (b, a), 1.0)
+    rows, cols = linear_sum_assignment(-overlap)
+    return bn, an, rows, cols, overlap
+
+
 def matched_moves(before: np.ndarray, after: np.ndarray) -> int:
     """Units that changed zone under the best one-to-one matching of new zones to old ones
     (so a zone that only changed its number is not counted as moved)."""
-    from scipy.optimize import linear_sum_assignment
+    _, _, rows, cols, overlap = _matching(before, after)
+    return int(np.asarray(before).shape[0] - overlap[rows, cols].sum())
 
-    b, kb = compact_labels(np.asarray(before))
-    a, ka = compact_labels(np.asarray(after))
-    overlap = np.zeros((kb, ka))
-    np.add.at(overlap, (b, a), 1.0)
-    rows, cols = linear_sum_assignment(-overlap)
-    return int(b.shape[0] - overlap[rows, cols].sum())
+
+def keep_matched_ids(before: np.ndarray, after: np.ndarray) -> np.ndarray:
+    """`after` with each new zone named as the old zone it is matched to (when they share
+    a unit), so that only units that really moved change id; other new zones keep their
+    names (renamed apart where one clashes with a name given back)."""
+    bn, an, rows, cols, overlap = _matching(before, after)
+    # areas that had no zone ("") are no zone to name anything after
+    rename = {str(an[c]): str(bn[r]) for r, c in zip(rows, cols) if overlap[r, c] > 0 and str(bn[r]) != ""}
+    taken = set(rename.values()) | set(map(str, an))
+    for z in map(str, an):
+        if z not in rename and z in set(rename.values()):
+            # an unmatched zone whose name an old zone now carries again: a fresh name
+            j = 1
+            while f"{z}-{j}" in taken:
+                j += 1
+            rename[z] = f"{z}-{j}"
+            taken.add(rename[z])
+    out = np.asarray(after, dtype=object).copy()
+    for i, z in enumerate(out):
+        out[i] = rename.get(str(z), z)
+    return out
 
 
 def fewest_moves_bound(previous: np.ndarray, counts: np.ndarray, bounds) -> int:
