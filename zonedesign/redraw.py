@@ -13,7 +13,11 @@ Per tier (bottom-up) and fence:
    are handed to the search, which starts from the current labelling with a heavy stability
    weight (every unit leaving its previous zone costs), and may merge, split and move units;
    the ring widens when the breaks cannot be mended inside it;
-3. every other zone is kept whole with its id.
+3. when the search moved more units than `fewest_moves_bound` (a counting lower bound)
+   allows, the same zones are searched again with stability first, then the CP-SAT
+   fewest-move repair of the previous zones is tried; the labelling moving fewest units
+   (counted by `matched_moves`) is kept;
+4. every other zone is kept whole with its id.
 An upper-tier zone keeps its id when its members are unchanged; nesting holds after every tier
 because tier k is redrawn from the tier-(k-1) zones.
 """
@@ -48,6 +52,9 @@ from zonedesign.rules import Rules, TierRules
 from zonedesign.zonetables import bounds_of
 
 STABILITY_DEFAULT = 20.0  # heavy by default: moving a unit must buy a lot of objective
+STABILITY_FIRST = 1000.0  # the stability weight of the fewest-move search pass
+REPAIR_WORK = 3.0  # CP-SAT deterministic time per fence for the fewest-move repair
+REPAIR_CAP = 120.0  # seconds: a safety cap that a normal run never reaches
 
 
 @dataclass
@@ -228,7 +235,7 @@ def _search_ring(task: FenceTask, p, active: np.ndarray, seed: int) -> tuple[np.
 
 def _matching(before: np.ndarray, after: np.ndarray):
     """The one-to-one matching of new zones to old ones that keeps most units in place:
-    (old codes, new codes, old names, new names, matched rows, matched cols, overlap)."""
+    (old names, new names, matched rows (old), matched columns (new), overlap counts)."""
     from scipy.optimize import linear_sum_assignment
 
     bn, b = np.unique(np.asarray(before, dtype=str), return_inverse=True)
@@ -306,13 +313,6 @@ def _units_to_cover(values: np.ndarray, amount: float) -> int:
     """The fewest of `values` whose sum reaches `amount` (all of them when none do)."""
     top = np.cumsum(np.sort(values)[::-1])
     return int(min(np.searchsorted(top, amount - 1e-9) + 1, values.shape[0]))
-
-
-REPAIR_WORK = 3.0  # CP-SAT deterministic time per fence for the fewest-move mend
-REPAIR_CAP = 120.0  # seconds: a safety cap that a normal run never reaches
-
-
-STABILITY_FIRST = 1000.0  # the stability weight of the fewest-move search pass
 
 
 def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info: dict) -> np.ndarray:
