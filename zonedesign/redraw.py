@@ -384,7 +384,8 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
     info["moves_repair"] = repair_moves
     if searched_breaks == 0 and repair_moves >= search_moves:
         return searched
-    info["mended_by"] = "cp-sat fewest moves" + (" (proven)" if rep.status == "optimal" else "")
+    proven = rep.status == "optimal" or repair_moves <= bound
+    info["mended_by"] = "cp-sat fewest moves" + (" (proven)" if proven else "")
     return codes
 
 

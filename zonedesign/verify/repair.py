@@ -640,6 +640,10 @@ class _ClusterModel:
         solver = cp_model.CpSolver()
         budget.limit(solver, fraction)
         solver.parameters.num_workers = int(ctx.workers)
+        if budget.deterministic:
+            # CP-SAT's whole portfolio (local search, neighbourhood search, ...) on a fixed
+            # schedule: far better repairs than one plain search, and still repeatable
+            solver.parameters.interleave_search = True
         status = solve_model(solver, m)
         budget.charge(solver)
         if status == cp_model.INFEASIBLE:
