@@ -44,7 +44,12 @@ LOW_STABILITY = 1.0  # the stability weight of the second redraw
 def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> tuple[list[dict], dict]:
     from zonedesign import api
     from zonedesign.hierarchy import build_hierarchy, fence_order
-    from zonedesign.redraw import fewest_moves_bound, matched_moves, redraw_hierarchy
+    from zonedesign.redraw import (
+        fewest_moves_bound,
+        matched_moves,
+        previous_codes,
+        redraw_hierarchy,
+    )
     from zonedesign.scenarios import write_demo_input
     from zonedesign.verify.checks import audit
     from zonedesign.verify.repair import minimal_repair
@@ -87,8 +92,7 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
         moved = int((prev_f != now_f).sum())
         matched = matched_moves(prev_f.astype(str), now_f.astype(str))
         matched_low = matched_moves(prev_f.astype(str), np.asarray(now_low[name][index], dtype=str))
-        codes, _ = _codes(prev_f)
-        bound = fewest_moves_bound(codes, second.areas.counts[index], bounds_of(tier1, second.areas.count_names))
+        bound = fewest_moves_bound(previous_codes(prev_f), second.areas.counts[index], bounds_of(tier1, second.areas.count_names))
         t1 = time.perf_counter()
         rep = minimal_repair(
             second.areas.subset(index), second.graph.subgraph(index), {name: prev_f}, [tier1], time_limit=repair_time
@@ -136,17 +140,6 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
     info = {"design_s": design_s, "redraw_s": redraw_s, "redraw_low_s": redraw_low_s, "areas": second.areas.n,
             "audit_ok": bool(checked.ok)}
     return rows, info
-
-
-def _codes(labels: np.ndarray) -> tuple[np.ndarray, int]:
-    """Zone codes 0..k-1 of a fence's previous labels (-1 for areas new since then)."""
-    lab = np.asarray(labels, dtype=str)
-    names, codes = np.unique(lab, return_inverse=True)
-    codes = codes.astype(np.int64)
-    if "" in names:
-        empty = int(np.flatnonzero(names == "")[0])
-        codes = np.where(codes == empty, -1, codes - (codes > empty))
-    return codes, int(names.shape[0])
 
 
 def _ratio(moved: int, fewest: float) -> float:

@@ -160,9 +160,10 @@ def test_homogeneity_only_rules_zero_the_other_weights(tmp_path):
 # ---------------------------------------------------------------- redraw
 
 
-def test_the_redraw_benchmark_codes_new_areas_as_without_a_previous_zone():
-    codes, k = redraw_bench._codes(np.array(["b", "", "a", "b"], dtype=object))
-    assert codes.tolist() == [1, -1, 0, 1]
+def test_the_redraw_ratio_counts_a_fence_with_nothing_to_mend_as_met_only_when_nothing_moved():
+    assert redraw_bench._ratio(0, 0) == 1.0
+    assert redraw_bench._ratio(3, 0) == float("inf")
+    assert redraw_bench._ratio(3, 2) == 1.5
 
 
 # ---------------------------------------------------------------- common

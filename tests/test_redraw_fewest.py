@@ -25,6 +25,7 @@ from zonedesign.redraw import (
     fewest_moves_bound,
     keep_matched_ids,
     matched_moves,
+    previous_codes,
     redraw_hierarchy,
 )
 from zonedesign.rules import AreasRules, Rules, SearchRules, TierRules
@@ -106,6 +107,10 @@ def _redraw(graph, prev, counts, stability: float = 0.0, executor=None):
     areas = make_areas(counts, ids=[f"a{i:02d}" for i in range(counts.shape[0])])
     previous = {"block": np.array([f"B{z}" for z in prev], dtype=object)}
     return redraw_hierarchy(areas, graph, _rules(stability), previous, executor=executor)
+
+
+def test_areas_new_since_the_previous_lookup_have_no_previous_zone_code():
+    assert previous_codes(np.array(["b", "", "a", "b"], dtype=object)).tolist() == [1, -1, 0, 1]
 
 
 def test_matched_moves_ignore_zone_names():

@@ -6,9 +6,10 @@ returns a plain `RunResult` (summary dict, exit code, output folder).
 
 from __future__ import annotations
 
+import contextlib
 import platform
 import time
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -184,10 +185,8 @@ def design(
         _say(progress, f"tier {i}/{n} '{name}' designed")
 
     _say(progress, f"designing {len(prep.rules.tiers)} tiers over {len(set(prep.areas.fence))} fences")
-    try:
+    with _closing(run):
         result = build_hierarchy(prep.areas, prep.graph, prep.rules, executor=run, on_tier=on_tier)
-    finally:
-        getattr(run, 'close', lambda: None)()  # a dask cluster lives for one run
     lookup = result.lookup()
     seconds, summary = _run_summary(prep, "design", result, executor, workers)
     summary["fences"] = fence_figures(result)
@@ -227,6 +226,15 @@ def _start_run(areas_path, rules, out, overwrite, layer, crs, executor, workers,
     if out is not None:
         _check_out(Path(out), overwrite, prep.inputs)
     return run, prep
+
+
+@contextlib.contextmanager
+def _closing(run: Callable) -> Iterator[None]:
+    """Close the executor after its run: a dask cluster it started lives for one run."""
+    try:
+        yield
+    finally:
+        getattr(run, "close", lambda: None)()
 
 
 def _run_summary(prep: Prepared, command: str, result: Any, executor: str, workers: int) -> tuple[dict, dict]:
@@ -620,10 +628,8 @@ def redraw(
     )
     prev, problems = read_previous(previous, prep, mend=mend)
     _say(progress, f"redrawing {len(prep.rules.tiers)} tiers against {previous}")
-    try:
+    with _closing(run):
         result = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, executor=run)
-    finally:
-        getattr(run, 'close', lambda: None)()  # a dask cluster lives for one run
     lookup = result.lookup()
     changes = result.changes()
     seconds, summary = _run_summary(prep, "redraw", result, executor, workers)
@@ -679,10 +685,8 @@ def sweep(
     vs = variants(prep.rules, keys)
     _say(progress, f"sweeping {len(vs)} variant(s)")
     tasks = [VariantTask(variant=v, areas=prep.areas, graph=prep.graph, previous=prev) for v in vs]
-    try:
+    with _closing(run):
         rows = run(tasks, run_variant)
-    finally:
-        getattr(run, 'close', lambda: None)()  # a dask cluster lives for one run
     lookups = [r.pop("_lookup") for r in rows]
     table = pd.DataFrame(rows)
     summary = base_summary(prep, "sweep")
@@ -795,9 +799,12 @@ def audit(
             again = run_audit(prep.areas, prep.graph, mended, tiers)
             search_moves = repair_moves(prep.areas.ids, labels, mended)
             summary["repair"]["redraw_search_moves"] = int(len(search_moves)) if again.ok else None
-            if (again.ok and (recheck is None or not recheck.ok or len(search_moves) < len(moves))) or (
-                not again.ok and (recheck is None or len(again.violations) < len(recheck.violations))
-            ):
+            cp_sat_failed = recheck is None or not recheck.ok
+            mends_with_fewer = again.ok and (cp_sat_failed or len(search_moves) < len(moves))
+            leaves_fewer_faults = not again.ok and (
+                recheck is None or len(again.violations) < len(recheck.violations)
+            )
+            if mends_with_fewer or leaves_fewer_faults:
                 repaired = mended
                 moves = search_moves
                 summary["repair"] = {

@@ -311,7 +311,7 @@ def _run(args: argparse.Namespace) -> int:
     from zonedesign import api
     from zonedesign.progress import Progress
 
-    say = Progress(quiet=getattr(args, "quiet", False), keep_interrupt=True)
+    say = Progress(quiet=getattr(args, "quiet", False))
     cmd = args.command
     if cmd == "design":
         res = api.design(

@@ -11,9 +11,7 @@ checkpoint (see `zonedesign.memory`).
 from __future__ import annotations
 
 import contextlib
-import signal
 import sys
-import threading
 import time
 from collections.abc import Callable, Iterator
 from typing import Any, Protocol, TextIO
@@ -72,16 +70,8 @@ class Progress:
     ...     b.update()
     """
 
-    def __init__(
-        self,
-        *,
-        quiet: bool = False,
-        stream: TextIO | None = None,
-        bars: bool | None = None,
-        keep_interrupt: bool = False,
-    ):
+    def __init__(self, *, quiet: bool = False, stream: TextIO | None = None, bars: bool | None = None):
         self.quiet = quiet
-        self.keep_interrupt = keep_interrupt
         self.stream = stream if stream is not None else sys.stderr
         if bars is None:
             bars = bool(getattr(self.stream, "isatty", lambda: False)())
@@ -93,8 +83,6 @@ class Progress:
 
     def step(self, text: str) -> None:
         checkpoint()
-        if self.keep_interrupt:
-            keep_interrupt()
         if self.quiet:
             return
         line = f"[{time.perf_counter() - self.t0:7.1f}s] {text}"
@@ -117,19 +105,6 @@ class Progress:
         finally:
             if not isinstance(drawn, _NoBar):
                 drawn.close()
-
-
-def keep_interrupt() -> None:
-    """Re-install Python's own SIGINT handler at the system level.
-
-    OR-tools' CP-SAT resets SIGINT to the system default after each solve while Python
-    still reports its handler; Ctrl-C would then end the run at once, skipping the clean-up
-    of its temporary output folder. Called at every progress step of a command-line run.
-    """
-    if threading.current_thread() is threading.main_thread():
-        handler = signal.getsignal(signal.SIGINT)
-        if callable(handler):
-            signal.signal(signal.SIGINT, handler)
 
 
 # ---------------------------------------------------------------- for the api

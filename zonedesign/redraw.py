@@ -185,7 +185,7 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
     best = labels
     for ring in range(1, rings + 1):
         active = zone_neighbours(p.graph, labels, active)
-        best, breaks = _search_ring(task, p, active, task.seed + ring)
+        best, breaks = _search_ring(task, active, task.seed + ring)
         info["rings"] = ring
         if breaks == 0:
             break
@@ -203,12 +203,13 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
     return scored_result(task, best, t0, info)
 
 
-def _search_ring(task: FenceTask, p, active: np.ndarray, seed: int) -> tuple[np.ndarray, float]:
+def _search_ring(task: FenceTask, active: np.ndarray, seed: int) -> tuple[np.ndarray, float]:
     """Search the units of the `active` zones from the start labelling; every other zone
     is kept. Returns the fence's labels (searched zones numbered after the kept ones) and
     the search's bound breaks."""
     from zonedesign.search.engine import solve
 
+    p = task.problem
     labels, anchors = task.start, task.anchors
     k = anchors.shape[0]
     units = np.flatnonzero(np.isin(labels, active))
@@ -333,7 +334,7 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
     b = p.bounds
     search_moves = matched_moves(prev, searched)
     bound = fewest_moves_bound(prev, p.counts, b)
-    searched_breaks = bound_breaks(zone_sums(compact_labels(searched)[0], int(searched.max()) + 1, p.counts), b).sum()
+    searched_breaks = _breaks(p, searched)
     info["moves_search"] = search_moves
     info["moves_bound"] = bound
     if searched_breaks == 0 and search_moves <= bound:
@@ -342,7 +343,7 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
         from dataclasses import replace
 
         first = replace(task, problem=replace(p, term_weights={**p.term_weights, "stability": STABILITY_FIRST}))
-        again, breaks = _search_ring(first, first.problem, active, task.seed + 100)
+        again, breaks = _search_ring(first, active, task.seed + 100)
         again_moves = matched_moves(prev, again)
         info["moves_stability_first"] = again_moves
         if breaks == 0 and (searched_breaks > 0 or again_moves < search_moves):
@@ -377,8 +378,8 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
     info["repair_status"] = rep.status
     if not rep.ok or rep.remaining or not rep.labels:
         return searched
-    codes, k = compact_labels(np.asarray(rep.labels[task.tier], dtype=object))
-    if bound_breaks(zone_sums(codes, k, p.counts), b).sum() > 0:
+    codes, _ = compact_labels(np.asarray(rep.labels[task.tier], dtype=object))
+    if _breaks(p, codes) > 0:
         return searched
     repair_moves = matched_moves(prev, codes)
     info["moves_repair"] = repair_moves
@@ -387,6 +388,12 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
     proven = rep.status == "optimal" or repair_moves <= bound
     info["mended_by"] = "cp-sat fewest moves" + (" (proven)" if proven else "")
     return codes
+
+
+def _breaks(p, labels: np.ndarray) -> float:
+    """The summed bound breaks of a labelling (0 when every bound holds)."""
+    codes, k = compact_labels(labels)
+    return float(bound_breaks(zone_sums(codes, k, p.counts), p.bounds).sum())
 
 
 def _sub_problem(p, units: np.ndarray):
@@ -525,17 +532,17 @@ def redraw_hierarchy(
         for fence in fences:
             index = np.flatnonzero(units.fence == fence)
             pid = prev_unit[index]
-            codes, uniq = pd.factorize(pd.Series(pid).replace("", np.nan), sort=True)
+            codes = previous_codes(pid)
             b = bounds_of(tier, areas.count_names)
             sub_graph = units.graph.subgraph(index)
-            start, anchors = start_labels(sub_graph, codes.astype(np.int64), units.counts[index], b.lo)
+            start, anchors = start_labels(sub_graph, codes, units.counts[index], b.lo)
             weights = dict(tier.weights)
             if weights.get("stability", 0.0) <= 0:
                 weights["stability"] = STABILITY_DEFAULT
             problem = fence_problem(units, index, _with_weights(tier, weights), areas.count_names, previous=None)
             from dataclasses import replace
 
-            problem = replace(problem, previous=codes.astype(np.int64))
+            problem = replace(problem, previous=codes)
             tasks.append(
                 FenceTask(
                     fence=fence, tier=tier.name, tier_index=t, units=index, problem=problem,
@@ -574,6 +581,12 @@ def redraw_hierarchy(
         if t + 1 < len(rules.tiers):
             units = next_units(units, zone_of_unit, np.array(zfence, dtype=object))
     return RedrawResult(tiers=tiers, units=all_units, new_areas=new_areas, gone_areas=[], seconds=seconds)
+
+
+def previous_codes(ids: np.ndarray) -> np.ndarray:
+    """Previous zone ids as codes 0..k-1 in sorted id order; -1 for "" (no previous zone)."""
+    codes, _ = pd.factorize(pd.Series(np.asarray(ids, dtype=object)).replace("", np.nan), sort=True)
+    return codes.astype(np.int64)
 
 
 def _with_weights(tier: TierRules, weights: dict[str, float]) -> TierRules:

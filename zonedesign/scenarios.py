@@ -27,7 +27,6 @@ WIDTH, HEIGHT = 64_000.0, 48_000.0
 N_DISTRICTS = 10
 N_TOWNS = 8
 GROWTH_PUSH = 8.0
-# generated files carry this date instead of the clock, so equal seeds give equal bytes
 
 _ONSETS = ("Br", "Dr", "Fl", "Gw", "Kr", "Qu", "Sk", "Thr", "Vr", "Hesk", "Orv", "Ysk")
 _NUCLEI = ("a", "e", "i", "o", "ae", "ei", "au", "y")

@@ -196,9 +196,9 @@ def solve_once(
     anchors: np.ndarray | None = None,
     method: str | None = None,
 ) -> Solution:
-    """Partition the problem's units into contiguous zones; breaks first, then the objective.
+    """One search, no restarts: `solve` with its arguments, from one seed.
 
-    >>> sol = solve(problem, seed=3)            # doctest: +SKIP
+    >>> sol = solve_once(problem, seed=3)       # doctest: +SKIP
     >>> sol.labels, sol.score.breaks, sol.info["bounds_met"]   # doctest: +SKIP
     """
     rules = search_rules if search_rules is not None else SearchRules()

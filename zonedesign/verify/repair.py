@@ -289,21 +289,22 @@ class _Budget:
     def deterministic(self) -> bool:
         return self.work is not None
 
-    def left(self) -> float:
-        """What is left, in the budget's own unit."""
-        if self.deterministic:
-            return self.work - self.used
-        return self.seconds - (time.perf_counter() - self.start)
-
     def wall_left(self) -> float:
         return self.seconds - (time.perf_counter() - self.start)
 
+    def left(self) -> float:
+        """What is left, in the budget's own unit."""
+        return self.work - self.used if self.deterministic else self.wall_left()
+
+    def spent(self) -> bool:
+        return self.left() <= (0.01 if self.deterministic else 0.05) or self.wall_left() <= 0.05
+
     def share(self, fraction: float) -> _Budget:
-        """A child budget of this fraction of what is left (at least a small floor)."""
-        floor = 0.1 if self.deterministic else 0.5
-        work = max(self.left() * fraction, floor) if self.deterministic else None
-        seconds = max(self.wall_left() * (fraction if not self.deterministic else 1.0), 0.5)
-        return _Budget(seconds, work, parent=self)
+        """A child budget of this fraction of what is left (at least a small floor); a
+        deterministic child keeps the whole wall-clock cap."""
+        if self.deterministic:
+            return _Budget(max(self.wall_left(), 0.5), max(self.left() * fraction, 0.1), parent=self)
+        return _Budget(max(self.left() * fraction, 0.5), parent=self)
 
     def limit(self, solver: cp_model.CpSolver, fraction: float = 1.0) -> None:
         """Set the solver's limits to this fraction of what is left."""
@@ -400,7 +401,7 @@ def _repair_cluster(
     # the search grows from the faults outwards; a repair with as few moves as the faults
     # demand is proven fewest at once
     for reach in (1, 2, 4, 8, None):
-        if budget.left() <= (0.01 if budget.deterministic else 0.05) or budget.wall_left() <= 0.05:
+        if budget.spent():
             break
         model = _ClusterModel(ctx, units, reach)
         if model.too_large(max_units):
@@ -487,9 +488,7 @@ class _ClusterModel:
             out[u] = keeps[t][u]
         return list(out.values())
 
-    def solve(
-        self, budget: _Budget, fraction: float = 1.0, hint: list[dict[int, int]] | None = None
-    ) -> tuple[str, list[dict[int, int]] | None, int]:
+    def solve(self, budget: _Budget, fraction: float = 1.0) -> tuple[str, list[dict[int, int]] | None, int]:
         ctx = self.ctx
         T = len(ctx.enc)
         in_cluster = np.zeros(ctx.areas.n, dtype=bool)
@@ -627,15 +626,14 @@ class _ClusterModel:
                 if own is not None and above is not None:
                     m.Add(sum(own) + sum(above) <= len(own) + len(above) - 1)
         m.Maximize(sum(kept))
-        # a hint, or else the labels as they stand: the search starts next to a repair
-        # instead of from nothing, which on one worker decides whether it finds one at all
+        # hint the labels as they stand: the search starts next to a repair instead of
+        # from nothing, which on one worker decides whether it finds one at all
         for t in range(T):
             tu = self.tier_units[t]
             for u, zs in enumerate(cand[t]):
                 if tu.free[u]:
-                    target = tu.old[u] if hint is None else hint[t].get(int(tu.members[u][0]), tu.old[u])
                     for z in zs:
-                        m.AddHint(x[t][u, z], int(z == target))
+                        m.AddHint(x[t][u, z], int(z == tu.old[u]))
 
         solver = cp_model.CpSolver()
         budget.limit(solver, fraction)
