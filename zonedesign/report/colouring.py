@@ -8,12 +8,17 @@ larger than that (a map whose zones meet only along edges is planar: degeneracy 
 five). Among the free fills the least used one is taken, so the palette is spread evenly
 over the map instead of piling onto its first entry. Only a graph of higher degeneracy
 (many zones meeting at one point) gets fills beyond the palette.
+
+Report maps use `colour_by_code`: each zone prefers the fill its code hashes to and zones
+take turns in an order fixed by their codes, so the same zone code gets the same fill in a
+design and in its redraw (pass `keep` to carry a previous run's fills over exactly).
 """
 
 from __future__ import annotations
 
 import colorsys
-from collections.abc import Iterable, Sequence
+import zlib
+from collections.abc import Iterable, Mapping, Sequence
 
 import numpy as np
 import shapely
@@ -151,3 +156,62 @@ def colour_zones(
     if extra_pairs is not None and len(extra_pairs):
         pairs = np.concatenate([pairs, np.asarray(extra_pairs, dtype=np.int64).reshape(-1, 2)])
     return colour_graph(geoms.shape[0], pairs, colours=colours)
+
+
+def _preference(code: str, colours: int) -> tuple[int, int]:
+    """A zone's own fill and its turn, both from its code alone (crc32: same in every run)."""
+    h = zlib.crc32(code.encode("utf-8"))
+    return h % colours, zlib.crc32(code.encode("utf-8"), 0x5EED)
+
+
+def colour_by_code(
+    codes: Sequence[str],
+    pairs: np.ndarray | Iterable[tuple[int, int]],
+    *,
+    keep: Mapping[str, int] | None = None,
+    colours: int = len(PALETTE),
+) -> np.ndarray:
+    """Colour index per zone, chosen from its code, so a zone keeps its fill across runs.
+
+    A design and its redraw colour a kept zone alike: each zone prefers the fill its code
+    hashes to (or its fill in `keep`, e.g. the previous run's colours by code), and zones
+    take their turn in an order fixed by their codes, so a zone's fill depends only on the
+    codes and adjacency around it, never on row order or on far-away changes. A
+    neighbour that took the preferred fill first makes the zone take the next free fill;
+    adjacent zones never share one (past the palette when every fill is taken).
+
+    >>> a = colour_by_code(["A", "B", "C"], [(0, 1), (1, 2)])
+    >>> b = colour_by_code(["C", "A", "B"], [(1, 2), (2, 0)])
+    >>> a.tolist() == [b[1], b[2], b[0]]
+    True
+    """
+    codes = [str(c) for c in codes]
+    n = len(codes)
+    colours = max(int(colours), 1)
+    pairs = np.asarray(list(pairs) if not isinstance(pairs, np.ndarray) else pairs, dtype=np.int64)
+    pairs = pairs.reshape(-1, 2)
+    nbrs: list[set[int]] = [set() for _ in range(n)]
+    for a, b in pairs.tolist():
+        if a != b:
+            nbrs[a].add(b)
+            nbrs[b].add(a)
+    keep = keep or {}
+    prefs = [_preference(c, colours) for c in codes]
+    want = [int(keep[c]) if c in keep else prefs[i][0] for i, c in enumerate(codes)]
+    # kept fills claim first, so a new zone never pushes a kept zone off its fill
+    order = sorted(range(n), key=lambda i: (codes[i] not in keep, prefs[i][1], codes[i]))
+    colour = np.full(n, -1, dtype=np.int64)
+    for v in order:
+        taken = {int(colour[u]) for u in nbrs[v] if colour[u] >= 0}
+        # the next free fill after the preferred one: a choice that looks only at the
+        # neighbours, so a change far away never shifts this zone's fill
+        start = want[v] % colours
+        free = [(start + k) % colours for k in range(colours) if (start + k) % colours not in taken]
+        if want[v] not in taken:
+            c = want[v]
+        elif free:
+            c = free[0]
+        else:
+            c = next(c for c in range(colours, colours + len(taken) + 1) if c not in taken)
+        colour[v] = c
+    return colour

@@ -15,7 +15,7 @@ import pandas as pd
 import shapely
 
 from zonedesign.report import charts
-from zonedesign.report.colouring import PALETTE, colour_zones
+from zonedesign.report.colouring import PALETTE, colour_by_code, zone_neighbours
 from zonedesign.report.format import dicts, get, isnan, natural, num, pct, slug
 from zonedesign.report.style import KIND_STYLE, KIND_WORDS
 from zonedesign.report.svgmap import (
@@ -273,9 +273,9 @@ class ReportPlan:
         geoms = part["geometry"].to_numpy()
         zones = part["zone"].to_numpy()
         frame = frame_for(bounds(geoms))
-        colours = colour_zones(
-            geoms, tolerance=0.5 * frame.unit, extra_pairs=self._pairs(tier, zones)
-        )
+        # fills keyed by zone code: a zone kept by a redraw looks as it did in the design
+        pairs = np.concatenate([zone_neighbours(geoms, tolerance=0.5 * frame.unit), self._pairs(tier, zones)])
+        colours = colour_by_code(zones.tolist(), pairs)
         self.n_colours = max(self.n_colours, int(colours.max()) + 1 if colours.size else 0)
         broken = np.array([(tier, z) in self.problems for z in zones], dtype=bool)
         classes = [
