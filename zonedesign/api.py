@@ -48,6 +48,7 @@ class Prepared:
     links: int
     inputs: list[Path]
     seconds: dict[str, float] = field(default_factory=dict)
+    crs_note: str = ""  # which CRS areas and lengths are measured in, and why
 
 
 @dataclass
@@ -93,7 +94,7 @@ def prepare(
     from zonedesign.graph.build import build_graph
     from zonedesign.graph.components import islands as find_islands
     from zonedesign.graph.links import add_links, read_links
-    from zonedesign.io.read import read_areas, read_table_columns
+    from zonedesign.io.read import read_areas, rule_columns
     from zonedesign.rules import check_rules_against
 
     seconds: dict[str, float] = {}
@@ -105,8 +106,10 @@ def prepare(
     stage = Stages(progress, "preparing", 2)
     stage(f"reading {areas_path}")
     layer = layer or rules.areas.layer
-    columns = read_table_columns(areas_path, layer=layer)[0]
-    check_rules_against(rules, columns, str(areas_path))
+    columns, table_columns = rule_columns(areas_path, rules.areas, layer=layer)
+    check_rules_against(rules, columns, str(areas_path), table_columns)
+    if rules.areas.table is not None:
+        inputs.append(Path(rules.areas.table))
     file = read_areas(areas_path, rules.areas, layer=layer, crs=crs)
     seconds["read"] = time.perf_counter() - t0
     t0 = time.perf_counter()
@@ -139,6 +142,7 @@ def prepare(
         links=n_links,
         inputs=inputs,
         seconds=seconds,
+        crs_note=file.crs_note,
     )
 
 
@@ -282,7 +286,9 @@ def base_summary(prep: Prepared, command: str) -> dict:
         "areas": {
             "count": prep.areas.n,
             "crs": prep.areas.crs,
+            "crs_choice": prep.crs_note,
             "fences": len(set(prep.areas.fence.tolist())),
+            "fence_codes": sorted(set(prep.areas.fence.tolist())),
             "repaired_polygons": list(prep.areas.repaired),
             "notes": prep.notes,
         },

@@ -365,7 +365,7 @@ def _run(args: argparse.Namespace) -> int:
 
 
 def _rules(args: argparse.Namespace) -> int:
-    from zonedesign.io.read import read_table_columns, read_table_sample
+    from zonedesign.io.read import read_table_columns, read_table_sample, rule_columns
     from zonedesign.rules import check_rules_against, load_rules, starter_rules
 
     if args.rules_command == "init":
@@ -376,8 +376,8 @@ def _rules(args: argparse.Namespace) -> int:
     if args.rules_command == "check":
         rules = load_rules(args.rules)
         if args.areas is not None:
-            columns = read_table_columns(args.areas, layer=args.layer or rules.areas.layer)[0]
-            check_rules_against(rules, columns, str(args.areas))
+            columns, table_columns = rule_columns(args.areas, rules.areas, layer=args.layer or rules.areas.layer)
+            check_rules_against(rules, columns, str(args.areas), table_columns)
         tiers = ", ".join(t.name for t in rules.tiers)
         print(f"{args.rules}: ok ({len(rules.tiers)} tiers: {tiers})")
         return 0

@@ -4,8 +4,13 @@
     id = "code"                       # id column
     counts = ["persons", "households"]
     attributes = ["owner_share", "flat_share"]
-    fence = "district"                # optional
+    fence = "district"                # optional; or { column = "code", prefix = 3 } (or suffix)
     weight = "persons"                # optional homogeneity weight column
+    table = "counts.csv"              # optional CSV/Parquet of counts joined on id (path
+                                      # relative to the rules file)
+    prefer = "table"                  # which side wins for a column in both ("table"/"file")
+    work_crs = "EPSG:32618"           # optional projected working CRS (metres)
+    overlaps = "refuse"               # or "cut": each overlap kept by one polygon
 
     [graph]                           # optional
     contiguity = "rook"               # "rook" or "queen"
@@ -60,6 +65,20 @@ class AreasRules:
     weight: str | None = None
     layer: str | None = None
     crs: str | None = None  # stated CRS for files that carry none
+    table: Path | None = None  # counts/attributes joined on `id`
+    prefer: str | None = None  # "table" | "file": the side used for a column in both
+    fence_prefix: int | None = None  # fence code = the first N characters of `fence`
+    fence_suffix: int | None = None  # fence code = the last N characters of `fence`
+    work_crs: str | None = None  # projected CRS areas and lengths are measured in
+    overlaps: str = "refuse"  # "refuse" | "cut"
+
+    @property
+    def row_ids(self) -> bool:
+        """Ids are the row numbers (`id = "@row"`), for files without an id column."""
+        return self.id == ROW_ID
+
+
+ROW_ID = "@row"
 
 
 @dataclass(frozen=True)
@@ -122,7 +141,12 @@ CONTIGUITY = ("rook", "queen")
 HOMOGENEITY = ("ssd", "pairwise")
 COMPACTNESS = ("polsby", "cut")
 BOUND_KEYS = ("min", "max", "target")
-AREAS_KEYS = ("id", "counts", "attributes", "fence", "weight", "layer", "crs")
+AREAS_KEYS = (
+    "id", "counts", "attributes", "fence", "weight", "layer", "crs", "table", "prefer", "work_crs", "overlaps",
+)
+FENCE_KEYS = ("column", "prefix", "suffix")
+PREFER = ("table", "file")
+OVERLAPS = ("refuse", "cut")
 GRAPH_KEYS = ("contiguity", "min_shared_length", "tolerance", "links")
 TIER_KEYS = ("name", "min", "max", "target", "weights", "homogeneity", "compactness")
 SEARCH_KEYS = (
@@ -405,7 +429,7 @@ def _build(data: dict, check: _Check, base_dir: Path | None) -> Rules:
     """Rules records from parsed TOML data, or one RulesError listing every problem."""
     top = check.table(data, (), TOP_KEYS, "the rules file")
     if "areas" in top:
-        areas = _areas(top["areas"], check)
+        areas = _areas(top["areas"], check, base_dir)
     else:
         check.fail(("areas",), "missing [areas] table (id and counts columns)")
         areas = AreasRules(id="", counts=())
@@ -424,21 +448,90 @@ def _raise(problems: list[str]) -> None:
     raise RulesError("\n".join([head, *problems[1:]]), problems=problems)
 
 
-def _areas(value: object, check: _Check) -> AreasRules:
+def _areas(value: object, check: _Check, base_dir: Path | None = None) -> AreasRules:
     path: KeyPath = ("areas",)
     t = check.table(value, path, AREAS_KEYS, "[areas]")
     counts = check.names(t, "counts", path, required=True)
     if "counts" in t and isinstance(t["counts"], list) and not t["counts"]:
         check.fail((*path, "counts"), "empty; name at least one count column")
+    fence, prefix, suffix = _fence(t, check, path)
+    table = check.text(t, "table", path)
+    prefer = check.text(t, "prefer", path, choices=PREFER)
+    if prefer is not None and table is None:
+        check.fail((*path, "prefer"), "only means something with table = \"...\" (a counts table)")
+    work_crs = check.text(t, "work_crs", path)
+    if work_crs is not None:
+        problem = projected_problem(work_crs)
+        if problem:
+            check.fail((*path, "work_crs"), problem)
+    ident = check.text(t, "id", path, required=True) or ""
+    if ident == ROW_ID and table is not None:
+        check.fail((*path, "table"), f'a table is joined on the id column; id = "{ROW_ID}" has none')
     return AreasRules(
-        id=check.text(t, "id", path, required=True) or "",
+        id=ident,
         counts=counts,
         attributes=check.names(t, "attributes", path),
-        fence=check.text(t, "fence", path),
+        fence=fence,
         weight=check.text(t, "weight", path),
         layer=check.text(t, "layer", path),
         crs=check.text(t, "crs", path),
+        table=None if table is None else _relative(table, base_dir),
+        prefer=prefer,
+        fence_prefix=prefix,
+        fence_suffix=suffix,
+        work_crs=work_crs,
+        overlaps=check.text(t, "overlaps", path, choices=OVERLAPS) or "refuse",
     )
+
+
+def _relative(text: str, base_dir: Path | None) -> Path:
+    # absolute, so that the rules written into an output folder still find the table
+    p = Path(text)
+    return (base_dir / p if base_dir is not None and not p.is_absolute() else p).absolute()
+
+
+def _fence(t: dict, check: _Check, path: KeyPath) -> tuple[str | None, int | None, int | None]:
+    """`fence = "column"` or `fence = { column = "code", prefix = N }` (or suffix = N)."""
+    if "fence" not in t or not isinstance(t["fence"], dict):
+        return check.text(t, "fence", path), None, None
+    fpath = (*path, "fence")
+    f = check.table(t["fence"], fpath, FENCE_KEYS, "fence = { column, prefix or suffix }")
+    column = check.text(f, "column", fpath, required=True)
+    cut: dict[str, int] = {}
+    for key in ("prefix", "suffix"):
+        if key in f:
+            n = check.number(f[key], (*fpath, key), at_least=1, whole=True)
+            if n is not None:
+                cut[key] = int(n)
+    if "prefix" in f and "suffix" in f:
+        check.fail((*fpath, "suffix"), "give prefix or suffix, not both")
+    elif not ("prefix" in f or "suffix" in f):
+        check.fail(fpath, 'a fence table needs prefix = N or suffix = N (else write fence = "column")')
+    return column, cut.get("prefix"), cut.get("suffix")
+
+
+def projected_problem(text: str) -> str | None:
+    """Why `text` cannot be a working CRS (not a CRS, geographic, not in metres), or None."""
+    try:
+        from pyproj import CRS
+
+        crs = CRS.from_user_input(text)
+    except Exception as exc:  # noqa: BLE001 - pyproj raises its own CRSError
+        return f"{text!r} is not a CRS pyproj knows ({_first(exc)})"
+    if crs.is_geographic:
+        return (
+            f"{text!r} ({crs.name}) is geographic (degrees); areas and lengths need a projected CRS "
+            "in metres, e.g. the UTM zone of the data"
+        )
+    axes = crs.axis_info
+    if not crs.is_projected or not axes or any(abs(a.unit_conversion_factor - 1.0) > 1e-12 for a in axes):
+        return f"{text!r} ({crs.name}) is not a projected CRS in metres"
+    return None
+
+
+def _first(exc: BaseException) -> str:
+    text = str(exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
 
 
 def _graph(value: object, check: _Check, base_dir: Path | None) -> GraphRules:
@@ -557,24 +650,47 @@ def _num(x: float) -> str:
 # ---------------------------------------------------------------- checks against data
 
 
-def check_rules_against(rules: Rules, columns: Sequence[str], where: str) -> None:
-    """Every column the rules name exists in the areas file `where` (its `columns`)."""
+def check_rules_against(
+    rules: Rules,
+    columns: Sequence[str],
+    where: str,
+    table_columns: Sequence[str] | None = None,
+) -> None:
+    """Every column the rules name exists in the areas file `where` (its `columns`) or,
+    with `[areas] table`, in that table (its `table_columns`)."""
     check = _Check(str(rules.source) if rules.source else "<rules>", _KeyLines(rules.text) if rules.text else None)
+    a = rules.areas
     present = list(columns)
-    wanted: list[tuple[KeyPath, str]] = [(("areas", "id"), rules.areas.id)]
-    wanted += [(("areas", "counts"), c) for c in rules.areas.counts]
-    wanted += [(("areas", "attributes"), c) for c in rules.areas.attributes]
-    if rules.areas.fence is not None:
-        wanted.append((("areas", "fence"), rules.areas.fence))
-    if rules.areas.weight is not None:
-        wanted.append((("areas", "weight"), rules.areas.weight))
+    extra = list(table_columns or [])
+    wanted: list[tuple[KeyPath, str]] = [] if a.row_ids else [(("areas", "id"), a.id)]
+    wanted += [(("areas", "counts"), c) for c in a.counts]
+    wanted += [(("areas", "attributes"), c) for c in a.attributes]
+    if a.fence is not None:
+        wanted.append((("areas", "fence"), a.fence))
+    if a.weight is not None:
+        wanted.append((("areas", "weight"), a.weight))
+    table = a.table.name if a.table is not None else None
+    if table is not None and a.id not in extra and not a.row_ids:
+        check.fail(("areas", "table"), f"the id column {a.id!r} is not in {table}, so it cannot be joined")
     for path, col in wanted:
-        if col in present:
+        if path == ("areas", "id") or (col == a.id and not a.row_ids):
+            found = col in present  # the id (also as a fence) always comes from the areas file
+        else:
+            found = col in present or col in extra
+            if table is not None and col in present and col in extra and a.prefer is None:
+                check.fail(
+                    ("areas", "table"),
+                    f"column {col!r} is in both {where} and {table}; say which to use with "
+                    'prefer = "table" or prefer = "file"',
+                )
+        if found:
             continue
-        lower = {c.lower(): c for c in present}
-        near = lower.get(col.lower()) or next(iter(difflib.get_close_matches(col, present, 1)), None)
+        pool = present + extra
+        lower = {c.lower(): c for c in pool}
+        near = lower.get(col.lower()) or next(iter(difflib.get_close_matches(col, pool, 1)), None)
         hint = f"; did you mean {near!r}?" if near else ""
-        check.fail(path, f"column {col!r} is not in {where}{hint}")
+        also = f" nor in {table}" if table is not None and path != ("areas", "id") else ""
+        check.fail(path, f"column {col!r} is not in {where}{also}{hint}")
     _raise(check.problems)
 
 
@@ -600,9 +716,14 @@ def _rules_data(rules: Rules) -> dict:
     """The rules as the plain tables a TOML file holds, defaults written out."""
     a = rules.areas
     areas: dict[str, object] = {"id": a.id, "counts": list(a.counts), "attributes": list(a.attributes)}
-    for key in ("fence", "weight", "layer", "crs"):
+    for key in ("fence", "weight", "layer", "crs", "table", "prefer", "work_crs"):
         if getattr(a, key) is not None:
-            areas[key] = getattr(a, key)
+            areas[key] = str(getattr(a, key))
+    for key in ("prefix", "suffix"):
+        if getattr(a, f"fence_{key}") is not None:
+            areas["fence"] = {"column": a.fence, key: getattr(a, f"fence_{key}")}
+    if a.overlaps != "refuse":
+        areas["overlaps"] = a.overlaps
     g = rules.graph
     graph: dict[str, object] = {
         "contiguity": g.contiguity,

@@ -198,6 +198,28 @@ def fence_codes(values: pd.Series, column: str, where: str, labels: RowLabels) -
     return codes, []
 
 
+def cut_codes(
+    codes: np.ndarray, column: str, where: str, labels: RowLabels, *, prefix: int | None, suffix: int | None
+) -> tuple[np.ndarray, list[str]]:
+    """Fence codes cut from a longer code: its first `prefix` or last `suffix` characters.
+
+    A code shorter than the cut is an error rather than a fence of its own: it almost
+    always means a lost leading zero or a wrong column.
+    """
+    n = prefix or suffix or 0
+    text = [str(c) for c in codes.tolist()]
+    short = np.array([len(c) < n for c in text], dtype=bool)
+    if short.any():
+        rows = np.flatnonzero(short)
+        side = "prefix" if prefix else "suffix"
+        return codes, [
+            f"{where}: fence column {column!r}, {rows_text(labels, rows)}: shorter than the {side} of {n} "
+            f"characters {values_text(codes[rows])}"
+        ]
+    cut = [c[:n] for c in text] if prefix else [c[-n:] for c in text]
+    return np.array(cut, dtype=object), []
+
+
 # ---------------------------------------------------------------- geometry
 
 

@@ -588,6 +588,13 @@ def _certificate(run: ReportPlan) -> str:
     return "".join(out)
 
 
+def _codes_text(codes: object) -> str | None:
+    if not isinstance(codes, list) or not codes or codes == ["all"]:
+        return None
+    shown = ", ".join(map(str, codes[:40]))
+    return shown + (f" and {len(codes) - 40:,} more" if len(codes) > 40 else "")
+
+
 def _input(run: ReportPlan) -> str:
     s = run.summary
     out = []
@@ -598,7 +605,9 @@ def _input(run: ReportPlan) -> str:
         ("Input files", ", ".join(map(str, s.get("inputs") or [])) if s.get("inputs") else None),
         ("Areas", num(areas.get("count")) if "count" in areas else None),
         ("Coordinate reference system", areas.get("crs")),
+        ("Why this CRS", areas.get("crs_choice")),
         ("Fences", num(areas.get("fences")) if "fences" in areas else None),
+        ("Fence codes", _codes_text(areas.get("fence_codes"))),
         ("Contiguity", graph.get("contiguity")),
         ("Neighbour pairs", num(graph.get("edges")) if "edges" in graph else None),
         ("Declared links", num(graph.get("links")) if "links" in graph else None),

@@ -1,0 +1,276 @@
+"""What an agency's real inputs need: counts from a separate table, fences coded inside the
+area id, a stated working CRS, mended overlaps, per-fence bounds and locked zones.
+
+Each rule is tried on a small invented case whose right answer is known by construction,
+and on open data (Debian's r-cran-spdata shapefiles) where the issue names one. Every bad
+form of a key is exit 2 with one line that says what is wrong and where.
+"""
+
+from __future__ import annotations
+
+import warnings
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pytest
+import shapely
+
+from zonedesign.cli import main
+from zonedesign.errors import InputError, RulesError
+from zonedesign.io.read import match_ids, read_areas
+from zonedesign.rules import load_rules, parse_rules
+
+UTM = "EPSG:32633"
+
+
+def squares(n: int) -> list[shapely.Polygon]:
+    return [shapely.box(x, 0, x + 1, 1) for x in range(n)]
+
+
+def write_gpkg(gdf: gpd.GeoDataFrame, path: Path) -> Path:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # a file without a CRS warns
+        pyogrio.write_dataframe(gdf, path, driver="GPKG" if path.suffix == ".gpkg" else None)
+    return path
+
+
+def boundaries(tmp_path: Path, ids: list, crs: str | None = UTM, **cols: list) -> Path:
+    """A boundary file of unit squares in a row: ids and the given columns only."""
+    gdf = gpd.GeoDataFrame({"code": ids, **cols}, geometry=squares(len(ids)), crs=crs)
+    return write_gpkg(gdf, tmp_path / "areas.gpkg")
+
+
+def rules_file(tmp_path: Path, areas: str, tiers: str = "") -> Path:
+    tiers = tiers or '[[tier]]\nname = "tier1"\nmin = { persons = 1 }\n'
+    path = tmp_path / "rules.toml"
+    path.write_text(f"[areas]\n{areas}\n\n{tiers}\n[search]\nmethod = \"descent\"\nconstructions = 1\n")
+    return path
+
+
+def one_line_exit_2(argv: list[str], capsys: pytest.CaptureFixture) -> str:
+    code = main(argv)
+    err = capsys.readouterr().err.strip()
+    assert code == 2, err
+    assert len(err.splitlines()) == 1, err
+    return err
+
+
+def design_argv(areas: Path, rules: Path, out: Path) -> list[str]:
+    return ["design", str(areas), "--rules", str(rules), "--out", str(out), "--quiet", "--no-report", "--no-certificate"]
+
+
+# ---------------------------------------------------------------- counts table
+
+
+def test_counts_come_from_the_table_matched_by_id_with_leading_zeros_kept(tmp_path):
+    areas = boundaries(tmp_path, ["007", "070", "700", "0700"])
+    # rows in another order than the file, ids as text with leading zeros
+    (tmp_path / "counts.csv").write_text("code,persons\n0700,4\n700,3\n007,1\n070,2\n")
+    rules = load_rules(rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\ntable = "counts.csv"'))
+    file = read_areas(areas, rules.areas)
+    # '007' and '0700' are ids of their own: compared as text, never as the numbers 7 and 700
+    assert file.areas.ids.tolist() == ["007", "070", "700", "0700"]
+    assert file.areas.counts[:, 0].tolist() == [1.0, 2.0, 3.0, 4.0]
+
+
+def test_ids_stored_as_numbers_on_one_side_match_text_ids_with_leading_zeros(tmp_path):
+    # a shapefile-style integer id column loses the leading zeros a census CSV keeps
+    areas = boundaries(tmp_path, [1001, 1003, 2005])
+    (tmp_path / "counts.csv").write_text("code,persons\n02005,30\n01001,10\n01003,20\n")
+    rules = load_rules(rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\ntable = "counts.csv"'))
+    file = read_areas(areas, rules.areas)
+    assert file.areas.counts[:, 0].tolist() == [10.0, 20.0, 30.0]
+    assert any("leading zeros" in n for n in file.notes)
+
+
+def test_text_ids_that_differ_only_in_leading_zeros_are_not_matched():
+    rows, zero = match_ids(np.array(["01", "2"], dtype=object), np.array(["1", "2"], dtype=object), tolerant=False)
+    assert rows.tolist() == [-1, 1] and zero == 0
+    # when one side stored numbers, the one unpartnered id reading the same is the partner
+    rows, zero = match_ids(np.array(["1", "2"], dtype=object), np.array(["02", "01"], dtype=object), tolerant=True)
+    assert rows.tolist() == [1, 0] and zero == 2
+
+
+def test_table_missing_ids_lists_the_first_ten_and_a_count(tmp_path, capsys):
+    ids = [f"A{k:02d}" for k in range(15)]
+    areas = boundaries(tmp_path, ids)
+    (tmp_path / "counts.csv").write_text("code,persons\nA00,5\nA01,6\nZ99,1\n")
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\ntable = "counts.csv"')
+    with pytest.raises(InputError) as info:
+        read_areas(areas, load_rules(rules).areas)
+    text = str(info.value)
+    assert "13 area id(s) have no row in counts.csv" in text
+    assert "'A02'" in text and "'A11'" in text and "'A12'" not in text  # the first 10 shown
+    assert "(first 10 of 13)" in text
+    assert "counts.csv: 1 id(s) match no area in areas.gpkg: 'Z99'" in text
+    err = one_line_exit_2(design_argv(areas, rules, tmp_path / "out"), capsys)
+    assert "counts.csv" in err and "no row" in err
+
+
+def test_table_faults_name_the_table_and_the_row(tmp_path, capsys):
+    areas = boundaries(tmp_path, ["A", "B", "C"])
+    (tmp_path / "counts.csv").write_text("code,persons\nA,5\nB,x\nC,7\nC,8\n")
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\ntable = "counts.csv"')
+    with pytest.raises(InputError) as info:
+        read_areas(areas, load_rules(rules).areas)
+    problems = info.value.problems
+    assert any("counts.csv: column 'code': 1 duplicate id(s): 'C' (rows 3, 4)" in p for p in problems)
+    assert any("counts.csv: column 'persons', row 'B': not a number ('x')" in p for p in problems)
+    one_line_exit_2(design_argv(areas, rules, tmp_path / "out"), capsys)
+
+
+def test_a_column_in_both_files_needs_prefer(tmp_path, capsys):
+    areas = boundaries(tmp_path, ["A", "B"], persons=[1, 2])
+    (tmp_path / "counts.csv").write_text("code,persons\nA,10\nB,20\n")
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\ntable = "counts.csv"')
+    err = one_line_exit_2(["rules", "check", str(rules), str(areas)], capsys)
+    # located at the table key's line (line 4 of the rules file)
+    assert "rules.toml:4: areas.table: column 'persons' is in both" in err and "prefer" in err
+    for prefer, expected in (("table", [10.0, 20.0]), ("file", [1.0, 2.0])):
+        text = f'id = "code"\ncounts = ["persons"]\ntable = "counts.csv"\nprefer = "{prefer}"'
+        file = read_areas(areas, load_rules(rules_file(tmp_path, text)).areas)
+        assert file.areas.counts[:, 0].tolist() == expected
+
+
+@pytest.mark.parametrize(
+    "areas_text, message",
+    [
+        ('id = "code"\ncounts = ["persons"]\ntable = 3', "areas.table: expected a non-empty text"),
+        ('id = "code"\ncounts = ["persons"]\ntable = "nope.csv"', "nope.csv: counts table not found"),
+        ('id = "code"\ncounts = ["persons"]\nprefer = "table"', "areas.prefer: only means something with table"),
+        ('id = "code"\ncounts = ["persons"]\ntable = "counts.csv"\nprefer = "mine"', "areas.prefer: 'mine' is not one of"),
+        ('id = "code"\ncounts = ["persons"]\ntable = "counts.txt"', "a counts table must be .csv or .parquet"),
+        ('id = "code"\ncounts = ["persons", "flats"]\ntable = "counts.csv"', "column 'flats' is not in"),
+    ],
+)
+def test_bad_table_keys_are_exit_2_with_one_line(tmp_path, capsys, areas_text, message):
+    areas = boundaries(tmp_path, ["A", "B"])
+    (tmp_path / "counts.csv").write_text("code,persons\nA,10\nB,20\n")
+    (tmp_path / "counts.txt").write_text("code,persons\nA,10\nB,20\n")
+    rules = rules_file(tmp_path, areas_text)
+    err = one_line_exit_2(["rules", "check", str(rules), str(areas)], capsys)
+    assert message in err
+
+
+def test_a_table_without_the_id_column_cannot_be_joined(tmp_path, capsys):
+    areas = boundaries(tmp_path, ["A", "B"])
+    (tmp_path / "counts.csv").write_text("key,persons\nA,10\nB,20\n")
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\ntable = "counts.csv"')
+    err = one_line_exit_2(["rules", "check", str(rules), str(areas)], capsys)
+    assert "the id column 'code' is not in counts.csv" in err
+
+
+# ---------------------------------------------------------------- fence from an id
+
+
+def test_fence_codes_cut_from_the_id_prefix_or_suffix(tmp_path):
+    areas = boundaries(tmp_path, ["N01-a", "N01-b", "S02-a", "S02-b"], persons=[1, 2, 3, 4])
+    for cut, expected in (("prefix = 3", ["N01", "N01", "S02", "S02"]), ("suffix = 1", ["a", "b", "a", "b"])):
+        text = f'id = "code"\ncounts = ["persons"]\nfence = {{ column = "code", {cut} }}'
+        file = read_areas(areas, load_rules(rules_file(tmp_path, text)).areas)
+        assert file.areas.fence.tolist() == expected
+        assert any("fence codes are the" in n for n in file.notes)
+
+
+def test_fence_prefix_longer_than_an_id_is_exit_2_naming_the_row(tmp_path, capsys):
+    areas = boundaries(tmp_path, ["N01-a", "N1", "S02-a"], persons=[1, 2, 3])
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nfence = { column = "code", prefix = 3 }')
+    err = one_line_exit_2(design_argv(areas, rules, tmp_path / "out"), capsys)
+    assert "fence column 'code', row 'N1': shorter than the prefix of 3 characters" in err
+
+
+@pytest.mark.parametrize(
+    "fence, message",
+    [
+        ('{ column = "code", prefix = "3" }', "areas.fence.prefix: expected a whole number"),
+        ('{ column = "code", prefix = 0 }', "areas.fence.prefix: must be at least 1"),
+        ('{ column = "code", prefix = 2.5 }', "areas.fence.prefix: expected a whole number"),
+        ('{ column = "code", prefix = 2, suffix = 1 }', "areas.fence.suffix: give prefix or suffix, not both"),
+        ('{ column = "code" }', "areas.fence: a fence table needs prefix = N or suffix = N"),
+        ('{ prefix = 2 }', "areas.fence.column: missing"),
+        ('{ column = "code", start = 2 }', "areas.fence.start: unknown key"),
+        ("4", "areas.fence: expected a non-empty text"),
+    ],
+)
+def test_bad_fence_forms_are_rules_errors_with_their_line(fence, message):
+    text = f'[areas]\nid = "code"\ncounts = ["persons"]\nfence = {fence}\n\n[[tier]]\nname = "tier1"\n'
+    with pytest.raises(RulesError) as info:
+        parse_rules(text, "r.toml")
+    assert f"r.toml:4: {message}" in str(info.value)
+
+
+@pytest.mark.opendata
+def test_ny8_counts_from_a_csv_and_county_from_the_areakey_prefix_give_the_county_column_lookup(spdata_dir, tmp_path):
+    from zonedesign.api import prepare
+    from zonedesign.hierarchy import build_hierarchy
+
+    # NY8 tracts (open data: r-cran-spdata NY8_utm18.shp); the first five digits of the
+    # 11-digit AREAKEY are the county (state 36 + county code), as the US census codes tracts
+    raw = gpd.read_file(spdata_dir / "NY8_utm18.shp")
+    raw["county"] = raw["AREAKEY"].astype(str).str[:5]
+    with_counts = raw[["AREAKEY", "county", "POP8", "PCTOWNHOME", "geometry"]]
+    write_gpkg(with_counts, tmp_path / "ny8_counts.gpkg")
+    write_gpkg(raw[["AREAKEY", "geometry"]], tmp_path / "ny8.gpkg")
+    # the counts moved into a CSV, in another row order
+    raw[["AREAKEY", "POP8", "PCTOWNHOME"]].iloc[::-1].to_csv(tmp_path / "ny8.csv", index=False)
+    tier = '[[tier]]\nname = "tier1"\nmin = { POP8 = 8000 }\nmax = { POP8 = 20000 }\ntarget = { POP8 = 12000 }\n'
+    # descent ends when no move helps; the time limit is a safety cap that a cold numba
+    # compile must not reach, so both runs do the same work
+    search = '[search]\nmethod = "descent"\nseed = 3\nconstructions = 1\ntime_limit_fence = 600.0\n'
+    column = parse_rules(
+        f'[areas]\nid = "AREAKEY"\ncounts = ["POP8"]\nattributes = ["PCTOWNHOME"]\nfence = "county"\n\n{tier}\n{search}'
+    )
+    derived = parse_rules(
+        '[areas]\nid = "AREAKEY"\ncounts = ["POP8"]\nattributes = ["PCTOWNHOME"]\ntable = "ny8.csv"\n'
+        f'fence = {{ column = "AREAKEY", prefix = 5 }}\n\n{tier}\n{search}',
+        "ny8.toml",
+        base_dir=tmp_path,
+    )
+    a = prepare(tmp_path / "ny8_counts.gpkg", column)
+    b = prepare(tmp_path / "ny8.gpkg", derived)
+    assert b.areas.ids.tolist() == a.areas.ids.tolist()
+    assert b.areas.fence.tolist() == a.areas.fence.tolist()
+    # eight counties (r-cran-spdata's NY8: tracts of eight New York counties)
+    assert len(set(b.areas.fence.tolist())) == 8
+    np.testing.assert_array_equal(b.areas.counts, a.areas.counts)
+    assert b.areas.counts[:, 0].sum() == raw["POP8"].sum()  # pandas total of the open data
+    assert np.array_equal(b.graph.indptr, a.graph.indptr) and np.array_equal(b.graph.indices, a.graph.indices)
+    first = build_hierarchy(a.areas, a.graph, column).lookup()
+    second = build_hierarchy(b.areas, b.graph, derived).lookup()
+    assert first["tier1"].tolist() == second["tier1"].tolist()
+
+
+def test_a_redraw_takes_new_counts_from_a_table_against_the_same_boundary_file(tmp_path, capsys):
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from cli_support import RULES, region
+
+    gdf = region()
+    write_gpkg(gdf[["id", "fence", "geometry"]], tmp_path / "areas.gpkg")
+    counts = pd.DataFrame(gdf.drop(columns=["geometry", "fence"]))
+    counts.to_csv(tmp_path / "counts.csv", index=False)
+    later = counts.copy()
+    shocked = (gdf["fence"] == "F1").to_numpy()
+    later.loc[shocked, ["households", "persons"]] *= 2  # a count shock in one fence
+    later.to_csv(tmp_path / "later.csv", index=False)
+    for name, table in (("rules.toml", "counts.csv"), ("later.toml", "later.csv")):
+        (tmp_path / name).write_text(RULES.replace('fence = "fence"', f'fence = "fence"\ntable = "{table}"'))
+    first, second = tmp_path / "first", tmp_path / "second"
+    opts = ["--quiet", "--no-report", "--no-certificate"]
+    assert main(["design", str(tmp_path / "areas.gpkg"), "--rules", str(tmp_path / "rules.toml"),
+                 "--out", str(first), *opts]) in (0, 1)
+    code = main(["redraw", str(tmp_path / "areas.gpkg"), "--rules", str(tmp_path / "later.toml"),
+                 "--previous", str(first / "lookup.csv"), "--out", str(second), *opts])
+    assert code in (0, 1), capsys.readouterr().err
+    lookup = pd.read_csv(second / "lookup.csv", dtype=str)
+    zones = gpd.read_file(second / "zones.gpkg", layer="block")
+    # the zone totals are the later table's counts summed by pandas over the redrawn lookup
+    merged = lookup.merge(later.astype({"id": str}), left_on="area", right_on="id")
+    expected = merged.groupby("block")["households"].sum()
+    got = zones.set_index("zone")["households"]
+    assert got.sort_index().to_dict() == pytest.approx(expected.sort_index().astype(float).to_dict())
+    assert merged["households"].sum() == later["households"].sum()
