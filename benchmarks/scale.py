@@ -43,8 +43,17 @@ GOAL_GROWTH = 12.0
 GOAL_RSS_GB = 4.0
 AREAS_PER_FENCE = 2000
 
-RULES = """\
-# three tiers of the demo's census-practice bounds (Cockings et al. 2011)
+def _demo_tiers() -> str:
+    """The demo's three [[tier]] tables (its invented bounds and targets), without weights."""
+    from zonedesign.scenarios import demo_rules_text
+
+    text = demo_rules_text()
+    tiers = text[text.index("[[tier]]"):text.index("[search]")]
+    return "".join(line + "\n" for line in tiers.splitlines() if not line.startswith("weights"))
+
+
+RULES = f"""\
+# three tiers with the demo's invented bounds and default weights
 [areas]
 id = "id"
 counts = ["households", "persons"]
@@ -52,25 +61,7 @@ attributes = ["attr_a", "attr_b"]
 fence = "fence"
 weight = "persons"
 
-[[tier]]
-name = "block"
-min = { households = 40, persons = 100 }
-max = { households = 250, persons = 625 }
-target = { households = 125 }
-
-[[tier]]
-name = "ward"
-min = { households = 400, persons = 1000 }
-max = { households = 1200, persons = 3000 }
-target = { households = 800 }
-
-[[tier]]
-name = "sector"
-min = { households = 2000, persons = 5000 }
-max = { households = 6000, persons = 15000 }
-target = { households = 4000 }
-
-[search]
+{_demo_tiers()}[search]
 method = "annealing"
 seed = 1
 """

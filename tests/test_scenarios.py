@@ -1,8 +1,9 @@
 """The invented demo region: reproducible, clean, with districts, islands, a ferry and
 counts that fit the three tiers of its rules.
 
-Threshold values: Cockings, Harfoot, Martin & Hornby 2011 (Environment and Planning A 43),
-finest tier 40-250 households and 100-625 persons, target 125 households.
+The rules' bounds are invented; what the tests hold them to is the shape of output-zone
+design (Cockings, Harfoot, Martin & Hornby 2011, Environment and Planning A 43): per tier a
+floor on households and on persons, a ceiling a few times the floor and a target between.
 """
 
 from __future__ import annotations
@@ -94,22 +95,28 @@ def test_two_islands_are_reported_and_ferries_join_both(demo, tmp_path):
     assert islands(add_links(rook, i, j), fence, gdf.geometry, ids) == []
 
 
+def _demo_tiers() -> list[dict]:
+    return tomllib.loads(demo_rules_text())["tier"]
+
+
 def test_counts_fit_the_three_tiers(demo):
     gdf, _ = demo
+    small, _, large = _demo_tiers()
     hh = gdf["households"].to_numpy()
     persons = gdf["persons"].to_numpy()
     ratio = persons / hh
     assert (hh >= 1).all() and ratio.min() >= 1.9 and ratio.max() <= 2.9
-    # no single area breaks the finest ceiling (Cockings et al. 2011: 250 households, 625 persons)
-    assert hh.max() <= 250 and persons.max() <= 625
+    # no single area breaks the finest tier's ceiling, so every area fits some zone
+    assert hh.max() <= small["max"]["households"] and persons.max() <= small["max"]["persons"]
     # town areas hold a few dozen households, countryside areas fewer
     town = gdf["town"].notna().to_numpy()
     assert 20 <= np.median(hh[town]) <= 60 and np.median(hh[~town]) < np.median(hh[town])
     by_district = gdf.groupby("district")[["households", "persons"]].sum()
-    # every district holds at least one upper-tier zone (2,000 households, 5,000 persons)
-    assert (by_district["households"] >= 2000).all() and (by_district["persons"] >= 5000).all()
-    # and the region as a whole about 125-household blocks by the hundred
-    assert hh.sum() / 125 > 500
+    # every district holds at least one zone of the top tier
+    assert (by_district["households"] >= large["min"]["households"]).all()
+    assert (by_district["persons"] >= large["min"]["persons"]).all()
+    # and the region as a whole holds finest-tier zones by the hundred
+    assert hh.sum() / small["target"]["households"] > 500
 
 
 def test_towns_have_more_flats_and_fewer_owners(demo):
@@ -159,18 +166,37 @@ def test_rules_text_is_the_shipped_file_and_states_the_three_tiers():
         "weight": "persons",
     }
     assert rules["graph"]["links"] == "links.csv"
-    tiers = {t["name"]: t for t in rules["tier"]}
-    assert list(tiers) == ["block", "ward", "sector"]
-    # Cockings, Harfoot, Martin & Hornby 2011: the finest tier's thresholds
-    assert tiers["block"]["min"] == {"households": 40, "persons": 100}
-    assert tiers["block"]["max"] == {"households": 250, "persons": 625}
-    assert tiers["block"]["target"] == {"households": 125}
-    assert (tiers["ward"]["min"], tiers["ward"]["max"]) == (
-        {"households": 400, "persons": 1000}, {"households": 1200, "persons": 3000})
-    assert (tiers["sector"]["min"], tiers["sector"]["max"]) == (
-        {"households": 2000, "persons": 5000}, {"households": 6000, "persons": 15000})
-    assert [t["target"]["households"] for t in rules["tier"]] == [125, 800, 4000]
+    tiers = rules["tier"]
+    assert [t["name"] for t in tiers] == ["small", "medium", "large"]
+    for t in tiers:
+        # a floor and a ceiling on households and persons, the target between them
+        # (the shape of output-zone design, Cockings et al. 2011)
+        assert set(t["min"]) == set(t["max"]) == {"households", "persons"}
+        assert t["min"]["households"] < t["target"]["households"] < t["max"]["households"]
+        # the ceiling about five to six times the floor
+        for count in ("households", "persons"):
+            assert 5.0 <= t["max"][count] / t["min"][count] <= 6.0, (t["name"], count)
+        # persons bounds sit near 2-2.8 persons per household, so both counts matter
+        assert 2.0 <= t["min"]["persons"] / t["min"]["households"] <= 2.8
+        assert 2.0 <= t["max"]["persons"] / t["max"]["households"] <= 2.8
+    # each tier groups several zones of the tier below
+    targets = [t["target"]["households"] for t in tiers]
+    assert all(hi >= 3 * lo for lo, hi in zip(targets, targets[1:]))
     assert rules["search"] == {"method": "annealing", "seed": 1}
+
+
+# from memory: floors and ceilings of one national office's three small-area geographies
+# (the finest 40-250 households and 100-625 persons, target 125); names of geography types
+# that real systems use. The demo must read as a region of its own, not a copy of either.
+_PUBLISHED = {(40, 250), (100, 625), (400, 1200), (1000, 3000), (2000, 6000), (5000, 15000)}
+_REAL_TYPE_NAMES = {"block", "ward", "sector", "quarter", "tract", "district", "output area", "county"}
+
+
+def test_demo_rules_are_our_own_not_a_published_table():
+    for t in _demo_tiers():
+        assert t["name"] not in _REAL_TYPE_NAMES
+        for count in ("households", "persons"):
+            assert (t["min"][count], t["max"][count]) not in _PUBLISHED
 
 
 def test_demo_input_is_byte_identical_for_a_seed(tmp_path):

@@ -48,7 +48,7 @@ EXAMPLES = {
         example (on the demo region):
           zonedesign demo --out demo-out
           zonedesign sweep demo-out/input/areas.gpkg --rules demo-out/input/rules.toml \\
-              --vary tier.1.min.households=30,40,50 --vary tier.1.target.households=100,125 --out sweep-out
+              --vary tier.1.min.households=40,50,60 --vary tier.1.target.households=120,140 --out sweep-out
         """,
     "demo": """\
         example:

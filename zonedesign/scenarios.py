@@ -35,7 +35,10 @@ _ENDINGS = ("amere", "ovale", "enholt", "askeld", "orrin", "ethwy", "umbry", "id
 
 RULES_TEXT = """\
 # Rules for the demo region: three nested tiers of statistical zones inside districts.
-# Bounds follow census output-zone practice (Cockings, Harfoot, Martin & Hornby 2011).
+# The bounds are invented for this invented region, in the manner of output-zone design
+# (a floor on households and persons that protects confidentiality, a ceiling about five
+# to six times the floor, a target in between); they are not any office's thresholds.
+# Set real bounds from your own disclosure-control rules.
 # Stability only counts in a redraw: it prices every area that leaves its previous zone,
 # set high so that zones still within their bounds stay as they were.
 
@@ -51,24 +54,24 @@ contiguity = "rook"
 links = "links.csv"
 
 [[tier]]
-name = "block"
-min = { households = 40, persons = 100 }
-max = { households = 250, persons = 625 }
-target = { households = 125 }
+name = "small"
+min = { households = 50, persons = 120 }
+max = { households = 280, persons = 700 }
+target = { households = 140 }
 weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 20.0 }
 
 [[tier]]
-name = "ward"
+name = "medium"
 min = { households = 400, persons = 1000 }
-max = { households = 1200, persons = 3000 }
-target = { households = 800 }
+max = { households = 2200, persons = 5500 }
+target = { households = 1000 }
 weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 20.0 }
 
 [[tier]]
-name = "sector"
-min = { households = 2000, persons = 5000 }
-max = { households = 6000, persons = 15000 }
-target = { households = 4000 }
+name = "large"
+min = { households = 2000, persons = 4800 }
+max = { households = 11000, persons = 27000 }
+target = { households = 4500 }
 weights = { size = 1.0, homogeneity = 0.5, compactness = 1.0, stability = 20.0 }
 
 [search]
@@ -477,7 +480,7 @@ def later_counts(gdf: gpd.GeoDataFrame, seed: int = 11) -> gpd.GeoDataFrame:
 def demo_links(gdf: gpd.GeoDataFrame | None = None, *, seed: int = 7, n: int = 5000) -> pd.DataFrame:
     """The ferries: one link from each island to the nearest area of its district.
 
-    Neither island holds enough households for a ward on its own, so, as a statistician
+    Neither island holds enough households for a zone of the middle tier on its own, so, as a statistician
     would, the demo links both rather than publish zones that break a floor; the summary
     still lists them as islands found before the links.
     """

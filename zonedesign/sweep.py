@@ -1,7 +1,7 @@
 """Sweep threshold rules: one design (or redraw) per combination of varied rule values.
 
 `--vary KEY=V1,V2,...` keys are those of `rules.apply_override`, e.g.
-`tier.1.min.households=30,40,50` (tiers counted from 1 at the bottom, or by name).
+`tier.1.min.households=40,50,60` (tiers counted from 1 at the bottom, or by name).
 Variants are independent tasks, so they run through the same executors as fences.
 """
 
