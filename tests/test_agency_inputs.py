@@ -274,3 +274,158 @@ def test_a_redraw_takes_new_counts_from_a_table_against_the_same_boundary_file(t
     got = zones.set_index("zone")["households"]
     assert got.sort_index().to_dict() == pytest.approx(expected.sort_index().astype(float).to_dict())
     assert merged["households"].sum() == later["households"].sum()
+
+
+# ---------------------------------------------------------------- working CRS
+
+
+def test_work_crs_reprojects_a_geographic_file_and_says_why(tmp_path):
+    # squares of 0.01 degree near 15 E, 50 N (UTM zone 33 north)
+    geoms = [shapely.box(15 + 0.01 * k, 50, 15.01 + 0.01 * k, 50.01) for k in range(3)]
+    gdf = gpd.GeoDataFrame({"code": ["A", "B", "C"], "persons": [1, 2, 3]}, geometry=geoms, crs="EPSG:4326")
+    areas = write_gpkg(gdf, tmp_path / "areas.gpkg")
+    rules = load_rules(rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nwork_crs = "EPSG:3035"'))
+    file = read_areas(areas, rules.areas)
+    assert file.areas.crs == "EPSG:3035"  # the stated CRS, not the UTM zone chosen by default
+    assert "the stated work_crs" in file.crs_note
+    # geopandas/pyproj (reference libraries) measure the same areas in that CRS
+    expected = gdf.to_crs("EPSG:3035").area.to_numpy()
+    np.testing.assert_allclose(file.areas.area, expected, rtol=1e-9)
+
+
+def test_the_summary_says_which_crs_was_chosen(tmp_path):
+    from zonedesign.api import base_summary, prepare
+
+    geoms = [shapely.box(15 + 0.01 * k, 50, 15.01 + 0.01 * k, 50.01) for k in range(3)]
+    gdf = gpd.GeoDataFrame({"code": ["A", "B", "C"], "persons": [1, 2, 3]}, geometry=geoms, crs="EPSG:4326")
+    areas = write_gpkg(gdf, tmp_path / "areas.gpkg")
+    default = base_summary(prepare(areas, rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]')), "design")
+    # common practice: the UTM zone of the data's centre (zone 33 north at 15 E)
+    assert default["areas"]["crs"] == "EPSG:32633"
+    assert "UTM zone of the data's centre" in default["areas"]["crs_choice"]
+    stated = prepare(areas, rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nwork_crs = "EPSG:3035"'))
+    assert "stated work_crs" in base_summary(stated, "design")["areas"]["crs_choice"]
+
+
+@pytest.mark.parametrize(
+    "value, message",
+    [
+        ('"EPSG:4326"', "areas.work_crs: 'EPSG:4326' (WGS 84) is geographic (degrees)"),
+        ('"EPSG:999999"', "areas.work_crs: 'EPSG:999999' is not a CRS pyproj knows"),
+        ("32633", "areas.work_crs: expected a non-empty text"),
+        ('"EPSG:2249"', "areas.work_crs: 'EPSG:2249' (NAD83 / Massachusetts Mainland (ftUS)) is not a projected CRS in metres"),
+    ],
+)
+def test_a_work_crs_that_is_not_projected_metres_is_exit_2(tmp_path, capsys, value, message):
+    rules = rules_file(tmp_path, f'id = "code"\ncounts = ["persons"]\nwork_crs = {value}')
+    err = one_line_exit_2(["rules", "check", str(rules)], capsys)
+    assert f"rules.toml:4: {message}" in err  # [areas] is line 1
+
+
+# ---------------------------------------------------------------- overlaps and duplicates
+
+
+def test_overlaps_cut_keeps_each_overlap_in_the_polygon_it_is_the_larger_share_of(tmp_path):
+    # A [0,1] and B [0.5,2] share [0.5,1]: half of A, a third of B, so A keeps it
+    # C [3,4] and D [3.5,4.5] share half of each: a tie, kept by the smaller id C
+    geoms = [shapely.box(0, 0, 1, 1), shapely.box(0.5, 0, 2, 1), shapely.box(3, 0, 4, 1), shapely.box(3.5, 0, 4.5, 1)]
+    gdf = gpd.GeoDataFrame({"code": ["A", "B", "C", "D"], "persons": [1, 2, 3, 4]}, geometry=geoms, crs=UTM)
+    areas = write_gpkg(gdf, tmp_path / "areas.gpkg")
+    refused = load_rules(rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]'))
+    with pytest.raises(InputError, match=r"2 overlapping pair\(s\) of polygons: 'A' and 'B' \(0.5 m2\)"):
+        read_areas(areas, refused.areas)
+    rules = load_rules(rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\noverlaps = "cut"'))
+    file = read_areas(areas, rules.areas)
+    # shapely (reference library): the areas left are those of the cut boxes
+    assert file.areas.area.tolist() == pytest.approx([1.0, 1.0, 1.0, 0.5])
+    assert shapely.equals(file.geometry[1], shapely.box(1, 0, 2, 1))
+    assert [(c["kept_by"], c["cut_from"]) for c in file.overlaps_cut] == [("A", "B"), ("C", "D")]
+    g = file.geometry.to_numpy()
+    assert max(shapely.area(shapely.intersection(g[a], g[b])) for a in range(4) for b in range(a + 1, 4)) == 0.0
+
+
+def test_identical_polygons_are_duplicates_refused_or_merged_never_silent(tmp_path, capsys):
+    geoms = [shapely.box(0, 0, 1, 1), shapely.box(1, 0, 2, 1), shapely.box(1, 0, 2, 1)]
+    gdf = gpd.GeoDataFrame({"code": ["A", "B", "B2"], "persons": [5, 7, 11]}, geometry=geoms, crs=UTM)
+    areas = write_gpkg(gdf, tmp_path / "areas.gpkg")
+    refuse = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]')
+    err = one_line_exit_2(design_argv(areas, refuse, tmp_path / "out"), capsys)
+    assert "1 pair(s) of identical polygons (duplicate areas): 'B' and 'B2' (persons 7 and 11)" in err
+    assert "overlap" not in err.split("duplicate areas")[1].split(";")[0]  # not an "overlap of 1 m2"
+    cut = load_rules(rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\noverlaps = "cut"'))
+    file = read_areas(areas, cut.areas)
+    assert file.areas.ids.tolist() == ["A", "B"]  # the first id kept
+    assert file.areas.counts[:, 0].tolist() == [5.0, 18.0]  # counts summed: 7 + 11
+    assert file.duplicates_merged == [
+        {"kept": "B", "merged": ["B2"], "counts": {"B": {"persons": 7.0}, "B2": {"persons": 11.0}}}
+    ]
+    assert any("duplicate polygon(s) merged" in n for n in file.notes)
+
+
+def test_row_ids_name_areas_by_their_row_number(tmp_path):
+    gdf = gpd.GeoDataFrame({"persons": [1, 2, 3]}, geometry=squares(3), crs=UTM)
+    areas = write_gpkg(gdf, tmp_path / "areas.gpkg")
+    file = read_areas(areas, load_rules(rules_file(tmp_path, 'id = "@row"\ncounts = ["persons"]')).areas)
+    assert file.areas.ids.tolist() == ["1", "2", "3"]
+    assert any('id = "@row"' in n for n in file.notes)
+
+
+@pytest.mark.parametrize(
+    "areas_text, message",
+    [
+        ('id = "code"\ncounts = ["persons"]\noverlaps = "mend"', "areas.overlaps: 'mend' is not one of 'refuse', 'cut'"),
+        ('id = "code"\ncounts = ["persons"]\noverlaps = true', "areas.overlaps: expected a non-empty text"),
+        ('id = "@row"\ncounts = ["persons"]\ntable = "counts.csv"', 'areas.table: a table is joined on the id column'),
+    ],
+)
+def test_bad_overlap_and_id_keys_are_exit_2(tmp_path, capsys, areas_text, message):
+    err = one_line_exit_2(["rules", "check", str(rules_file(tmp_path, areas_text))], capsys)
+    assert message in err
+
+
+@pytest.mark.opendata
+def test_auckland_runs_end_to_end_with_overlaps_cut_and_row_ids(spdata_dir, tmp_path, capsys):
+    import networkx as nx
+
+    # r-cran-spdata auckland.shp: 167 census area units, no CRS, no id column; one
+    # polygon is drawn twice and 16 more pairs overlap slightly
+    shp = spdata_dir / "auckland.shp"
+    rules = tmp_path / "rules.toml"
+    rules.write_text(
+        '[areas]\nid = "@row"\ncounts = ["Und5_81"]\ncrs = "EPSG:2193"\noverlaps = "cut"\n\n'
+        '[[tier]]\nname = "tier1"\nmin = { Und5_81 = 2000 }\nmax = { Und5_81 = 6000 }\n'
+        'target = { Und5_81 = 3500 }\n\n[search]\nmethod = "descent"\nconstructions = 1\n'
+        "time_limit_fence = 600.0\n"
+    )
+    out = tmp_path / "out"
+    code = main(["design", str(shp), "--rules", str(rules), "--out", str(out), "--quiet", "--no-report"])
+    assert code == 0, capsys.readouterr().err
+    import json
+
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["areas"]["count"] == 166  # 167 less the duplicate merged into its twin
+    assert len(summary["areas"]["duplicates_merged"]) == 1
+    assert len(summary["areas"]["overlaps_cut"]) == 16
+    raw = gpd.read_file(shp)
+    lookup = pd.read_csv(out / "lookup.csv", dtype=str)
+    zones = gpd.read_file(out / "zones.gpkg", layer="tier1")
+    # pandas (reference): no count is lost when the duplicate is merged
+    assert zones["Und5_81"].sum() == pytest.approx(raw["Und5_81"].sum())
+    # networkx (reference library): every zone is connected in the rook graph of the
+    # original polygons that shapely finds (a boundary of positive shared length)
+    g = raw.geometry.to_numpy()
+    i, j = shapely.STRtree(g).query(g, predicate="intersects")
+    keep = i < j
+    i, j = i[keep], j[keep]
+    shared = shapely.length(shapely.intersection(shapely.boundary(g[i]), shapely.boundary(g[j])))
+    graph = nx.Graph()
+    graph.add_nodes_from(range(len(raw)))
+    graph.add_edges_from((a, b) for a, b, s in zip(i.tolist(), j.tolist(), shared.tolist()) if s > 0)
+    for zone, rows in lookup.groupby("tier1")["area"]:
+        members = [int(r) - 1 for r in rows]  # @row ids count rows from 1
+        assert nx.is_connected(graph.subgraph(members)), zone
+    # shapely (reference library): no two dissolved zones overlap
+    z = zones.geometry.to_numpy()
+    a, b = shapely.STRtree(z).query(z, predicate="intersects")
+    common = shapely.area(shapely.intersection(z[a[a < b]], z[b[a < b]]))
+    assert common.size == 0 or common.max() < 1e-9 * shapely.area(z).min()

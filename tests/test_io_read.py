@@ -342,7 +342,10 @@ def test_invalid_polygons_are_repaired_and_reported_not_refused(tmp_path: Path) 
 def test_overlapping_polygons_are_refused_beyond_the_tolerance(tmp_path: Path) -> None:
     geoms = [shapely.box(0, 0, 1, 1), shapely.box(0.5, 0, 1.5, 1), shapely.box(3, 0, 4, 1)]
     (problem,) = problems_of(write(frame(3, geoms), tmp_path / "areas.gpkg"))
-    assert problem == "areas.gpkg: geometry: 1 overlapping pair(s) of polygons: 'A1' and 'A2' (0.5 m2)"
+    assert problem == (
+        "areas.gpkg: geometry: 1 overlapping pair(s) of polygons: 'A1' and 'A2' (0.5 m2)"
+        '; overlaps = "cut" in [areas] mends them'
+    )
     # an overlap of 1e-9 of the smaller polygon is below the 1e-6 tolerance
     slight = [shapely.box(0, 0, 1, 1), shapely.box(1 - 1e-9, 0, 2, 1)]
     assert read_areas(write(frame(2, slight), tmp_path / "b.gpkg"), RULES).areas.n == 2

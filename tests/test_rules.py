@@ -229,6 +229,18 @@ def test_round_trip_of_the_valid_file() -> None:
     assert same(parse_rules(rules_to_toml(r)), r)
 
 
+def test_round_trip_keeps_the_agency_input_keys(tmp_path: Path) -> None:
+    text = VALID.replace(
+        'fence = "district"',
+        'fence = { column = "code", suffix = 2 }\ntable = "counts.csv"\nprefer = "table"\n'
+        'work_crs = "EPSG:32633"\noverlaps = "cut"',
+    )
+    r = parse_rules(text, "rules.toml", base_dir=tmp_path)
+    assert (r.areas.fence, r.areas.fence_suffix, r.areas.table) == ("code", 2, (tmp_path / "counts.csv").absolute())
+    back = parse_rules(rules_to_toml(r))
+    assert back.areas == r.areas
+
+
 names = st.text(st.characters(blacklist_categories=("Cs",), blacklist_characters="\x00"), min_size=1, max_size=12).filter(
     lambda s: s.strip() != ""
 )

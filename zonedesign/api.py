@@ -49,6 +49,8 @@ class Prepared:
     inputs: list[Path]
     seconds: dict[str, float] = field(default_factory=dict)
     crs_note: str = ""  # which CRS areas and lengths are measured in, and why
+    overlaps_cut: list[dict] = field(default_factory=list)  # [areas] overlaps = "cut"
+    duplicates_merged: list[dict] = field(default_factory=list)
 
 
 @dataclass
@@ -143,6 +145,8 @@ def prepare(
         inputs=inputs,
         seconds=seconds,
         crs_note=file.crs_note,
+        overlaps_cut=file.overlaps_cut,
+        duplicates_merged=file.duplicates_merged,
     )
 
 
@@ -290,6 +294,8 @@ def base_summary(prep: Prepared, command: str) -> dict:
             "fences": len(set(prep.areas.fence.tolist())),
             "fence_codes": sorted(set(prep.areas.fence.tolist())),
             "repaired_polygons": list(prep.areas.repaired),
+            "overlaps_cut": prep.overlaps_cut,
+            "duplicates_merged": prep.duplicates_merged,
             "notes": prep.notes,
         },
         "graph": {

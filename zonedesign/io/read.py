@@ -41,6 +41,8 @@ class AreaFile:
     source: Path
     crs_note: str
     notes: list[str] = field(default_factory=list)
+    overlaps_cut: list[dict] = field(default_factory=list)  # overlaps = "cut": each pair mended
+    duplicates_merged: list[dict] = field(default_factory=list)  # identical polygons made one area
 
 
 def read_areas(
@@ -140,12 +142,21 @@ def read_areas(
                 notes.insert(0, f"{where}: {crs_note}")
         except InputError as exc:
             problems.append(str(exc))
+    mend = Mended()
     if polygonal.all():
         clipped, clip_notes = v.clip_repaired(series.to_numpy(), repaired, where, labels)
         series = gpd.GeoSeries(clipped, crs=series.crs, index=series.index)
         notes += clip_notes
-        problems += v.overlap_problems(clipped, where, labels)
+        if areas_rules.overlaps == "refuse":
+            problems += v.overlap_problems(clipped, where, labels, counts, tuple(areas_rules.counts))
     v.raise_problems(problems, where=where)
+    repaired_ids = tuple(str(ids[k]) for k in repaired)
+    if areas_rules.overlaps == "cut":
+        columns = {"ids": ids, "counts": counts, "attrs": attrs, "weight": weight, "fence": fence}
+        mend, series, columns, found = _mend_overlaps(series, columns, areas_rules, where, labels)
+        v.raise_problems(found, where=where)
+        ids, counts, attrs, weight, fence = (columns[k] for k in ("ids", "counts", "attrs", "weight", "fence"))
+        notes += mend.notes(where)
 
     geo = series.to_numpy()
     areas = Areas(
@@ -159,9 +170,111 @@ def read_areas(
         perimeter=shapely.length(geo),
         fence=fence,
         crs=series.crs.to_string(),
-        repaired=tuple(str(ids[k]) for k in repaired),
+        repaired=repaired_ids,
     )
-    return AreaFile(areas=areas, geometry=series, source=path, crs_note=crs_note, notes=notes)
+    return AreaFile(
+        areas=areas, geometry=series, source=path, crs_note=crs_note, notes=notes,
+        overlaps_cut=mend.cut, duplicates_merged=mend.merged,
+    )
+
+
+# ---------------------------------------------------------------- overlaps = "cut"
+
+
+@dataclass
+class Mended:
+    """What `overlaps = "cut"` did: duplicate areas merged, overlapping pairs cut."""
+
+    merged: list[dict] = field(default_factory=list)
+    cut: list[dict] = field(default_factory=list)
+
+    def notes(self, where: str) -> list[str]:
+        out = []
+        if self.merged:
+            shown = "; ".join(f"{d['kept']} took in {', '.join(d['merged'])}" for d in self.merged[: v.SHOW])
+            more = f"; and {len(self.merged) - v.SHOW} more" if len(self.merged) > v.SHOW else ""
+            out.append(
+                f"{where}: {len(self.merged)} duplicate polygon(s) merged into one area each, counts summed "
+                f"(overlaps = \"cut\"): {shown}{more}"
+            )
+        if self.cut:
+            shown = ", ".join(
+                f"{c['cut_from']} gave {c['overlap_m2']:.6g} m2 to {c['kept_by']}" for c in self.cut[: v.SHOW]
+            )
+            more = f" and {len(self.cut) - v.SHOW} more" if len(self.cut) > v.SHOW else ""
+            out.append(
+                f"{where}: {len(self.cut)} overlapping pair(s) cut (overlaps = \"cut\"; each overlap kept by the "
+                f"polygon it is the larger share of; parts below {v.SLIVER_SHARE:g} of a polygon dropped): {shown}{more}"
+            )
+        return out
+
+
+def _mend_overlaps(
+    series: gpd.GeoSeries, columns: dict[str, np.ndarray], rules: AreasRules, where: str, labels: v.RowLabels
+) -> tuple[Mended, gpd.GeoSeries, dict[str, np.ndarray], list[str]]:
+    """Merge identical polygons into one area each, then cut every remaining overlap."""
+    geoms = series.to_numpy()
+    ids = columns["ids"]
+    i, j, _ = v.overlapping_pairs(geoms)
+    dup = v.duplicate_mask(geoms, i, j)
+    mend = Mended()
+    problems: list[str] = []
+    keep = np.ones(geoms.shape[0], dtype=bool)
+    if dup.any():
+        # identical polygons in groups (three copies are three pairs); the first row stays
+        group = np.arange(geoms.shape[0])
+        for a, b in zip(i[dup].tolist(), j[dup].tolist()):
+            ra, rb = _root(group, a), _root(group, b)
+            group[max(ra, rb)] = min(ra, rb)
+        roots = np.array([_root(group, k) for k in range(geoms.shape[0])])
+        counts, attrs, weight, fence = (columns[k].copy() for k in ("counts", "attrs", "weight", "fence"))
+        for r in np.unique(roots[roots != np.arange(roots.size)]).tolist():
+            members = np.flatnonzero(roots == r)
+            if len(set(fence[members].tolist())) > 1:
+                problems.append(
+                    f"{where}: geometry: identical polygons {v.listed(labels, members)} lie in different fences "
+                    f"({', '.join(sorted(map(str, set(fence[members].tolist()))))}); they cannot be merged"
+                )
+                continue
+            w = weight[members]
+            share = w / w.sum() if w.sum() > 0 else np.full(members.size, 1.0 / members.size)
+            mend.merged.append(
+                {
+                    "kept": str(ids[r]),
+                    "merged": [str(ids[k]) for k in members if k != r],
+                    "counts": {
+                        str(ids[k]): dict(zip(rules.counts, counts[k].tolist())) for k in members
+                    },
+                }
+            )
+            counts[r] = counts[members].sum(axis=0)
+            attrs[r] = share @ attrs[members]  # the merged area's attributes: weighted by its parts
+            weight[r] = w.sum()
+            keep[members[members != r]] = False
+        columns = {"ids": ids, "counts": counts, "attrs": attrs, "weight": weight, "fence": fence}
+    if problems:
+        return mend, series, columns, problems
+    columns = {k: a[keep] for k, a in columns.items()}
+    geoms = geoms[keep]
+    i, j, _ = v.overlapping_pairs(geoms)
+    geoms, mend.cut = v.cut_overlaps(geoms, columns["ids"], i, j)
+    gone = np.flatnonzero(shapely.is_empty(geoms) | (shapely.area(geoms) <= 0))
+    if gone.size:
+        problems.append(
+            f"{where}: geometry, {v.rows_text(v.row_labels(columns['ids']), gone)}: nothing left once the "
+            "polygons overlapping it keep their overlap (a polygon wholly covered by others)"
+        )
+    left = v.overlapping_pairs(geoms)[0]
+    if left.size and not problems:  # a cut always leaves pairwise-disjoint interiors; checked, not assumed
+        problems.append(f"{where}: geometry: {left.size} overlapping pair(s) left after the cut")
+    out = gpd.GeoSeries(geoms, crs=series.crs, index=pd.RangeIndex(geoms.shape[0]))
+    return mend, out, columns, problems
+
+
+def _root(group: np.ndarray, k: int) -> int:
+    while group[k] != k:
+        k = group[k]
+    return int(k)
 
 
 def _wanted_columns(rules: AreasRules) -> dict[str, str]:

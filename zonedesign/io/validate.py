@@ -305,32 +305,117 @@ def clip_repaired(
     return geoms, notes
 
 
-def overlap_problems(geoms: np.ndarray, where: str, labels: RowLabels) -> list[str]:
-    """Pairs of polygons whose common area exceeds OVERLAP_SHARE of the smaller one.
+def overlapping_pairs(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pairs (i < j) of polygons whose common area exceeds OVERLAP_SHARE of the smaller one,
+    with that common area.
 
     An exact segment count settles the usual case (a coverage whose neighbours share
     vertices) without any pairwise overlay; otherwise every pair of intersecting polygons
     is overlaid.
     """
+    none = np.zeros(0, dtype=np.int64)
     if geoms.shape[0] < 2 or disjoint_interiors(geoms):
-        return []
+        return none, none, np.zeros(0)
     tree = shapely.STRtree(geoms)
     i, j = tree.query(geoms, predicate="intersects")
     keep = i < j
     i, j = i[keep], j[keep]
     if i.size == 0:
-        return []
+        return none, none, np.zeros(0)
     common = shapely.area(shapely.intersection(geoms[i], geoms[j]))
     area = shapely.area(geoms)
     over = common > OVERLAP_SHARE * np.minimum(area[i], area[j])
-    if not over.any():
+    order = np.lexsort((j[over], i[over]))
+    return i[over][order], j[over][order], common[over][order]
+
+
+def duplicate_mask(geoms: np.ndarray, i: np.ndarray, j: np.ndarray) -> np.ndarray:
+    """Which overlapping pairs are the same polygon twice (equal point sets)."""
+    if i.size == 0:
+        return np.zeros(0, dtype=bool)
+    return np.asarray(shapely.equals(geoms[i], geoms[j]), dtype=bool)
+
+
+def overlap_problems(
+    geoms: np.ndarray,
+    where: str,
+    labels: RowLabels,
+    counts: np.ndarray | None = None,
+    count_names: tuple[str, ...] = (),
+) -> list[str]:
+    """Overlapping pairs of polygons, and identical polygons named as duplicates."""
+    i, j, common = overlapping_pairs(geoms)
+    if i.size == 0:
         return []
-    pairs = np.flatnonzero(over)
-    shown = ", ".join(
-        f"{labels[i[k]]} and {labels[j[k]]} ({common[k]:.6g} m2)" for k in pairs[:SHOW]
-    )
-    more = f" and {pairs.size - SHOW} more" if pairs.size > SHOW else ""
-    return [f"{where}: geometry: {pairs.size} overlapping pair(s) of polygons: {shown}{more}"]
+    dup = duplicate_mask(geoms, i, j)
+    out = []
+    hint = '; overlaps = "cut" in [areas] mends them'
+    if dup.any():
+        pairs = np.flatnonzero(dup)
+        shown = "; ".join(
+            f"{labels[i[k]]} and {labels[j[k]]}{_counts_text(counts, count_names, i[k], j[k])}" for k in pairs[:SHOW]
+        )
+        more = f"; and {pairs.size - SHOW} more" if pairs.size > SHOW else ""
+        out.append(
+            f"{where}: geometry: {pairs.size} pair(s) of identical polygons (duplicate areas): {shown}{more}"
+            '; overlaps = "cut" in [areas] merges each pair into one area'
+        )
+    rest = np.flatnonzero(~dup)
+    if rest.size:
+        shown = ", ".join(f"{labels[i[k]]} and {labels[j[k]]} ({common[k]:.6g} m2)" for k in rest[:SHOW])
+        more = f" and {rest.size - SHOW} more" if rest.size > SHOW else ""
+        out.append(f"{where}: geometry: {rest.size} overlapping pair(s) of polygons: {shown}{more}{hint}")
+    return out
+
+
+def _counts_text(counts: np.ndarray | None, names: tuple[str, ...], a: int, b: int) -> str:
+    if counts is None or not names:
+        return ""
+    return " (" + ", ".join(f"{n} {_plain(counts[a, k]):g} and {_plain(counts[b, k]):g}" for k, n in enumerate(names)) + ")"
+
+
+SLIVER_SHARE = 1e-6  # polygon parts below this share of their polygon's area are dropped after a cut
+
+
+def cut_overlaps(
+    geoms: np.ndarray, ids: np.ndarray, i: np.ndarray, j: np.ndarray
+) -> tuple[np.ndarray, list[dict]]:
+    """Each overlap removed from all but one polygon of its pair.
+
+    The overlap stays with the polygon of which it is the larger share (the smaller
+    polygon, which a cut would hurt more), ties to the smaller id; the other polygon gives
+    it up. Parts left below SLIVER_SHARE of a polygon's area are dropped. Pairs are taken in
+    order, each against the polygons as already cut, so a point covered three times ends
+    in one polygon. Returns the polygons and one record per mended pair.
+    """
+    geoms = geoms.copy()
+    mended = []
+    for a, b in zip(i.tolist(), j.tolist()):
+        common = shapely.intersection(geoms[a], geoms[b])
+        size = float(shapely.area(common))
+        if size <= OVERLAP_SHARE * min(shapely.area(geoms[a]), shapely.area(geoms[b])):
+            continue  # an earlier cut already took it
+        share_a, share_b = size / shapely.area(geoms[a]), size / shapely.area(geoms[b])
+        keeper, loser = (a, b) if (share_a, str(ids[b])) > (share_b, str(ids[a])) else (b, a)
+        geoms[loser] = drop_slivers(polygonal_part(shapely.difference(geoms[loser], geoms[keeper])))
+        mended.append(
+            {
+                "ids": [str(ids[a]), str(ids[b])],
+                "overlap_m2": size,
+                "kept_by": str(ids[keeper]),
+                "cut_from": str(ids[loser]),
+            }
+        )
+    return geoms, mended
+
+
+def drop_slivers(geom: shapely.Geometry) -> shapely.Geometry:
+    parts = shapely.get_parts(geom)
+    if parts.size <= 1:
+        return geom
+    area = shapely.area(parts)
+    keep = area >= SLIVER_SHARE * area.sum()
+    return shapely.union_all(parts[keep]) if keep.sum() > 1 else parts[keep][0]
 
 
 # ---------------------------------------------------------------- exact coverage test

@@ -588,6 +588,38 @@ def _certificate(run: ReportPlan) -> str:
     return "".join(out)
 
 
+def _mended(areas: dict) -> list[str]:
+    """Every duplicate merged and every overlap cut under overlaps = "cut"."""
+    out = []
+    merged = areas.get("duplicates_merged") or []
+    if merged:
+        rows = "".join(
+            f"<tr><td>{esc(d.get('kept'))}</td><td>{esc(', '.join(map(str, d.get('merged', []))))}</td>"
+            f"<td>{esc(_counts_before(d.get('counts') or {}))}</td></tr>"
+            for d in merged[:TABLE_ROWS]
+        )
+        out.append(
+            '<h3 id="input-duplicates">Duplicate polygons merged</h3><table><thead><tr><th>kept id</th>'
+            f"<th>merged into it</th><th>counts before</th></tr></thead><tbody>{rows}</tbody></table>"
+        )
+    cut = areas.get("overlaps_cut") or []
+    if cut:
+        rows = "".join(
+            f"<tr><td>{esc(c.get('kept_by'))}</td><td>{esc(c.get('cut_from'))}</td>"
+            f"<td>{float(c.get('overlap_m2') or 0.0):.6g}</td></tr>"
+            for c in cut[:TABLE_ROWS]
+        )
+        out.append(
+            '<h3 id="input-overlaps">Overlaps cut</h3><table><thead><tr><th>kept by</th><th>cut from</th>'
+            f"<th>overlap (m2)</th></tr></thead><tbody>{rows}</tbody></table>"
+        )
+    return out
+
+
+def _counts_before(counts: dict) -> str:
+    return "; ".join(f"{k}: " + ", ".join(f"{c} {num(x)}" for c, x in v.items()) for k, v in counts.items())
+
+
 def _codes_text(codes: object) -> str | None:
     if not isinstance(codes, list) or not codes or codes == ["all"]:
         return None
@@ -623,6 +655,7 @@ def _input(run: ReportPlan) -> str:
             + "".join(f"<li>{esc(n)}</li>" for n in notes[:TABLE_ROWS])
             + "</ul>"
         )
+    out += _mended(areas)
     repaired = areas.get("repaired_polygons")
     if repaired:
         shown = ", ".join(map(str, repaired[:200])) + (
