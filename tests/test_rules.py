@@ -7,8 +7,6 @@ import re
 import tomllib
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -25,7 +23,6 @@ from zonedesign.rules import (
     load_rules,
     parse_rules,
     rules_to_toml,
-    starter_rules,
 )
 
 VALID = """\
@@ -414,36 +411,3 @@ def test_any_override_key_is_applied_or_rejected_by_name(parts: list[str], value
         assert key in first_line(exc) or f"override {key}=" in first_line(exc), str(exc)
     else:
         assert isinstance(out, Rules)
-
-
-# ---------------------------------------------------------------- starter file
-
-
-def test_starter_file_parses_guesses_columns_and_carries_census_bounds() -> None:
-    n = 60
-    sample = pd.DataFrame(
-        {
-            "zone_code": [f"Z{k:03d}" for k in range(n)],
-            "district": np.repeat(["Ashford", "Brindle", "Colm"], n // 3),
-            "households": np.arange(n) % 7 + 20,
-            "population": (np.arange(n) % 7 + 20) * 2.4,
-            "owner_share": np.linspace(0.1, 0.9, n),
-            "flag": np.ones(n),
-        }
-    )
-    dtypes = [str(t) for t in sample.dtypes]
-    text = starter_rules(list(sample.columns), dtypes, sample)
-    r = parse_rules(text, "starter.toml")
-    check_rules_against(r, list(sample.columns), "areas.gpkg")
-    assert r.areas.id == "zone_code"
-    assert r.areas.fence == "district"
-    assert set(r.areas.counts) == {"population", "households"}
-    assert r.areas.attributes == ("owner_share",)  # a constant column carries no information
-    assert len(r.tiers) == 3
-    block = r.tiers[0]
-    # Cockings, Harfoot, Martin & Hornby 2011: a finest tier of 40-250 households and
-    # 100-625 persons, with a target of 125 households
-    assert block.min == {"population": 100.0, "households": 40.0}
-    assert block.max == {"population": 625.0, "households": 250.0}
-    assert block.target == {"households": 125.0}
-    assert text.count("#") > 10  # a commented file

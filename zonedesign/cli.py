@@ -126,7 +126,7 @@ def _parser() -> argparse.ArgumentParser:
         sp.add_argument("areas", type=Path, help="areas file (GeoPackage, GeoJSON, Shapefile, GeoParquet)")
         sp.add_argument("--rules", required=True, type=Path, help="rules file (TOML)")
         sp.add_argument("--layer", help="layer name in a GeoPackage")
-        sp.add_argument("--crs", help="CRS of a file that carries none, e.g. EPSG:27700")
+        sp.add_argument("--crs", help="CRS of a file that carries none, e.g. EPSG:32631 (the demo region's UTM zone 31N)")
 
     def executor(sp: argparse.ArgumentParser) -> None:
         sp.add_argument("--executor", choices=["local", "dask"], default="local")
@@ -365,13 +365,14 @@ def _run(args: argparse.Namespace) -> int:
 
 
 def _rules(args: argparse.Namespace) -> int:
-    from zonedesign.io.read import read_table_columns, read_table_sample, rule_columns
-    from zonedesign.rules import check_rules_against, load_rules, starter_rules
+    from zonedesign.io.read import rule_columns
+    from zonedesign.rules import check_rules_against, load_rules
 
     if args.rules_command == "init":
-        columns, dtypes, _, _ = read_table_columns(args.areas, layer=args.layer)
-        sample = read_table_sample(args.areas, layer=args.layer)
-        sys.stdout.write(starter_rules(columns, dtypes, sample))
+        from zonedesign.starter import read_starter_input, starter_rules
+
+        table, graph, note = read_starter_input(args.areas, layer=args.layer)
+        sys.stdout.write(starter_rules(table, graph, note=note))
         return 0
     if args.rules_command == "check":
         rules = load_rules(args.rules)

@@ -19,10 +19,10 @@
     links = "links.csv"               # optional CSV of id pairs, relative to the rules file
 
     [[tier]]                          # bottom tier first
-    name = "block"
-    min = { households = 40, persons = 100 }
-    max = { households = 250, persons = 625 }
-    target = { households = 125 }
+    name = "small"
+    min = { households = 50, persons = 120 }    # set from your own disclosure-control rules
+    max = { households = 280, persons = 700 }
+    target = { households = 140 }
     weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 0.0 }
     homogeneity = "ssd"               # or "pairwise"
     compactness = "polsby"            # or "cut"
@@ -50,7 +50,7 @@ from typing import TYPE_CHECKING
 from zonedesign.errors import InputError, RulesError
 
 if TYPE_CHECKING:
-    import pandas as pd
+    pass
 
 TERMS = ("size", "homogeneity", "compactness", "stability")
 METHODS = ("descent", "annealing", "tabu")
@@ -849,168 +849,3 @@ def _tier_position(rules: Rules, selector: str, key: str) -> int:
 
 def _bad_key(key: str, why: str) -> None:
     raise RulesError(f"override key {key!r}: {why}; allowed: {'; '.join(OVERRIDE_FORMS)}")
-
-
-# ---------------------------------------------------------------- starter file
-
-_ID_NAME = re.compile(r"(^id$|_id$|^id_|code|key|^fid$|^geoid)", re.I)
-_FENCE_NAME = re.compile(r"(district|county|region|ward|munic|borough|parish|province|state|fence)", re.I)
-_PERSONS_NAME = re.compile(r"(pop|person|people|resid|inhab)", re.I)
-_HOUSEHOLDS_NAME = re.compile(r"(household|hhold|^hh|dwell)", re.I)
-_NOT_ATTRIBUTE = re.compile(
-    r"^(x|y|xm|ym|lon|lat|long|longitude|latitude|easting|northing|area|shape_area|shape_leng|"
-    r"shape_length|objectid|fid|perimeter)$",
-    re.I,
-)
-
-# Census-style sizes per tier (households, persons): the finest tier's 40-250 households and
-# 100-625 persons with a target of 125 households follow Cockings et al. (2011); the two
-# upper tiers follow the same census practice (from memory).
-_STARTER_TIERS = (
-    ("block", {"households": (40, 250, 125), "persons": (100, 625, 300)}),
-    ("quarter", {"households": (400, 1200, 600), "persons": (1000, 3000, 1500)}),
-    ("sector", {"households": (2000, 6000, 3000), "persons": (5000, 15000, 7500)}),
-)
-
-
-def starter_rules(columns: Sequence[str], dtypes: Sequence[str], sample: pd.DataFrame) -> str:
-    """A commented starter rules file for an areas file with these columns.
-
-    Numeric columns are offered as counts and attributes, a unique column is taken as the
-    id and a text column with few, large groups as the fence; the three example tiers carry
-    census-style bounds. The result parses; the user edits names and numbers.
-    """
-    import pandas as pd  # here, so that reading rules needs no pandas
-
-    columns = [str(c) for c in columns]
-    kinds = dict(zip(columns, (_dtype_kind(d) for d in dtypes)))
-    numeric = [c for c in columns if kinds.get(c) in ("i", "u", "f")]
-    id_col = _guess_id(columns, kinds, sample)
-    fence = _guess_fence(columns, kinds, sample, id_col)
-    persons = next((c for c in numeric if c != id_col and _PERSONS_NAME.search(c)), None)
-    households = next((c for c in numeric if c != id_col and _HOUSEHOLDS_NAME.search(c)), None)
-    if persons is None and households is None:
-        persons = next((c for c in numeric if c != id_col and _non_negative(sample, c)), None)
-    roles = {"persons": persons, "households": households}
-    counts = [c for c in (persons, households) if c is not None]
-    attributes = [
-        c
-        for c in numeric
-        if c != id_col and c not in counts and not _NOT_ATTRIBUTE.match(c) and _varies(sample, c)
-    ]
-    q = _toml_string
-    out = [
-        "# zonedesign rules: tiers, bounds, targets, weights and search settings.",
-        f"# Started from a file with columns: {', '.join(columns)}.",
-        "# Check every guessed name and every number before use.",
-        "",
-        "[areas]",
-    ]
-    if id_col is None:
-        id_col = columns[0] if columns else "id"
-        out.append("# no column with a unique value per row was found: set the id column here")
-    out.append(f"id = {q(id_col)}")
-    if counts:
-        out.append(f"counts = [{', '.join(q(c) for c in counts)}]   # numeric columns: {', '.join(numeric)}")
-    else:
-        out.append("# no numeric column was found; name the count columns here")
-        out.append('counts = ["set-me"]')
-    offered = ", ".join(q(c) for c in attributes)
-    out.append(f"attributes = [{offered}]   # for homogeneity; drop any that do not describe people")
-    if fence is not None:
-        groups = sample[fence].nunique(dropna=True)
-        out.append(f"fence = {q(fence)}   # {groups} codes in the first {len(sample)} rows; zones never cross it")
-    else:
-        out.append('# fence = "district"   # a code column zones must never cross')
-    if persons is not None:
-        out.append(f"weight = {q(persons)}   # homogeneity weight per area")
-    out += [
-        "",
-        "[graph]",
-        'contiguity = "rook"   # "rook" (shared edge) or "queen" (a shared corner is enough)',
-        "min_shared_length = 0.0",
-        "tolerance = 0.0   # metres; > 0 for boundaries that do not meet exactly",
-    ]
-    medians = {}
-    for role, col in roles.items():
-        if col is not None and len(sample) and col in sample:
-            medians[role] = float(pd.to_numeric(sample[col], errors="coerce").median())
-            out.insert(len(out) - 5, f"# {role} per area ({col}): median {medians[role]:g} in the first {len(sample)} rows")
-    for name, sizes in _STARTER_TIERS:
-        out += ["", "[[tier]]   # bottom tier first" if name == "block" else "[[tier]]", f"name = {q(name)}"]
-        if any(med > sizes[role][1] for role, med in medians.items()):
-            out.append("# a typical area is already above this tier's max: scale the bounds to your data")
-        lo = {roles[r]: v[0] for r, v in sizes.items() if roles[r]}
-        hi = {roles[r]: v[1] for r, v in sizes.items() if roles[r]}
-        aim = {roles[r]: v[2] for r, v in sizes.items() if roles[r]}
-        if households is not None:
-            aim = {households: sizes["households"][2]}
-        for key, table in (("min", lo), ("max", hi), ("target", aim)):
-            out.append(f"{key} = {_toml_value(table)}")
-        out += [
-            "weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 0.0 }",
-            "# stability counts only in a redraw (0 means 20 there); where these weights would move",
-            "# more areas than needed, a redraw searches again for the fewest moves",
-            'homogeneity = "ssd"   # or "pairwise"',
-            'compactness = "polsby"   # or "cut"',
-        ]
-    out += [
-        "",
-        "[search]",
-        'method = "annealing"   # "descent", "annealing" or "tabu"',
-        "seed = 1",
-        "constructions = 4",
-        "time_limit_fence = 10.0   # seconds per fence and tier",
-        "time_limit_total = 600.0   # seconds for the whole run",
-    ]
-    return "\n".join(out) + "\n"
-
-
-def _dtype_kind(dtype: str) -> str:
-    import numpy as np
-
-    try:
-        return np.dtype(dtype).kind
-    except TypeError:
-        return "O"
-
-
-def _guess_id(columns: list[str], kinds: dict[str, str], sample: pd.DataFrame) -> str | None:
-    unique = [
-        c
-        for c in columns
-        if kinds.get(c) in ("O", "U", "i", "u")
-        and c in sample
-        and len(sample)
-        and sample[c].notna().all()
-        and sample[c].is_unique
-    ]
-    ranked = sorted(unique, key=lambda c: (not _ID_NAME.search(c), kinds.get(c) != "O", columns.index(c)))
-    return ranked[0] if ranked else None
-
-
-def _guess_fence(columns: list[str], kinds: dict[str, str], sample: pd.DataFrame, id_col: str | None) -> str | None:
-    n = len(sample)
-    found = []
-    for c in columns:
-        if c == id_col or kinds.get(c) not in ("O", "U") or c not in sample or n == 0:
-            continue
-        sizes = sample[c].value_counts(dropna=True)
-        if sample[c].isna().any() or not 2 <= sizes.size <= max(2, n // 5) or sizes.min() < 3:
-            continue
-        found.append(c)
-    found.sort(key=lambda c: (not _FENCE_NAME.search(c), columns.index(c)))
-    return found[0] if found else None
-
-
-def _non_negative(sample: pd.DataFrame, col: str) -> bool:
-    import pandas as pd
-
-    vals = pd.to_numeric(sample[col], errors="coerce") if col in sample else pd.Series(dtype=float)
-    return bool(len(vals)) and bool((vals.dropna() >= 0).all())
-
-
-def _varies(sample: pd.DataFrame, col: str) -> bool:
-    import pandas as pd
-
-    return col in sample and pd.to_numeric(sample[col], errors="coerce").nunique(dropna=True) > 1
