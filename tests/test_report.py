@@ -7,7 +7,6 @@ library's html.parser, a parser independent of the code that writes it.
 from __future__ import annotations
 
 import base64
-import io
 import re
 
 import numpy as np
@@ -193,35 +192,6 @@ def test_redraw_report_shows_a_change_map_and_the_share_unchanged():
     share = (table["change"] == "kept").mean()
     assert f"tier block: {100 * share:.1f}% unchanged" in text
     assert "tier ward: 50.0% unchanged" in text  # 2 kept of the 4 zones now standing
-
-
-def test_sweep_report_embeds_the_given_charts():
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(2, 1.5))
-    ax.plot([30, 40, 50], [22, 19, 17])
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    plt.close(fig)
-    table = pd.DataFrame(
-        {
-            "tier.1.min.households": [30, 40, 50],
-            "zones.block": [22, 19, 17],
-            "bound_breaks": [0, 0, 1],
-        }
-    )
-    text = render_report(
-        summary={"command": "sweep", "sweep": {"vary": {"tier.1.min.households": [30, 40, 50]}}},
-        tables={},
-        layers={},
-        sweep=table,
-        sweep_charts={"zones.block.png": buf.getvalue()},
-    )
-    assert "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode() in text
-    assert "One row per variant of the rules" in text and Page(text).fetchable == []
 
 
 def test_sections_render_from_whatever_the_summary_holds(tmp_path):

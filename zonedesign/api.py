@@ -93,9 +93,7 @@ def prepare(
     progress: Progress | None = None,
 ) -> Prepared:
     """Read the rules and the areas, build the graph, add links, find islands."""
-    from zonedesign.graph.build import build_graph
-    from zonedesign.graph.components import islands as find_islands
-    from zonedesign.graph.links import add_links, read_links
+    from zonedesign.graph.areagraph import area_graph
     from zonedesign.io.read import read_areas, rule_columns
     from zonedesign.rules import check_rules_against
 
@@ -117,21 +115,15 @@ def prepare(
     t0 = time.perf_counter()
     stage(f"building the {rules.graph.contiguity} graph of {file.areas.n} areas")
     notes = list(file.notes)
-    graph = build_graph(file.geometry, rules.graph, notes=notes)
-    # islands are found before links are added, so the summary shows each one and
-    # whether a declared link joins it to its fence
-    found = [_island_dict(x) for x in find_islands(graph, file.areas.fence, file.geometry, file.areas.ids)]
-    n_links = 0
+    built = area_graph(file.geometry, file.areas, rules.graph, notes=notes)
+    graph = built.graph
+    found = [_island_dict(x) for x in built.islands]
+    n_links = built.links
     if rules.graph.links is not None:
         inputs.append(Path(rules.graph.links))
-        li, lj = read_links(rules.graph.links, file.areas.ids)
-        graph = add_links(graph, li, lj)
-        n_links = int(li.shape[0])
-        linked = set(file.areas.ids[li].tolist()) | set(file.areas.ids[lj].tolist())
-        for island in found:
-            island["linked"] = bool(linked & set(island.get("ids", [])))
     for island in found:
-        island.setdefault("linked", False)
+        # whether a declared link joins the island to the rest of its fence
+        island["linked"] = bool(built.linked & set(island.get("ids", [])))
     seconds["graph"] = time.perf_counter() - t0
     stage.close()
     return Prepared(
@@ -388,53 +380,16 @@ def finish(
 
 def explain_breaks(prep: Prepared, lookup: Mapping[str, np.ndarray], breaks: list[dict]) -> list[dict]:
     """A plain-words proof for each fence whose breaks no zoning could avoid."""
-    from zonedesign.verify.proofs import prove_infeasible
-    from zonedesign.zonetables import bounds_of
+    from zonedesign.breakproofs import explain_breaks as explain
 
-    out = []
-    seen = set()
-    for b in breaks:
-        key = (b["tier"], b["fence"])
-        if key in seen:
-            continue
-        seen.add(key)
-        tier = prep.rules.tier(b["tier"])
-        problem = fence_units_problem(prep, lookup, b["tier"], b["fence"], bounds_of(tier, prep.areas.count_names), tier)
-        proof = prove_infeasible(problem, b["fence"], b["tier"], time_limit=10.0)
-        if proof is None:
-            out.append({"tier": b["tier"], "fence": b["fence"], "status": "no proof",
-                        "text": "the search did not meet every bound here, and no proof says it is impossible"})
-        else:
-            out.append(_jsonable(proof))
-    return out
+    return [_jsonable(p) for p in explain(prep.areas, prep.graph, prep.rules.tiers, lookup, breaks)]
 
 
 def fence_units_problem(prep, lookup, tier_name, fence, bounds, tier):
     """The free problem of one fence of one tier, over that tier's units."""
-    from zonedesign.graph.collapse import collapse
-    from zonedesign.measures import compact_labels, zone_perimeter, zone_sums
-    from zonedesign.records import Problem
+    from zonedesign.breakproofs import units_problem
 
-    names = [t.name for t in prep.rules.tiers]
-    t = names.index(tier_name)
-    mask = prep.areas.fence == fence
-    idx = np.flatnonzero(mask)
-    g = prep.graph.subgraph(idx)
-    if t == 0:
-        codes, k = np.arange(idx.shape[0]), idx.shape[0]
-    else:
-        codes, k = compact_labels(np.asarray(lookup[names[t - 1]], dtype=object)[idx])
-    counts = zone_sums(codes, k, prep.areas.counts[idx])
-    return Problem(
-        graph=collapse(g, codes, k),
-        counts=counts,
-        bounds=bounds,
-        attrs=np.zeros((k, 0)),
-        weight=np.ones(k),
-        area=zone_sums(codes, k, prep.areas.area[idx]),
-        perimeter=zone_perimeter(g, codes, k, prep.areas.perimeter[idx]),
-        term_weights=dict(tier.weights),
-    )
+    return units_problem(prep.areas, prep.graph, prep.rules.tiers, lookup, tier_name, fence, bounds)
 
 
 def _violations(checked: Any) -> list:
@@ -675,11 +630,23 @@ def sweep(
     report: bool = True,
     progress: Progress | None = None,
 ) -> RunResult:
-    """One design (or redraw) per combination of varied rule values, measured side by side."""
+    """One design (or redraw) per variant of the rules, measured side by side.
+
+    Writes sweep.csv, summary.json, charts/, report.html and variants/<name>/ (lookup.csv,
+    zones.gpkg, rules.toml, summary.json) per valid variant.
+    """
     from zonedesign.executors import make_executor
-    from zonedesign.io.lookup import write_lookup
+    from zonedesign.graph.areagraph import area_graph
     from zonedesign.io.output import atomic_output, write_json
-    from zonedesign.sweep import VariantTask, charts, parse_vary, run_variant, variants
+    from zonedesign.sweep import (
+        VariantTask,
+        parse_vary,
+        run_variant,
+        sweep_table,
+        variant_summary,
+        variants,
+        write_variant,
+    )
 
     t_start = time.perf_counter()
     bars = TaskBars(progress, lambda tasks: "variants")
@@ -687,41 +654,58 @@ def sweep(
     if out is not None:
         _check_out(Path(out), overwrite)
     prep = prepare(areas_path, rules, layer=layer, crs=crs, progress=progress)
-    keys = parse_vary(vary, prep.rules)
+    axes = parse_vary(vary, prep.rules)
     prev = None
     if previous is not None:
         prep.inputs.append(Path(previous))
         prev, _ = read_previous(previous, prep, mend=False)
     if out is not None:
         _check_out(Path(out), overwrite, prep.inputs)
-    vs = variants(prep.rules, keys)
+    vs = variants(prep.rules, axes)
+    if all(v.rules is None for v in vs):
+        raise InputError(f"--vary: no variant gives valid rules; variant {vs[0].name}: {vs[0].error}")
+    # a variant that changes graph.* keys is designed and audited on its own graph
+    graphs = {prep.rules.graph: (prep.graph, None)}
+    tasks = []
+    for v in vs:
+        if v.rules is not None and v.rules.graph not in graphs:
+            built = area_graph(prep.geometry, prep.areas, v.rules.graph, notes=[])
+            graphs[v.rules.graph] = (built.graph, {"contiguity": v.rules.graph.contiguity,
+                                                   "edges": built.graph.n_edges, "links": built.links,
+                                                   "islands": [_island_dict(x) for x in built.islands]})
+        graph = graphs[v.rules.graph][0] if v.rules is not None else prep.graph
+        tasks.append(VariantTask(variant=v, areas=prep.areas, graph=graph, previous=prev))
     _say(progress, f"sweeping {len(vs)} variant(s)")
-    tasks = [VariantTask(variant=v, areas=prep.areas, graph=prep.graph, previous=prev) for v in vs]
     with _closing(run):
-        rows = run(tasks, run_variant)
-    lookups = [r.pop("_lookup") for r in rows]
-    table = pd.DataFrame(rows)
-    summary = base_summary(prep, "sweep")
-    summary["sweep"] = {"vary": {k: v for k, v in keys}, "variants": _jsonable(table.to_dict("records"))}
+        results = run(tasks, run_variant)
+    tiers = [t.name for t in prep.rules.tiers]
+    table = sweep_table(results, tiers)
+    head = base_summary(prep, "sweep")
+    summary = dict(head)
+    summary["sweep"] = {
+        "vary": [{"keys": list(a.keys), "values": [list(g) for g in a.values]} for a in axes],
+        "variants": _jsonable(table.to_dict("records")),
+        "invalid": [{"variant": v.number, "name": v.name, "problem": v.error} for v in vs if v.rules is None],
+    }
     summary["seconds"] = {"total": round(time.perf_counter() - t_start, 3)}
-    failed = int(table["bound_breaks"].sum()) > 0 or not bool(table["audit_ok"].all())
+    failed = any(r.row.get("valid") is False or r.row.get("audit_ok") is False or r.breaks or r.failures
+                 for r in results)
     summary["exit_code"] = 1 if failed else 0
-    pngs = charts(table, [k for k, _ in keys])
     if out is not None:
         with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
             _say(progress, f"writing {out}")
             table.to_csv(tmp / "sweep.csv", index=False, lineterminator="\n")
-            for name, data in pngs.items():
-                (tmp / name).write_bytes(data)
-            for v, lk in zip(vs, lookups):
-                folder = tmp / "variants" / f"{v.number:03d}"
-                folder.mkdir(parents=True)
-                write_lookup(folder / "lookup.csv", prep.areas.ids, lk)
+            layers = {}
+            for v, r in zip(vs, results):
+                if v.rules is None:
+                    continue
+                vsum = variant_summary(head, v, r, graphs[v.rules.graph][1])
+                layers[v.number] = write_variant(tmp / "variants" / v.name, prep.geometry, prep.areas.ids, r, vsum)
             write_json(tmp / "summary.json", summary)
             if report:
-                from zonedesign.report.html import write_report
+                from zonedesign.report.sweepreport import write_sweep_report
 
-                write_report(tmp / "report.html", summary=summary, tables={}, layers={}, sweep=table, sweep_charts=pngs)
+                write_sweep_report(tmp, summary=summary, table=table, variants=vs, results=results, layers=layers)
     return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=summary["exit_code"])
 
 

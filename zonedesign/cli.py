@@ -174,7 +174,11 @@ def _parser() -> argparse.ArgumentParser:
 
     s = sp_("sweep", "compare threshold rules: design (or redraw) for every combination of values")
     inputs(s)
-    s.add_argument("--vary", action="append", required=True, metavar="KEY=V1,V2,...")
+    s.add_argument(
+        "--vary", action="append", required=True, metavar="KEY=V1,V2,...",
+        help="values of one rules key (a:b:step is a range, ends included); tied keys "
+        "K1,K2=A1/A2,B1/B2 move together; every combination of the --vary items is one variant",
+    )
     s.add_argument("--previous", type=Path, help="redraw against this lookup instead of designing")
     common(s)
     executor(s)
@@ -407,9 +411,11 @@ def _done(res, say) -> int:
     viol += len((s.get("audit", {}).get("overlay") or {}).get("flags") or [])  # areas split between zones
     fails = len(s.get("fence_failures", []))
     if s.get("command") == "sweep":
-        rows = s.get("sweep", {}).get("variants", [])
-        brk = sum(int(r.get("bound_breaks", 0)) for r in rows)
+        rows = [r for r in s.get("sweep", {}).get("variants", []) if r.get("valid")]
+        brk = sum(int(r.get("bound_breaks") or 0) for r in rows)
         viol = sum(1 for r in rows if not r.get("audit_ok", True))
+        for bad in s.get("sweep", {}).get("invalid", []):
+            say(f"variant {bad['name']} not run: {bad['problem']}")
     code = int(res.exit_code)
     if code == 0:
         say("finished: every rule holds")

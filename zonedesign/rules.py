@@ -795,9 +795,42 @@ def apply_override(rules: Rules, key: str, value: str) -> Rules:
 
     >>> r = apply_override(rules, "tier.1.min.households", "30")
     """
-    parts = key.split(".")
+    return apply_overrides(rules, [(key, value)])
+
+
+def apply_overrides(rules: Rules, items: Sequence[tuple[str, str]]) -> Rules:
+    """The rules with every (key, value) of `items` changed, then checked as a whole.
+
+    One variant of a sweep changes several keys at once (a floor and its target); each
+    alone may contradict the base rules, so only the combined rules are validated.
+    """
     data = _rules_data(rules)
-    parsed = _override_value(value)
+    for key, value in items:
+        _set_override(rules, data, key, _override_value(value))
+    where = ", ".join(f"{k}={v}" for k, v in items)
+    built = _build(data, _Check(f"override {where}", None), None)
+    return replace(built, source=rules.source, text=rules.text)
+
+
+def override_key(rules: Rules, key: str) -> str:
+    """The one spelling of a sweep key: tiers by number (`tier.block.min.x` -> `tier.1.min.x`).
+
+    Raises RulesError naming the key when it names no tier, field, count column or term.
+    """
+    parts = key.split(".")
+    _set_override(rules, _rules_data(rules), key, 0)
+    if parts[0] == "tier":
+        field = parts[2]
+        if len(parts) == 4 and field in BOUND_KEYS and parts[3] not in rules.areas.counts:
+            _bad_key(key, f"{parts[3]!r} is not a count column (counts: {', '.join(rules.areas.counts)})")
+        if len(parts) == 4 and field == "weights" and parts[3] not in TERMS:
+            _bad_key(key, f"no objective term {parts[3]!r} (terms: {', '.join(TERMS)})")
+        parts[1] = str(_tier_position(rules, parts[1], key) + 1)
+    return ".".join(parts)
+
+
+def _set_override(rules: Rules, data: dict, key: str, parsed: object) -> None:
+    parts = key.split(".")
     head = parts[0]
     if head == "tier" and len(parts) in (3, 4):
         k = _tier_position(rules, parts[1], key)
@@ -819,8 +852,6 @@ def apply_override(rules: Rules, key: str, value: str) -> Rules:
         data[head][parts[1]] = parsed
     else:
         _bad_key(key, "not a sweep key")
-    built = _build(data, _Check(f"override {key}={value}", None), None)
-    return replace(built, source=rules.source, text=rules.text)
 
 
 def _override_value(value: str) -> object:

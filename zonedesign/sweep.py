@@ -1,32 +1,54 @@
-"""Sweep threshold rules: one design (or redraw) per combination of varied rule values.
+"""Sweep threshold rules: one design (or redraw) per variant of the rules, measured side by side.
 
-`--vary KEY=V1,V2,...` keys are those of `rules.apply_override`, e.g.
-`tier.1.min.households=40,50,60` (tiers counted from 1 at the bottom, or by name).
-Variants are independent tasks, so they run through the same executors as fences.
+`--vary` items (keys of `rules.apply_overrides`, tiers counted from 1 at the bottom or named):
+
+    tier.1.min.households=30,40,50            one key, listed values
+    tier.1.min.households=30:60:10            a range, both ends included: 30, 40, 50, 60
+    tier.2.min.POP8,tier.2.target.POP8=20000/30000,40000/50000
+                                              tied keys: values move together, one group each
+
+Variants are every combination of the items. Each variant's rules are the base rules with
+all of its values applied, then checked as a whole: a variant that breaks a rule of the
+rules file (a floor above its target) is reported with the reason and the others still run.
+A variant that changes a `graph.*` key gets its own graph. Variants are independent tasks,
+so they run through the same executors as fences.
 """
 
 from __future__ import annotations
 
-import io
-import itertools
+import re
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from decimal import Decimal, InvalidOperation
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from zonedesign.errors import InputError
+from zonedesign.errors import InputError, RulesError
 from zonedesign.records import Areas, Graph
-from zonedesign.redraw import unchanged_share
-from zonedesign.rules import Rules, apply_override
+from zonedesign.rules import Rules, apply_overrides, override_key, rules_to_toml
+
+MAX_VARIANTS = 1000  # a sweep beyond this is a typo (a range step too small), not a plan
+PROOF_SECONDS = 5.0  # CP-SAT time per failing fence when seeking its proof
+
+
+@dataclass(frozen=True)
+class Axis:
+    """One `--vary` item: keys that move together and their value groups."""
+
+    keys: tuple[str, ...]  # as the user wrote them
+    values: tuple[tuple[str, ...], ...]  # one group per step, a value per key
 
 
 @dataclass(frozen=True)
 class Variant:
     number: int
-    values: tuple[tuple[str, str], ...]
-    rules: Rules
+    values: tuple[tuple[str, str], ...]  # (key as written, value)
+    name: str  # folder name under variants/, readable: tier2-min-POP8-40000
+    rules: Rules | None  # None when the combined rules are invalid
+    error: str = ""  # why the combined rules are invalid
 
 
 @dataclass(frozen=True)
@@ -35,103 +57,239 @@ class VariantTask:
     areas: Areas
     graph: Graph
     previous: dict[str, np.ndarray] | None
+    proof_seconds: float = PROOF_SECONDS
 
 
-def parse_vary(items: Sequence[str], rules: Rules) -> list[tuple[str, list[str]]]:
-    """Parse `KEY=V1,V2,...` items; every key is tried on the rules so errors name it."""
-    out: list[tuple[str, list[str]]] = []
-    seen = set()
+@dataclass
+class VariantResult:
+    """A variant's zones and every figure its summary.json and sweep.csv row hold."""
+
+    row: dict
+    lookup: dict[str, np.ndarray] = field(default_factory=dict)
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    audit: dict = field(default_factory=dict)
+    tiers: dict = field(default_factory=dict)
+    breaks: list[dict] = field(default_factory=list)
+    proofs: list[dict] = field(default_factory=list)
+    failures: list[dict] = field(default_factory=list)
+
+
+# ---------------------------------------------------------------- parsing --vary
+
+
+def parse_vary(items: Sequence[str], rules: Rules) -> list[Axis]:
+    """Parse `--vary` items; a bad key, or one key named twice, is an InputError naming it."""
+    out: list[Axis] = []
+    seen: dict[str, str] = {}
     for item in items:
         if "=" not in item:
             raise InputError(f"--vary {item!r}: expected KEY=V1,V2,... (e.g. tier.1.min.households=30,40)")
-        key, _, rest = item.partition("=")
-        key = key.strip()
-        values = [v.strip() for v in rest.split(",") if v.strip()]
-        if not key:
+        head, _, rest = item.partition("=")
+        keys = tuple(k.strip() for k in head.split(","))
+        if not head.strip() or any(not k for k in keys):
             raise InputError(f"--vary {item!r}: the key before '=' is empty")
-        if not values:
-            raise InputError(f"--vary {key}: no values after '='")
-        if key in seen:
-            raise InputError(f"--vary {key}: given twice")
-        seen.add(key)
-        for v in values:
-            apply_override(rules, key, v)  # raises RulesError naming the key
-        out.append((key, values))
+        for key in keys:
+            try:
+                canonical = override_key(rules, key)
+            except RulesError as exc:
+                raise InputError(f"--vary {key}: {exc}") from None
+            if canonical in seen:
+                also = f" (as {seen[canonical]} and {key})" if seen[canonical] != key else ""
+                raise InputError(f"--vary {key}: the same key is given twice{also}; give each key once")
+            seen[canonical] = key
+        groups = [g.strip() for g in rest.split(",") if g.strip()]
+        if not groups:
+            raise InputError(f"--vary {head.strip()}: no values after '='")
+        values: list[tuple[str, ...]] = []
+        for group in groups:
+            parts = [p.strip() for p in group.split("/")] if len(keys) > 1 else [group]
+            if len(parts) != len(keys):
+                raise InputError(
+                    f"--vary {head.strip()}: value group {group!r} has {len(parts)} value(s) for "
+                    f"{len(keys)} tied keys; write one value per key, joined by '/'"
+                )
+            expanded = [expand_range(p, keys[k]) for k, p in enumerate(parts)]
+            steps = {len(e) for e in expanded} - {1}
+            if len(steps) > 1:
+                raise InputError(f"--vary {head.strip()}: ranges in group {group!r} have different lengths")
+            n = steps.pop() if steps else 1
+            values += [tuple(e[i] if len(e) > 1 else e[0] for e in expanded) for i in range(n)]
+        out.append(Axis(keys=keys, values=tuple(values)))
     if not out:
         raise InputError("sweep needs at least one --vary KEY=V1,V2,...")
+    total = int(np.prod([len(a.values) for a in out]))
+    if total > MAX_VARIANTS:
+        raise InputError(f"--vary: {total:,} variants requested, more than {MAX_VARIANTS:,}; use fewer values")
     return out
 
 
-def variants(rules: Rules, vary: list[tuple[str, list[str]]]) -> list[Variant]:
-    out = []
-    keys = [k for k, _ in vary]
-    for n, combo in enumerate(itertools.product(*[v for _, v in vary]), start=1):
-        r = rules
-        for key, value in zip(keys, combo):
-            r = apply_override(r, key, value)
-        out.append(Variant(number=n, values=tuple(zip(keys, combo)), rules=r))
+def expand_range(text: str, key: str) -> list[str]:
+    """`a:b:step` as its values, both ends included (`30:60:10` -> 30, 40, 50, 60); other text as is."""
+    if ":" not in text:
+        return [text]
+    bits = text.split(":")
+    try:
+        if len(bits) != 3:
+            raise InvalidOperation
+        a, b, step = (Decimal(x.strip()) for x in bits)
+    except InvalidOperation:
+        raise InputError(f"--vary {key}: range {text!r} is not start:stop:step (e.g. 30:60:10)") from None
+    if step <= 0 or b < a:
+        raise InputError(f"--vary {key}: range {text!r} needs start <= stop and a step above 0")
+    n = int((b - a) / step) + 1
+    if n > MAX_VARIANTS:
+        raise InputError(f"--vary {key}: range {text!r} gives {n:,} values, more than {MAX_VARIANTS:,}")
+    return [_plain_decimal(a + i * step) for i in range(n)]
+
+
+def _plain_decimal(d: Decimal) -> str:
+    text = format(d.normalize(), "f")
+    return text if text not in ("-0",) else "0"
+
+
+# ---------------------------------------------------------------- variants
+
+
+def variants(rules: Rules, axes: Sequence[Axis]) -> list[Variant]:
+    """Every combination of the axes' value groups, each with its rules checked as a whole."""
+    import itertools
+
+    out: list[Variant] = []
+    names: set[str] = set()
+    for n, combo in enumerate(itertools.product(*[a.values for a in axes]), start=1):
+        values = tuple((k, v) for axis, group in zip(axes, combo) for k, v in zip(axis.keys, group))
+        name = variant_name(values, n, names)
+        names.add(name)
+        try:
+            r = apply_overrides(rules, list(values))
+            r = replace_text(r)
+            out.append(Variant(number=n, values=values, name=name, rules=r))
+        except RulesError as exc:
+            out.append(Variant(number=n, values=values, name=name, rules=None, error=str(exc)))
     return out
 
 
-def run_variant(task: VariantTask) -> dict:
-    """Design (or redraw) one variant and measure it; runs in a worker."""
+def replace_text(rules: Rules) -> Rules:
+    """The variant's rules with its own TOML text (summary.json and rules.toml show it)."""
+    from dataclasses import replace
+
+    return replace(rules, text=rules_to_toml(rules))
+
+
+_UNSAFE = re.compile(r"[^A-Za-z0-9._+-]+")
+
+
+def variant_name(values: Sequence[tuple[str, str]], number: int, taken: set[str]) -> str:
+    """A folder name that says what the variant changes: `tier2-min-POP8-40000`."""
+    words = []
+    for key, value in values:
+        parts = key.split(".")
+        if parts[0] == "tier" and len(parts) > 1:
+            parts = [f"tier{parts[1]}", *parts[2:]]
+        words.append("-".join([*parts, value]))
+    name = _UNSAFE.sub("-", "_".join(words)).strip("-.") or f"variant-{number:03d}"
+    if len(name) > 120:
+        name = f"variant-{number:03d}"
+    while name in taken:
+        name = f"{name}-{number}"
+    return name
+
+
+# ---------------------------------------------------------------- running one variant
+
+
+def run_variant(task: VariantTask) -> VariantResult:
+    """Design (or redraw) one variant, audit it and measure it; runs in a worker."""
     from zonedesign.hierarchy import build_hierarchy, serial_executor
     from zonedesign.redraw import redraw_hierarchy
     from zonedesign.verify.checks import audit
-    from zonedesign.zonetables import all_tables
+    from zonedesign.zonetables import all_tables, tier_figures
 
     t0 = time.perf_counter()
-    rules = task.variant.rules
+    v = task.variant
+    row: dict = {"variant": v.number, "name": v.name}
+    for key, value in v.values:
+        row[key] = _number(value)
+    if v.rules is None:
+        row.update({"valid": False, "problem": v.error, "audit_ok": False})
+        return VariantResult(row=row)
+    rules = v.rules
     if task.previous is None:
-        lookup = build_hierarchy(task.areas, task.graph, rules, executor=serial_executor).lookup()
+        result = build_hierarchy(task.areas, task.graph, rules, executor=serial_executor)
     else:
-        lookup = redraw_hierarchy(task.areas, task.graph, rules, task.previous, executor=serial_executor).lookup()
+        result = redraw_hierarchy(task.areas, task.graph, rules, task.previous, executor=serial_executor)
+    lookup = result.lookup()
+    failures = [{"fence": f.fence, "tier": t.name, "error": f.error} for t in result.tiers for f in t.fences if f.error]
     tables = all_tables(task.areas, task.graph, lookup, rules.tiers)
     checked = audit(task.areas, task.graph, lookup, list(rules.tiers))
-    row: dict = {"variant": task.variant.number}
-    for key, value in task.variant.values:
-        row[key] = _number(value)
-    breaks = 0
+    breaks = []
     for tier in rules.tiers:
         df = tables[tier.name]
-        breaks += int(df["bound_break"].sum())
-        row[f"zones.{tier.name}"] = int(len(df))
-        row[f"breaks.{tier.name}"] = int(df["bound_break"].sum())
-        row[f"polsby_popper.median.{tier.name}"] = float(df["polsby_popper"].median())
-        row[f"polsby_popper.p10.{tier.name}"] = float(df["polsby_popper"].quantile(0.1))
-        row[f"homogeneity.median.{tier.name}"] = float(df["homogeneity"].median())
-        row[f"homogeneity.p10.{tier.name}"] = float(df["homogeneity"].quantile(0.1))
-        within = [c for c in df.columns if c.endswith("_vs_target")]
-        row[f"within_10pct.{tier.name}"] = float((df[within[0]].abs() <= 0.1).mean()) if within else float("nan")
-        if task.previous is not None:
-            row[f"share_changed.{tier.name}"] = 1.0 - unchanged_share(task.previous[tier.name], lookup[tier.name])
-    row["bound_breaks"] = breaks
-    row["fences_infeasible"] = _infeasible_fences(task, lookup, tables)
+        for _, r in df[df["bound_break"]].iterrows():
+            breaks.append({"tier": tier.name, "zone": r["zone"], "fence": r["fence"], "breaks": r["breaks"]})
+    proofs = _proofs(task, lookup, breaks)
+    figures = {t.name: tier_figures(tables[t.name], t, task.areas.count_names) for t in rules.tiers}
+    row["valid"] = True
+    row["problem"] = ""
+    row.update(measure_row(figures, task.areas.count_names))
+    if task.previous is not None:
+        from zonedesign.redraw import matched_moves
+
+        for tier in rules.tiers:
+            row[f"areas_changed_vs_previous.{tier.name}"] = matched_moves(task.previous[tier.name], lookup[tier.name])
+    row["bound_breaks"] = len(breaks)
+    row["fences_infeasible"] = sum(1 for p in proofs if p.get("status") == "INFEASIBLE")
+    row["fence_failures"] = len(failures)
     row["audit_ok"] = bool(checked.ok)
     row["seconds"] = round(time.perf_counter() - t0, 3)
-    row["_lookup"] = lookup
+    violations = [_plain(x) for x in getattr(checked, "violations", [])]
+    return VariantResult(
+        row=row, lookup=lookup, tables=tables, audit={"ok": bool(checked.ok), "violations": violations},
+        tiers=figures, breaks=breaks, proofs=proofs, failures=failures,
+    )
+
+
+def measure_row(figures: dict, count_names: Sequence[str]) -> dict:
+    """The sweep.csv figures of one variant, read from its summary's tier figures.
+
+    sweep.csv and each variant's summary.json are the same numbers by construction.
+    """
+    row: dict = {}
+    for tier, f in figures.items():
+        row[f"zones.{tier}"] = f["zones"]
+        row[f"breaks.{tier}"] = f["bound_breaks"]
+        for c in count_names:
+            row[f"smallest.{tier}.{c}"] = f["counts"][c]["min"]
+        for c, share in f["share_within_10pct_of_target"].items():
+            row[f"within_10pct.{tier}.{c}"] = share
+        row[f"polsby_popper.median.{tier}"] = f["polsby_popper"]["median"]
+        row[f"homogeneity.median.{tier}"] = f["homogeneity"]["median"]
     return row
 
 
-def _infeasible_fences(task: VariantTask, lookup, tables) -> int:
-    """Fences with a break that the arithmetic or CP-SAT proofs show cannot be avoided."""
-    from zonedesign.api import Prepared, fence_units_problem
-    from zonedesign.verify.proofs import prove_infeasible
-    from zonedesign.zonetables import bounds_of
+def _proofs(task: VariantTask, lookup, breaks: list[dict]) -> list[dict]:
+    """A proof (or a stated lack of one) per fence holding a break, as plain dicts."""
+    from zonedesign.breakproofs import explain_breaks
 
-    prep = Prepared(rules=task.variant.rules, areas=task.areas, geometry=None, graph=task.graph,
-                    notes=[], islands=[], links=0, inputs=[])
-    n = 0
-    for tier in task.variant.rules.tiers:
-        df = tables[tier.name]
-        for fence in sorted(set(df.loc[df["bound_break"], "fence"])):
-            problem = fence_units_problem(prep, lookup, tier.name, fence, bounds_of(tier, task.areas.count_names), tier)
-            proof = prove_infeasible(problem, fence, tier.name, time_limit=5.0)
-            if proof is not None and str(getattr(proof, "status", "")).lower() in ("infeasible", "proven", "arithmetic"):
-                n += 1
-            elif proof is not None and getattr(proof, "kind", "") == "arithmetic":
-                n += 1
-    return n
+    found = explain_breaks(task.areas, task.graph, task.variant.rules.tiers, lookup, breaks,
+                           time_limit=task.proof_seconds)
+    return [_plain(p) for p in found]
+
+
+def _plain(obj):
+    if hasattr(obj, "to_json"):
+        return obj.to_json()
+    if hasattr(obj, "__dataclass_fields__"):
+        return {k: _plain(getattr(obj, k)) for k in obj.__dataclass_fields__}
+    if isinstance(obj, dict):
+        return {str(k): _plain(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_plain(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [_plain(v) for v in obj.tolist()]
+    if isinstance(obj, np.generic):
+        return obj.item()
+    return obj
 
 
 def _number(value: str):
@@ -142,36 +300,76 @@ def _number(value: str):
         return value
 
 
-def charts(table: pd.DataFrame, keys: list[str]) -> dict[str, bytes]:
-    """One PNG per measure against the first varied key (one line per other combination)."""
-    import matplotlib
+# ---------------------------------------------------------------- comparing variants
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
 
-    measures = [c for c in table.columns if c.split(".")[0] in
-                ("zones", "breaks", "polsby_popper", "homogeneity", "within_10pct", "share_changed")]
-    measures += ["bound_breaks", "fences_infeasible", "seconds"]
-    x = keys[0]
-    others = keys[1:]
-    out = {}
-    for m in measures:
-        if m not in table:
-            continue
-        fig, ax = plt.subplots(figsize=(5.2, 3.2), dpi=90)
-        groups = table.groupby(others, sort=True) if others else [((), table)]
-        for name, g in groups:
-            g = g.sort_values(x)
-            label = ", ".join(f"{k}={v}" for k, v in zip(others, name if isinstance(name, tuple) else (name,)))
-            ax.plot(g[x], g[m], marker="o", label=label or None)
-        ax.set_xlabel(x)
-        ax.set_ylabel(m)
-        ax.grid(True, alpha=0.3)
-        if others:
-            ax.legend(fontsize=7)
-        fig.tight_layout()
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png")
-        plt.close(fig)
-        out[f"sweep_{m}.png"] = buf.getvalue()
+def changes_between(results: Sequence[VariantResult], tiers: Sequence[str]) -> pd.DataFrame:
+    """Areas changing zone per tier from each valid variant to the next, and from the first.
+
+    Zones are matched one to one by their areas (redraw.matched_moves), so a zone that
+    only carries another code is not counted as changed.
+    """
+    from zonedesign.redraw import matched_moves
+
+    valid = [r for r in results if r.lookup]
+    rows = []
+    for k, r in enumerate(valid):
+        rec = {"variant": r.row["variant"], "name": r.row["name"]}
+        for t in tiers:
+            rec[f"areas_changed_vs_first.{t}"] = matched_moves(valid[0].lookup[t], r.lookup[t])
+            rec[f"areas_changed_vs_before.{t}"] = (
+                matched_moves(valid[k - 1].lookup[t], r.lookup[t]) if k else 0
+            )
+        rows.append(rec)
+    return pd.DataFrame(rows)
+
+
+def sweep_table(results: Sequence[VariantResult], tiers: Sequence[str]) -> pd.DataFrame:
+    """sweep.csv: one row per variant, valid or not, with the changes between variants."""
+    table = pd.DataFrame([r.row for r in results])
+    moved = changes_between(results, tiers)
+    if not moved.empty:
+        table = table.merge(moved.drop(columns=["name"]), on="variant", how="left")
+    return table
+
+
+def variant_summary(head: dict, variant: Variant, result: VariantResult, graph_head: dict | None = None) -> dict:
+    """The summary.json of one variant's folder: the run's head with the variant's own rules."""
+    rules = variant.rules
+    out = dict(head)
+    out["command"] = "sweep variant"
+    out["variant"] = {"number": variant.number, "name": variant.name,
+                      "values": {k: v for k, v in variant.values}}
+    if graph_head is not None:
+        out["graph"] = graph_head
+    out["rules"] = rules.text
+    out["tier_order"] = [t.name for t in rules.tiers]
+    out["objective"] = {
+        t.name: {"homogeneity": t.homogeneity, "compactness": t.compactness, "weights": dict(t.weights)}
+        for t in rules.tiers
+    }
+    out["audit"] = result.audit
+    out["certificate"] = []  # variants are audited; run `design` on the chosen rules to certify
+    out["tiers"] = result.tiers
+    out["bound_breaks"] = result.breaks
+    out["proofs"] = result.proofs
+    out["fence_failures"] = result.failures
+    out["sweep_row"] = {k: v for k, v in result.row.items()}
+    failed = bool(result.breaks) or not result.audit.get("ok", False) or bool(result.failures)
+    out["exit_code"] = 1 if failed else 0
     return out
+
+
+def write_variant(folder: Path, geometry, ids: np.ndarray, result: VariantResult, summary: dict) -> dict:
+    """lookup.csv, zones.gpkg, rules.toml and summary.json of one variant; returns its layers."""
+    from zonedesign.dissolve import zone_layers
+    from zonedesign.io.lookup import write_lookup
+    from zonedesign.io.output import write_json, write_layers_gpkg
+
+    folder.mkdir(parents=True)
+    write_lookup(folder / "lookup.csv", ids, result.lookup)
+    layers = zone_layers(geometry, result.lookup, result.tables)
+    write_layers_gpkg(folder / "zones.gpkg", layers)
+    (folder / "rules.toml").write_text(summary["rules"], encoding="utf-8")
+    write_json(folder / "summary.json", summary)
+    return layers

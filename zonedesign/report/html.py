@@ -28,7 +28,7 @@ import pandas as pd
 from zonedesign.report.format import esc
 from zonedesign.report.plan import MAPS_BYTES, REPORT_BYTES, ReportPlan
 from zonedesign.report.sections import SECTIONS, headline
-from zonedesign.report.style import SCRIPT, css, defs
+from zonedesign.report.style import SCRIPT, SCRIPT_HASH, css, defs
 
 __all__ = ["DEFAULT_CAUTION", "MAPS_BYTES", "REPORT_BYTES", "render_report", "write_report"]
 
@@ -46,15 +46,13 @@ def write_report(
     layers: Mapping[str, Any],
     graph: Mapping[str, Iterable[tuple[str, str]]] | None = None,
     changes: pd.DataFrame | None = None,
-    sweep: pd.DataFrame | None = None,
-    sweep_charts: Mapping[str, bytes] | None = None,
 ) -> None:
     """Write the run's report to `path` (UTF-8 HTML, self-contained).
 
     summary: the run's summary.json dict; tables: zone table per tier, bottom first;
     layers: the same zones with geometry (projected CRS); graph: optional extra
     (zone, zone) pairs per tier that count as neighbours when colouring (declared links);
-    changes: a redraw's change table; sweep, sweep_charts: a sweep's table and PNG charts.
+    changes: a redraw's change table. A sweep has its own page (report.sweepreport).
     """
     text = render_report(
         summary=summary,
@@ -62,8 +60,6 @@ def write_report(
         layers=layers,
         graph=graph,
         changes=changes,
-        sweep=sweep,
-        sweep_charts=sweep_charts,
     )
     Path(path).write_text(text, encoding="utf-8")
 
@@ -75,8 +71,6 @@ def render_report(
     layers: Mapping[str, Any],
     graph: Mapping[str, Iterable[tuple[str, str]]] | None = None,
     changes: pd.DataFrame | None = None,
-    sweep: pd.DataFrame | None = None,
-    sweep_charts: Mapping[str, bytes] | None = None,
 ) -> str:
     """The report as one HTML string (see `write_report`)."""
     plan = ReportPlan(
@@ -85,13 +79,19 @@ def render_report(
         layers=dict(layers or {}),
         links=dict(graph or {}),
         changes=changes,
-        sweep=sweep,
-        sweep_charts=dict(sweep_charts or {}),
     )
     plan.prepare()
+    contents, body = render_sections(SECTIONS, plan)
+    command = str(plan.summary.get("command") or "run")
+    caution = str(plan.summary.get("caution") or DEFAULT_CAUTION)
+    return page(command, caution, headline(plan), contents, body, plan.n_colours)
+
+
+def render_sections(sections, plan) -> tuple[list[str], list[str]]:
+    """Contents entries and section HTML; an empty section is left out of both."""
     body = []
     contents = []
-    for ident, title, make in SECTIONS:
+    for ident, title, make in sections:
         try:
             inner = make(plan)
         except Exception as exc:  # noqa: BLE001 - one broken section must not cost the whole report
@@ -103,23 +103,29 @@ def render_report(
             f'<section id="{ident}" aria-labelledby="{ident}-h">'
             f'<h2 id="{ident}-h">{esc(title)}</h2>{inner}</section>'
         )
-    command = str(plan.summary.get("command") or "run")
-    caution = str(plan.summary.get("caution") or DEFAULT_CAUTION)
+    return contents, body
+
+
+def page(command: str, caution: str, headline_html: str, contents: list[str], body: list[str],
+         n_colours: int, *, wide: bool = False) -> str:
+    """The page around the sections: strict content security policy, style, script."""
+    body_class = ' class="wide"' if wide else ""
     head = (
         "<!DOCTYPE html>\n"
         '<html lang="en"><head><meta charset="utf-8">'
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
-        # no fetch of any kind: the report must open the same offline
+        # no fetch of any kind: the report must open the same offline; the one inline
+        # script is allowed by its hash, never by 'unsafe-inline'
         '<meta http-equiv="Content-Security-Policy" content="default-src \'none\'; '
-        "img-src data:; style-src 'unsafe-inline'; script-src 'unsafe-inline'\">"
+        f"img-src data:; style-src 'unsafe-inline'; script-src '{SCRIPT_HASH}'\">"
         f"<title>zonedesign {esc(command)} report</title>"
-        f"<style>{css(plan.n_colours)}</style></head><body>"
+        f"<style>{css(n_colours)}</style></head><body{body_class}>"
     )
     top = (
         f"<header><h1>zonedesign {esc(command)} report</h1>"
         f'<div class="caution" role="note"><strong>Caution.</strong> {esc(caution)}</div>'
-        f"{headline(plan)}</header>"
+        f"{headline_html}</header>"
         f'<nav aria-label="Contents"><ul>{"".join(contents)}</ul></nav>'
     )
     tail = f'<div id="tip" role="tooltip" hidden></div><script>{SCRIPT}</script></body></html>\n'
-    return head + defs(plan.n_colours) + top + "<main>" + "".join(body) + "</main>" + tail
+    return head + defs(n_colours) + top + "<main>" + "".join(body) + "</main>" + tail

@@ -55,8 +55,6 @@ class ReportPlan:
     layers: dict[str, Any]
     links: dict
     changes: pd.DataFrame | None
-    sweep: pd.DataFrame | None
-    sweep_charts: dict[str, bytes]
     tiers: list[str] = field(default_factory=list)
     limits: dict = field(default_factory=dict)
     counts: list[str] = field(default_factory=list)

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -273,38 +272,6 @@ def _distributions(run: ReportPlan) -> str:
         )
         out.append('<h3 id="dist-shape">Shape and homogeneity</h3>')
         out.append(f'<img class="chart" src="{uri}" alt="{esc(f"Box plots per tier. {desc}")}">')
-    return "".join(out)
-
-
-def _sweep(run: ReportPlan) -> str:
-    table = run.sweep
-    if not isinstance(table, pd.DataFrame) or table.empty:
-        if not run.sweep_charts:
-            return ""
-        table = pd.DataFrame()
-    out = []
-    vary = get(run.summary, "sweep", "vary")
-    if isinstance(vary, dict) and vary:
-        out.append(
-            "<p>Varied: "
-            + esc(
-                "; ".join(
-                    f"{k} = {', '.join(map(str, v)) if isinstance(v, list) else v}"
-                    for k, v in vary.items()
-                )
-            )
-            + "</p>"
-        )
-    if not table.empty:
-        cols = [str(c) for c in table.columns]
-        rows = [[text_of(v) for v in rec] for rec in table.itertuples(index=False, name=None)]
-        out.append(html_table("One row per variant of the rules", cols, rows))
-    for name, data in run.sweep_charts.items():
-        label = Path(str(name)).stem.replace("_", " ")
-        out.append(
-            f'<figure class="chart"><img class="chart" src="{charts.png_uri(data)}" alt="{esc(f"Sweep chart: {label} against the varied rule")}">'
-            f"<figcaption>{esc(label)}</figcaption></figure>"
-        )
     return "".join(out)
 
 
@@ -722,7 +689,6 @@ SECTIONS: list[tuple[str, str, Callable[[ReportPlan], str]]] = [
     ("maps", "Maps", _maps),
     ("changes", "Changes since the previous zones", _changes),
     ("distributions", "Distributions", _distributions),
-    ("sweep", "Variants compared", _sweep),
     ("tiers", "Tiers", _tiers),
     ("zones", "Zones", _zones),
     ("fences", "Fences", _fences),

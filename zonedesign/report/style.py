@@ -7,6 +7,9 @@ that no signal rests on colour alone.
 
 from __future__ import annotations
 
+import base64
+import hashlib
+
 from zonedesign.report.colouring import WARNING, palette
 
 CHANGE_KINDS = ("kept", "merged", "split", "reshaped", "new")
@@ -77,7 +80,17 @@ def css(n_colours: int) -> str:
         "pre.rules{background:#fff;border:1px solid var(--rule);padding:10px 14px;overflow-x:auto;font-size:.85rem}"
         "figure{margin:.6em 0 1.2em}figcaption{color:var(--muted);font-size:.88rem}"
         "figure.map{background:#fff;border:1px solid var(--rule);padding:6px}"
-        "svg.zonemap{display:block;width:100%;height:auto;max-height:82vh}"
+        "svg.zonemap{display:block;width:100%;height:auto;max-height:82vh;cursor:grab;touch-action:none}"
+        "svg.zonemap:focus{outline:2px solid #1b4f86}"
+        "body.wide header,body.wide nav,body.wide main{max-width:1400px;padding:0 16px}"
+        ".maps-side{display:grid;grid-template-columns:repeat(auto-fill,minmax(300px,1fr));gap:10px}"
+        ".maps-side figure{margin:0}"
+        "table.decide{width:100%;table-layout:fixed;font-size:.8rem}"
+        "table.decide th,table.decide td{padding:3px 4px;overflow-wrap:anywhere}"
+        "table.decide td.num{text-align:right;font-variant-numeric:tabular-nums}"
+        "td.best{font-weight:700;background:#e4f1df!important}td.best::before{content:'\\2605 ';color:#1f5f3a}"
+        "td.bad{color:#a3241b;font-weight:600}"
+        "img.chart.full{width:100%;max-width:1360px}"
         "svg.defs{position:absolute;width:0;height:0;overflow:hidden}"
         ".zone{stroke:#ffffff;stroke-width:.7;vector-effect:non-scaling-stroke;stroke-linejoin:round}"
         ".zone:hover{stroke:#1f2328;stroke-width:2}"
@@ -122,5 +135,32 @@ for(var p=el.parentNode;p;p=p.parentNode){if(p.tagName==='DETAILS')p.open=true;}
 el.scrollIntoView({block:'center'});}
 addEventListener('hashchange',reveal);reveal();
 addEventListener('beforeprint',function(){document.querySelectorAll('details').forEach(function(d){d.open=true;});});
+function box(s){var b=s.viewBox.baseVal;return [b.x,b.y,b.width,b.height];}
+document.querySelectorAll('svg.zonemap').forEach(function(s){
+var home=box(s),grp=s.closest('.linked'),drag=null;s.setAttribute('tabindex','0');
+function set(v){(grp?grp.querySelectorAll('svg.zonemap'):[s]).forEach(function(m){
+m.setAttribute('viewBox',v.join(' '));});}
+function zoom(f,cx,cy){var b=box(s),w=b[2]*f,h=b[3]*f;
+if(w>=home[2]){set(home);return;}if(w<home[2]/400)return;
+set([cx-(cx-b[0])*f,cy-(cy-b[1])*f,w,h]);}
+function at(x,y){var r=s.getBoundingClientRect(),b=box(s),k=Math.max(b[2]/r.width,b[3]/r.height);
+return [b[0]+b[2]/2+(x-r.left-r.width/2)*k,b[1]+b[3]/2+(y-r.top-r.height/2)*k,k];}
+s.addEventListener('wheel',function(e){e.preventDefault();var p=at(e.clientX,e.clientY);
+zoom(e.deltaY<0?0.8:1.25,p[0],p[1]);},{passive:false});
+s.addEventListener('pointerdown',function(e){if(e.button===0)drag=[e.clientX,e.clientY];});
+addEventListener('pointerup',function(){drag=null;});
+s.addEventListener('pointermove',function(e){if(!drag)return;var b=box(s),k=at(0,0)[2];
+var dx=(e.clientX-drag[0])*k,dy=(e.clientY-drag[1])*k;drag=[e.clientX,e.clientY];
+if(dx||dy)set([b[0]-dx,b[1]-dy,b[2],b[3]]);});
+s.addEventListener('dblclick',function(){set(home);});
+s.addEventListener('keydown',function(e){var b=box(s),c=[b[0]+b[2]/2,b[1]+b[3]/2],m=b[2]/8;
+if(e.key==='+'||e.key==='=')zoom(0.8,c[0],c[1]);else if(e.key==='-')zoom(1.25,c[0],c[1]);
+else if(e.key==='0')set(home);else if(e.key==='ArrowLeft')set([b[0]-m,b[1],b[2],b[3]]);
+else if(e.key==='ArrowRight')set([b[0]+m,b[1],b[2],b[3]]);else if(e.key==='ArrowUp')set([b[0],b[1]-m,b[2],b[3]]);
+else if(e.key==='ArrowDown')set([b[0],b[1]+m,b[2],b[3]]);else return;e.preventDefault();});
+});
 })();
 """
+
+# the page's content security policy allows this one script by its hash (CSP level 2)
+SCRIPT_HASH = "sha256-" + base64.b64encode(hashlib.sha256(SCRIPT.encode("utf-8")).digest()).decode("ascii")
