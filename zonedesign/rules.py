@@ -29,6 +29,9 @@
 
     [search]
     method = "annealing"              # "descent", "annealing" or "tabu"
+    effort = "default"                # "quick", "default" or "thorough"
+    moves_per_unit = 0                # annealing moves per unit (0: from effort)
+    cooling = 0.97                    # temperature factor per step (unset: from effort)
     seed = 1
     constructions = 4
     time_limit_fence = 10.0           # seconds per fence and tier
@@ -54,6 +57,7 @@ if TYPE_CHECKING:
 
 TERMS = ("size", "homogeneity", "compactness", "stability")
 METHODS = ("descent", "annealing", "tabu")
+EFFORTS = ("quick", "default", "thorough")
 
 
 @dataclass(frozen=True)
@@ -109,11 +113,16 @@ class SearchRules:
     constructions: int = 4
     time_limit_fence: float = 10.0
     time_limit_total: float = 600.0
-    # annealing
-    cooling: float = 0.97
-    # independent runs from fresh constructions, best kept; 0: about 1,500 / units, 1 to 16
+    # how hard to search: a preset of moves_per_unit and cooling (search/schedule.py)
+    effort: str = "default"
+    # annealing trial moves per unit of a fence (0: from effort); a fence's moves grow
+    # with its units
+    moves_per_unit: int = 0
+    cooling: float | None = None  # temperature factor per step (None: from effort)
+    # independent runs from fresh constructions, best kept; 0: as many as the fence's
+    # move budget pays for, 1 to 16
     restarts: int = 0
-    moves_per_temperature: int = 0  # 0: a multiple of the number of units
+    moves_per_temperature: int = 0  # 0: the run's moves spread over its temperatures
     # tabu
     tenure: int = 10
     max_no_improve: int = 0  # 0: a multiple of the number of units
@@ -155,6 +164,8 @@ SEARCH_KEYS = (
     "constructions",
     "time_limit_fence",
     "time_limit_total",
+    "effort",
+    "moves_per_unit",
     "cooling",
     "moves_per_temperature",
     "tenure",
@@ -558,12 +569,16 @@ def _search(value: object, check: _Check) -> SearchRules:
     method = check.text(t, "method", path, choices=METHODS)
     if method is not None:
         out["method"] = method
+    effort = check.text(t, "effort", path, choices=EFFORTS)
+    if effort is not None:
+        out["effort"] = effort
     limits: dict[str, dict] = {
         "seed": {"whole": True, "at_least": 0},
         "constructions": {"whole": True, "at_least": 1},
         "time_limit_fence": {"above": 0.0},
         "time_limit_total": {"above": 0.0},
         "cooling": {"above": 0.0, "below": 1.0},
+        "moves_per_unit": {"whole": True, "at_least": 0},
         "moves_per_temperature": {"whole": True, "at_least": 0},
         "tenure": {"whole": True, "at_least": 0},
         "max_no_improve": {"whole": True, "at_least": 0},
@@ -744,7 +759,8 @@ def _rules_data(rules: Rules) -> dict:
         }
         for t in rules.tiers
     ]
-    search = {key: getattr(rules.search, key) for key in SEARCH_KEYS}
+    # a setting left to the effort preset (None) is not written
+    search = {key: getattr(rules.search, key) for key in SEARCH_KEYS if getattr(rules.search, key) is not None}
     return {"areas": areas, "graph": graph, "tier": tiers, "search": search}
 
 

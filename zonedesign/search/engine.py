@@ -74,14 +74,13 @@ from zonedesign.search.mergesplit import (
     split_pass,
     try_split,
 )
+from zonedesign.search.schedule import fence_schedule
 from zonedesign.search.state import ZoneState, full_score
 from zonedesign.search.tabu import tabu_block
 
 # budgets (the primary stop criteria; see the module docstring)
 MAX_SWEEPS = 1000  # descent sweeps per call (a sweep that moves nothing ends it sooner)
 MAX_ROUNDS = 50  # descent / merge / split rounds
-ANNEAL_MOVES_PER_TEMP = 8  # x n, when search_rules.moves_per_temperature is 0
-ANNEAL_BUDGET = 600  # x n trial moves at most
 ANNEAL_START_ACCEPT = 0.1  # share of average uphill moves taken at the first temperature
 ANNEAL_FROZEN = 3  # temperatures without a new best and with (almost) no change
 TABU_NO_IMPROVE = 1  # x n, when search_rules.max_no_improve is 0
@@ -138,14 +137,6 @@ class _Run:
         return False
 
 
-def restarts_for(rules: SearchRules, n: int) -> int:
-    """Independent runs for a fence of n units: small fences get many (they are cheap and
-    a single run often stops a few percent above the optimum), large ones one."""
-    if rules.restarts > 0:
-        return int(rules.restarts)
-    return int(min(16, max(1, round(1500 / max(n, 1)))))
-
-
 def solve(
     problem: Problem,
     *,
@@ -158,8 +149,8 @@ def solve(
 ) -> Solution:
     """Partition the problem's units into contiguous zones; breaks first, then the objective.
 
-    Without `start`, runs `restarts_for(rules, n)` independent searches (seeds derived from
-    `seed`) and keeps the best by (breaks, total); with `start`, one search from it.
+    Without `start`, runs `schedule.fence_schedule(rules, n).runs` independent searches
+    (seeds derived from `seed`) and keeps the best by (breaks, total); with `start`, one search from it.
 
     >>> sol = solve(problem, seed=3)            # doctest: +SKIP
     >>> sol.labels, sol.score.breaks, sol.info["bounds_met"]   # doctest: +SKIP
@@ -167,7 +158,7 @@ def solve(
     rules = search_rules if search_rules is not None else SearchRules()
     if not time_limit > 0:
         raise InputError(f"time limit must be positive, got {time_limit}", where="search.time_limit_fence")
-    runs = 1 if start is not None else restarts_for(rules, problem.n)
+    runs = 1 if start is not None else fence_schedule(rules, problem.n).runs
     t0 = time.perf_counter()
     best: Solution | None = None
     for r in range(runs):
@@ -182,6 +173,9 @@ def solve(
             best = sol
     assert best is not None
     best.info["restarts"] = runs
+    plan = fence_schedule(rules, problem.n)
+    best.info["effort"] = rules.effort
+    best.info["moves_per_run"] = plan.moves
     best.info["seconds_all_restarts"] = time.perf_counter() - t0
     return best
 
@@ -469,9 +463,10 @@ def _anneal(run: _Run) -> None:
     if uphill <= 0.0:
         return
     temp = uphill / -math.log(ANNEAL_START_ACCEPT)
-    cooling = float(run.rules.cooling)
-    per_temp = int(run.rules.moves_per_temperature) or max(MIN_WORK, ANNEAL_MOVES_PER_TEMP * n)
-    budget = max(100 * MIN_WORK, ANNEAL_BUDGET * n)
+    plan = fence_schedule(run.rules, n)
+    cooling = plan.cooling
+    per_temp = plan.per_temperature
+    budget = plan.moves
     done = 0
     frozen = 0
     temps = 0

@@ -1,0 +1,85 @@
+"""How much search a fence gets: effort presets, the move budget and the cooling schedule.
+
+A fence's annealing moves grow with its units (`moves_per_unit` x units, with a floor so
+that small fences, which are cheap, still get the several independent runs they need to
+land near the optimum). The budget pays for independent runs (restarts): each run gets
+at least `moves_per_unit` x units, so small fences get several runs and large ones one.
+Within a run the moves are spread evenly over the temperatures of a full cooling
+schedule, from the start temperature down to `FINAL_TEMPERATURE` of it by the factor
+`cooling`: more effort means more moves per temperature, slower cooling more
+temperatures, and no schedule is cut short by its budget.
+
+The presets (`effort` in the rules' [search] table):
+
+| effort | moves_per_unit | cooling | moves of a 2,000-unit fence |
+|---|---|---|---|
+| quick | 150 | 0.94 | 0.3 million |
+| default | 600 | 0.97 | 1.2 million |
+| thorough | 12,000 | 0.99 | 24 million |
+
+`thorough` is what the `quality-scale` benchmark runs for its best-known references.
+A stated `moves_per_unit` or `cooling` overrides the preset's value.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from zonedesign.rules import SearchRules
+
+PRESETS: dict[str, tuple[int, float]] = {
+    "quick": (150, 0.94),
+    "default": (600, 0.97),
+    "thorough": (12_000, 0.99),
+}
+FLOOR_UNITS = 1000  # a fence smaller than this gets the moves of one this size
+MAX_RUNS = 16
+MIN_RUN_MOVES = 20_000  # fewer moves than this make too short a schedule to be worth a run
+FINAL_TEMPERATURE = 0.02  # a schedule ends at this share of its start temperature
+
+
+@dataclass(frozen=True)
+class Schedule:
+    """The search a fence of `units` units gets.
+
+    runs: independent runs; moves: annealing trial moves per run; cooling: temperature
+    factor per step; temperatures: steps of a full schedule; per_temperature: trial moves
+    at each temperature.
+    """
+
+    units: int
+    runs: int
+    moves: int
+    cooling: float
+    temperatures: int
+    per_temperature: int
+
+
+def effort_settings(rules: SearchRules) -> tuple[int, float]:
+    """(moves_per_unit, cooling): the preset of `rules.effort`, stated values first."""
+    per_unit, cooling = PRESETS[rules.effort]
+    if rules.moves_per_unit > 0:
+        per_unit = int(rules.moves_per_unit)
+    if rules.cooling is not None:
+        cooling = float(rules.cooling)
+    return per_unit, cooling
+
+
+def fence_schedule(rules: SearchRules, n: int) -> Schedule:
+    """The runs, moves and cooling of a fence of n units under `rules`.
+
+    >>> fence_schedule(SearchRules(), 2000).runs
+    1
+    """
+    per_unit, cooling = effort_settings(rules)
+    n = max(int(n), 1)
+    run_moves = max(MIN_RUN_MOVES, per_unit * n)
+    if rules.restarts > 0:
+        runs = int(rules.restarts)
+    else:
+        budget = per_unit * max(n, FLOOR_UNITS)
+        runs = int(min(MAX_RUNS, max(1, budget // run_moves)))
+    temps = max(1, math.ceil(math.log(FINAL_TEMPERATURE) / math.log(cooling)))
+    per_temp = int(rules.moves_per_temperature) or max(1, run_moves // temps)
+    return Schedule(units=n, runs=runs, moves=run_moves, cooling=cooling, temperatures=temps, per_temperature=per_temp)
