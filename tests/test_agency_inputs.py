@@ -429,3 +429,104 @@ def test_auckland_runs_end_to_end_with_overlaps_cut_and_row_ids(spdata_dir, tmp_
     a, b = shapely.STRtree(z).query(z, predicate="intersects")
     common = shapely.area(shapely.intersection(z[a[a < b]], z[b[a < b]]))
     assert common.size == 0 or common.max() < 1e-9 * shapely.area(z).min()
+
+
+# ---------------------------------------------------------------- per-fence overrides
+
+# By construction: fence U holds 4 squares of 25 persons (100 in all), fence R 3 squares of
+# 10 (30 in all). The tier's floor of 50 can be met in U but never in R; an override that
+# lowers the floor to 20 in R alone makes R feasible and leaves U's floor as it was.
+TIER = '[[tier]]\nname = "tier1"\nmin = { persons = 50 }\nmax = { persons = 100 }\ntarget = { persons = 60 }\n'
+OVERRIDE = '\n[[tier.override]]\nfences = ["R"]\nmin = { persons = 20 }\ntarget = { persons = 30 }\n'
+
+
+def two_fences(tmp_path: Path) -> Path:
+    gdf = gpd.GeoDataFrame(
+        {"code": [f"U{k}" for k in range(4)] + [f"R{k}" for k in range(3)],
+         "persons": [25] * 4 + [10] * 3, "district": ["U"] * 4 + ["R"] * 3},
+        geometry=squares(7), crs=UTM,
+    )
+    return write_gpkg(gdf, tmp_path / "areas.gpkg")
+
+
+AREAS = 'id = "code"\ncounts = ["persons"]\nfence = "district"'
+
+
+def test_an_override_lowers_the_floor_in_its_fence_and_only_there(tmp_path):
+    from zonedesign.api import prepare
+    from zonedesign.verify.certificate import certify
+    from zonedesign.verify.checks import audit
+
+    areas = two_fences(tmp_path)
+    # a hand-made lookup: u1 = U0 (25 persons, below 50), u2 = U1..U3 (75), r1 = all of R (30)
+    lookup = {"tier1": np.array(["u1", "u2", "u2", "u2", "r1", "r1", "r1"], dtype=object)}
+    for with_override, broken in ((False, {"u1", "r1"}), (True, {"u1"})):
+        rules = load_rules(rules_file(tmp_path, AREAS, TIER + (OVERRIDE if with_override else "")))
+        prep = prepare(areas, rules)
+        found = audit(prep.areas, prep.graph, lookup, list(rules.tiers))
+        assert {v.zone for v in found.violations if v.kind == "bounds"} == broken
+        certs = {c.fence: c.ok for c in certify(prep.areas, prep.graph, lookup, list(rules.tiers))}
+        assert certs == {"U": False, "R": with_override}
+
+
+def test_design_meets_an_overridden_floor_and_the_summary_lists_the_override(tmp_path):
+    import json
+
+    areas = two_fences(tmp_path)
+    out = tmp_path / "out"
+    without = rules_file(tmp_path, AREAS, TIER)
+    assert main([*design_argv(areas, without, tmp_path / "plain")]) == 1  # R cannot reach 50
+    rules = rules_file(tmp_path, AREAS, TIER + OVERRIDE)
+    assert main([*design_argv(areas, rules, out)]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["overrides"] == {
+        "tier1": [{"fences": ["R"], "min": {"persons": 20.0}, "max": {}, "target": {"persons": 30.0}, "weights": {}}]
+    }
+    lookup = pd.read_csv(out / "lookup.csv", dtype=str)
+    sums = lookup.assign(persons=[25] * 4 + [10] * 3).groupby("tier1")["persons"].sum()
+    r_zones = lookup.loc[lookup["area"].str.startswith("R"), "tier1"].unique()
+    assert all(20 <= sums[z] <= 100 for z in r_zones)  # the override's floor in R
+    assert all(50 <= sums[z] <= 100 for z in set(sums.index) - set(r_zones))  # the tier's own in U
+
+
+def test_an_unknown_override_fence_is_exit_2_naming_it(tmp_path, capsys):
+    areas = two_fences(tmp_path)
+    rules = rules_file(tmp_path, AREAS, TIER + OVERRIDE.replace('["R"]', '["R", "Q"]'))
+    for argv in (["rules", "check", str(rules), str(areas)], design_argv(areas, rules, tmp_path / "out")):
+        err = one_line_exit_2(argv, capsys)
+        assert "tier.1.override.1.fences: fence code(s) 'Q' not among the fences of" in err
+        assert "rules.toml:13:" in err  # the line of the override's fences key
+
+
+@pytest.mark.parametrize(
+    "override, message",
+    [
+        ('fences = ["R"]\nmin = { persons = 20 }\n\n[[tier.override]]\nfences = ["R"]\nmax = { persons = 90 }',
+         "tier.1.override.2.fences: fence 'R' is already in override 1 of this tier; overrides of a tier must not overlap"),
+        ('fences = "R"\nmin = { persons = 20 }', "tier.1.override.1.fences: expected a non-empty list of fence codes"),
+        ('fences = []\nmin = { persons = 20 }', "tier.1.override.1.fences: expected a non-empty list of fence codes"),
+        ('min = { persons = 20 }', "tier.1.override.1.fences: missing"),
+        ('fences = ["R"]', "tier.1.override.1: changes nothing"),
+        ('fences = ["R"]\nmin = { persons = 120 }', "tier.1.override.1.min.persons: min 120 is above max 100"),
+        ('fences = ["R"]\nmin = { flats = 2 }', "tier.1.override.1.min.flats: unknown key"),
+        ('fences = ["R"]\nmin = { persons = -1 }', "tier.1.override.1.min.persons: must be at least 0"),
+        ('fences = ["R"]\nbounds = 3', "tier.1.override.1.bounds: unknown key in [[tier.override]]"),
+    ],
+)
+def test_bad_overrides_are_rules_errors_with_their_key(override, message):
+    text = f"[areas]\n{AREAS}\n\n{TIER}\n[[tier.override]]\n{override}\n"
+    with pytest.raises(RulesError) as info:
+        parse_rules(text, "r.toml")
+    assert message in str(info.value)
+
+
+def test_overrides_round_trip_and_take_sweep_keys():
+    from zonedesign.rules import apply_override, rules_to_toml, tier_in_fence
+
+    rules = parse_rules(f"[areas]\n{AREAS}\n\n{TIER}{OVERRIDE}")
+    assert parse_rules(rules_to_toml(rules)).tiers == rules.tiers
+    swept = apply_override(rules, "tier.1.override.1.min.persons", "15")
+    assert tier_in_fence(swept.tiers[0], "R").min == {"persons": 15.0}
+    assert tier_in_fence(swept.tiers[0], "U").min == {"persons": 50.0}
+    with pytest.raises(RulesError, match="has 1 override"):
+        apply_override(rules, "tier.1.override.2.min.persons", "15")

@@ -95,7 +95,7 @@ def prepare(
     """Read the rules and the areas, build the graph, add links, find islands."""
     from zonedesign.graph.areagraph import area_graph
     from zonedesign.io.read import read_areas, rule_columns
-    from zonedesign.rules import check_rules_against
+    from zonedesign.rules import check_fences_against, check_rules_against
 
     seconds: dict[str, float] = {}
     inputs = [Path(areas_path)]
@@ -111,6 +111,7 @@ def prepare(
     if rules.areas.table is not None:
         inputs.append(Path(rules.areas.table))
     file = read_areas(areas_path, rules.areas, layer=layer, crs=crs)
+    check_fences_against(rules, file.areas.fence.tolist(), str(areas_path))
     seconds["read"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     stage(f"building the {rules.graph.contiguity} graph of {file.areas.n} areas")
@@ -298,6 +299,14 @@ def base_summary(prep: Prepared, command: str) -> dict:
         },
         "rules": prep.rules.text,
         "tier_order": [t.name for t in prep.rules.tiers],
+        "overrides": {
+            t.name: [
+                {"fences": list(o.fences), "min": o.min, "max": o.max, "target": o.target, "weights": o.weights}
+                for o in t.overrides
+            ]
+            for t in prep.rules.tiers
+            if t.overrides
+        },
         "objective": {
             t.name: {"homogeneity": t.homogeneity, "compactness": t.compactness, "weights": dict(t.weights)}
             for t in prep.rules.tiers

@@ -13,7 +13,7 @@ import numpy as np
 from zonedesign.graph.collapse import collapse
 from zonedesign.measures import compact_labels, zone_perimeter, zone_sums
 from zonedesign.records import Areas, Bounds, Graph, Problem
-from zonedesign.rules import TierRules
+from zonedesign.rules import TierRules, tier_in_fence
 from zonedesign.verify.proofs import Proof, prove_infeasible
 from zonedesign.zonetables import bounds_of
 
@@ -32,11 +32,11 @@ def units_problem(
     """The free problem of one fence of one tier, over that tier's units.
 
     Units are the areas on the first tier and the zones of the tier below above it;
-    `bounds` defaults to the tier's own.
+    `bounds` defaults to the tier's own in that fence.
     """
     names = [t.name for t in tiers]
     t = names.index(tier_name)
-    tier = tiers[t]
+    tier = tier_in_fence(tiers[t], fence)  # an override's bounds and weights in this fence
     if bounds is None:
         bounds = bounds_of(tier, areas.count_names)
     idx = np.flatnonzero(areas.fence == fence)

@@ -383,6 +383,13 @@ def _rules(args: argparse.Namespace) -> int:
         if args.areas is not None:
             columns, table_columns = rule_columns(args.areas, rules.areas, layer=args.layer or rules.areas.layer)
             check_rules_against(rules, columns, str(args.areas), table_columns)
+            if any(t.overrides for t in rules.tiers):
+                from zonedesign.io.read import read_areas
+                from zonedesign.rules import check_fences_against
+
+                # override fence codes are checked against the fences the file really has
+                fences = read_areas(args.areas, rules.areas, layer=args.layer or rules.areas.layer).areas.fence
+                check_fences_against(rules, fences.tolist(), str(args.areas))
         tiers = ", ".join(t.name for t in rules.tiers)
         print(f"{args.rules}: ok ({len(rules.tiers)} tiers: {tiers})")
         return 0

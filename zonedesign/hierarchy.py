@@ -26,7 +26,7 @@ from zonedesign.measures import (
     zone_sums,
 )
 from zonedesign.records import Areas, Graph, Problem
-from zonedesign.rules import Rules, SearchRules, TierRules
+from zonedesign.rules import Rules, SearchRules, TierRules, tier_in_fence
 from zonedesign.zonetables import bounds_of as tier_bounds
 
 
@@ -323,7 +323,7 @@ def build_hierarchy(
                     tier=tier.name,
                     tier_index=t,
                     units=index,
-                    problem=fence_problem(units, index, tier, areas.count_names),
+                    problem=fence_problem(units, index, tier_in_fence(tier, fence), areas.count_names),
                     search=rules.search,
                     seed=task_seed(rules.search.seed, fence, t),
                 )
@@ -344,10 +344,11 @@ def tier_breaks(result: TierResult, units: Units, tier: TierRules, count_names: 
     """Every zone of a tier that breaks a bound, with its figures."""
     k = result.zone_ids.shape[0]
     sums = zone_sums(result.zone_of_unit, k, units.counts)
-    b = tier_bounds(tier, count_names)
-    amount = bound_breaks(sums, b)
     out = []
-    for z in np.flatnonzero(amount > 0):
+    for z in range(k):
+        b = tier_bounds(tier_in_fence(tier, str(result.zone_fence[z])), count_names)
+        if bound_breaks(sums[z : z + 1], b)[0] <= 0:
+            continue
         figures = {}
         for c, name in enumerate(count_names):
             if sums[z, c] < b.lo[c] or sums[z, c] > b.hi[c]:

@@ -48,7 +48,7 @@ from zonedesign.hierarchy import (
 )
 from zonedesign.measures import bound_breaks, compact_labels, zone_sums
 from zonedesign.records import Areas, Graph
-from zonedesign.rules import Rules, TierRules
+from zonedesign.rules import Rules, TierRules, tier_in_fence
 from zonedesign.zonetables import bounds_of
 
 STABILITY_DEFAULT = 20.0  # heavy by default: moving a unit must buy a lot of objective
@@ -533,13 +533,14 @@ def redraw_hierarchy(
             index = np.flatnonzero(units.fence == fence)
             pid = prev_unit[index]
             codes = previous_codes(pid)
-            b = bounds_of(tier, areas.count_names)
+            here = tier_in_fence(tier, fence)  # an override's bounds and weights in this fence
+            b = bounds_of(here, areas.count_names)
             sub_graph = units.graph.subgraph(index)
             start, anchors = start_labels(sub_graph, codes, units.counts[index], b.lo)
-            weights = dict(tier.weights)
+            weights = dict(here.weights)
             if weights.get("stability", 0.0) <= 0:
                 weights["stability"] = STABILITY_DEFAULT
-            problem = fence_problem(units, index, _with_weights(tier, weights), areas.count_names, previous=None)
+            problem = fence_problem(units, index, _with_weights(here, weights), areas.count_names, previous=None)
             from dataclasses import replace
 
             problem = replace(problem, previous=codes)

@@ -45,7 +45,7 @@ import json
 import math
 import re
 import tomllib
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -94,6 +94,17 @@ class GraphRules:
 
 
 @dataclass(frozen=True)
+class TierOverride:
+    """Bounds, target and weights that replace the tier's own in some fences only."""
+
+    fences: tuple[str, ...]
+    min: dict[str, float] = field(default_factory=dict)
+    max: dict[str, float] = field(default_factory=dict)
+    target: dict[str, float] = field(default_factory=dict)
+    weights: dict[str, float] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
 class TierRules:
     name: str
     min: dict[str, float] = field(default_factory=dict)
@@ -104,6 +115,49 @@ class TierRules:
     )
     homogeneity: str = "ssd"
     compactness: str = "polsby"
+    overrides: tuple[TierOverride, ...] = ()  # [[tier.override]], in file order
+
+
+def tier_in_fence(tier: TierRules, fence: str) -> TierRules:
+    """The tier's rules as they apply in one fence.
+
+    The one place per-fence rules are resolved: design, redraw, audit, certificate, proofs
+    and report all take a tier's bounds, target and weights in a fence from here. An
+    override naming the fence replaces each bound, target and weight it gives; the rest
+    are the tier's own. Overrides never share a fence (checked when the rules are read).
+    """
+    for o in tier.overrides:
+        if str(fence) in o.fences:
+            return replace(
+                tier,
+                min={**tier.min, **o.min},
+                max={**tier.max, **o.max},
+                target={**tier.target, **o.target},
+                weights={**tier.weights, **o.weights},
+                overrides=(),
+            )
+    return tier
+
+
+def overridden_fences(tier: TierRules) -> set[str]:
+    return {f for o in tier.overrides for f in o.fences}
+
+
+def fence_groups(tier: TierRules) -> list[tuple[TierRules, Callable[[Sequence[str]], bool]]]:
+    """The tier as it applies in each group of fences, with a test of whether a zone lying
+    in the fences given belongs to that group.
+
+    The tier's own rules come first and cover every zone not wholly inside one overridden
+    fence (a zone across fences, itself a fault, is held to the tier's own bounds); then
+    one entry per fence an override names.
+    """
+    claimed = overridden_fences(tier)
+    groups: list[tuple[TierRules, Callable[[Sequence[str]], bool]]] = [
+        (replace(tier, overrides=()), lambda fences: not (len(set(fences)) == 1 and next(iter(fences)) in claimed))
+    ]
+    for f in sorted(claimed):
+        groups.append((tier_in_fence(tier, f), lambda fences, f=f: set(fences) == {f}))
+    return groups
 
 
 @dataclass(frozen=True)
@@ -157,7 +211,8 @@ FENCE_KEYS = ("column", "prefix", "suffix")
 PREFER = ("table", "file")
 OVERLAPS = ("refuse", "cut")
 GRAPH_KEYS = ("contiguity", "min_shared_length", "tolerance", "links")
-TIER_KEYS = ("name", "min", "max", "target", "weights", "homogeneity", "compactness")
+TIER_KEYS = ("name", "min", "max", "target", "weights", "homogeneity", "compactness", "override")
+OVERRIDE_KEYS = ("fences", "min", "max", "target", "weights")
 SEARCH_KEYS = (
     "method",
     "seed",
@@ -255,6 +310,11 @@ class _KeyLines:
             stripped = line.strip()
             if stripped.startswith("[["):
                 name = tuple(_split_key(stripped[2:].split("]]")[0]))
+                # [[tier.override]] counts per tier: ("tier", 2, "override", 0)
+                for k in range(len(name) - 1, 0, -1):
+                    if name[:k] in arrays:
+                        name = (*name[:k], arrays[name[:k]], *name[k:])
+                        break
                 arrays[name] = arrays.get(name, -1) + 1
                 context = (*name, arrays[name])
                 self.lines.setdefault(context, number)
@@ -621,6 +681,24 @@ def _tier(raw: dict, k: int, check: _Check, areas: AreasRules) -> TierRules:
         check.fail((*path, "name"), f"{name!r}: a tier name cannot be a number (sweep keys count tiers as tier.1, tier.2)")
     elif name and name == areas.id:
         check.fail((*path, "name"), f"{name!r} is also the id column; lookup columns would clash")
+    lo, hi, target, weights = _bound_tables(t, path, check, areas)
+    _check_bounds(lo, hi, target, path, check)
+    weights = {**TierRules(name="").weights, **weights}
+    overrides = _overrides(t.get("override"), path, check, areas, lo, hi, target)
+    return TierRules(
+        name=name,
+        min=lo,
+        max=hi,
+        target=target,
+        weights=weights,
+        homogeneity=check.text(t, "homogeneity", path, choices=HOMOGENEITY) or "ssd",
+        compactness=check.text(t, "compactness", path, choices=COMPACTNESS) or "polsby",
+        overrides=overrides,
+    )
+
+
+def _bound_tables(t: dict, path: KeyPath, check: _Check, areas: AreasRules) -> tuple[dict, dict, dict, dict]:
+    """min, max, target and weights as given in a tier or an override table."""
     bounds: dict[str, dict[str, float]] = {}
     for key in BOUND_KEYS:
         table = check.table(t.get(key, {}), (*path, key), areas.counts or ("(no counts)",), f"{key} (keys are [areas].counts)")
@@ -630,7 +708,16 @@ def _tier(raw: dict, k: int, check: _Check, areas: AreasRules) -> TierRules:
             if num is not None:
                 got[col] = float(num)
         bounds[key] = got
-    lo, hi, target = bounds["min"], bounds["max"], bounds["target"]
+    weights = {}
+    given = check.table(t.get("weights", {}), (*path, "weights"), TERMS, "weights")
+    for term, v in given.items():
+        num = check.number(v, (*path, "weights", term), at_least=0.0)
+        if num is not None:
+            weights[term] = float(num)
+    return bounds["min"], bounds["max"], bounds["target"], weights
+
+
+def _check_bounds(lo: dict, hi: dict, target: dict, path: KeyPath, check: _Check) -> None:
     for col in lo.keys() & hi.keys():
         if lo[col] > hi[col]:
             check.fail((*path, "min", col), f"min {_num(lo[col])} is above max {_num(hi[col])}")
@@ -638,21 +725,41 @@ def _tier(raw: dict, k: int, check: _Check, areas: AreasRules) -> TierRules:
         a, b = lo.get(col, 0.0), hi.get(col, math.inf)
         if not a <= v <= b:
             check.fail((*path, "target", col), f"target {_num(v)} is outside [min {_num(a)}, max {_num(b)}]")
-    weights = dict(TierRules(name="").weights)
-    given = check.table(t.get("weights", {}), (*path, "weights"), TERMS, "weights")
-    for term, v in given.items():
-        num = check.number(v, (*path, "weights", term), at_least=0.0)
-        if num is not None:
-            weights[term] = float(num)
-    return TierRules(
-        name=name,
-        min=lo,
-        max=hi,
-        target=target,
-        weights=weights,
-        homogeneity=check.text(t, "homogeneity", path, choices=HOMOGENEITY) or "ssd",
-        compactness=check.text(t, "compactness", path, choices=COMPACTNESS) or "polsby",
-    )
+
+
+def _overrides(
+    value: object, path: KeyPath, check: _Check, areas: AreasRules, lo: dict, hi: dict, target: dict
+) -> tuple[TierOverride, ...]:
+    """[[tier.override]] tables: each names its fences and the bounds that apply there."""
+    if value is None:
+        return ()
+    if not isinstance(value, list) or not all(isinstance(o, dict) for o in value):
+        check.fail((*path, "override"), "write each override as a [[tier.override]] table after its [[tier]]")
+        return ()
+    out = []
+    claimed: dict[str, int] = {}
+    for m, raw in enumerate(value):
+        opath: KeyPath = (*path, "override", m)
+        o = check.table(raw, opath, OVERRIDE_KEYS, "[[tier.override]]")
+        fences = o.get("fences")
+        if fences is None:
+            check.fail((*opath, "fences"), "missing (a list of fence codes this override applies in)")
+            fences = []
+        elif not isinstance(fences, list) or not fences or not all(isinstance(f, str) and f.strip() for f in fences):
+            check.fail((*opath, "fences"), f"expected a non-empty list of fence codes (text), got {_show(fences)}")
+            fences = []
+        for f in fences:
+            if f in claimed:
+                where = "this override" if claimed[f] == m else f"override {claimed[f] + 1} of this tier"
+                check.fail((*opath, "fences"), f"fence {f!r} is already in {where}; overrides of a tier must not overlap")
+            else:
+                claimed[f] = m
+        o_lo, o_hi, o_target, o_weights = _bound_tables(o, opath, check, areas)
+        if not (o_lo or o_hi or o_target or o_weights):
+            check.fail(opath, "changes nothing; give min, max, target or weights")
+        _check_bounds({**lo, **o_lo}, {**hi, **o_hi}, {**target, **o_target}, opath, check)
+        out.append(TierOverride(fences=tuple(dict.fromkeys(fences)), min=o_lo, max=o_hi, target=o_target, weights=o_weights))
+    return tuple(out)
 
 
 def _num(x: float) -> str:
@@ -709,6 +816,24 @@ def check_rules_against(
     _raise(check.problems)
 
 
+def check_fences_against(rules: Rules, fences: Sequence[str], where: str) -> None:
+    """Every fence code an override names is a fence of the areas file `where`."""
+    check = _Check(str(rules.source) if rules.source else "<rules>", _KeyLines(rules.text) if rules.text else None)
+    known = sorted({str(f) for f in fences})
+    shown = ", ".join(known[:10]) + (f" and {len(known) - 10} more" if len(known) > 10 else "")
+    for k, t in enumerate(rules.tiers):
+        for m, o in enumerate(t.overrides):
+            unknown = [f for f in o.fences if f not in set(known)]
+            if unknown:
+                near = difflib.get_close_matches(unknown[0], known, 1)
+                hint = f"; did you mean {near[0]!r}?" if near else ""
+                check.fail(
+                    ("tier", k, "override", m, "fences"),
+                    f"fence code(s) {', '.join(map(repr, unknown))} not among the fences of {where} ({shown}){hint}",
+                )
+    _raise(check.problems)
+
+
 # ---------------------------------------------------------------- writing
 
 
@@ -721,7 +846,10 @@ def rules_to_toml(rules: Rules) -> str:
     out += [f"{k} = {_toml_value(v)}" for k, v in data["graph"].items()]
     for tier in data["tier"]:
         out += ["", "[[tier]]"]
-        out += [f"{k} = {_toml_value(v)}" for k, v in tier.items()]
+        out += [f"{k} = {_toml_value(v)}" for k, v in tier.items() if k != "override"]
+        for o in tier.get("override", []):
+            out += ["", "[[tier.override]]"]
+            out += [f"{k} = {_toml_value(v)}" for k, v in o.items() if v or k == "fences"]
     out += ["", "[search]"]
     out += [f"{k} = {_toml_value(v)}" for k, v in data["search"].items()]
     return "\n".join(out) + "\n"
@@ -756,6 +884,11 @@ def _rules_data(rules: Rules) -> dict:
             "weights": dict(t.weights),
             "homogeneity": t.homogeneity,
             "compactness": t.compactness,
+            **({"override": [
+                {"fences": list(o.fences), "min": dict(o.min), "max": dict(o.max), "target": dict(o.target),
+                 "weights": dict(o.weights)}
+                for o in t.overrides
+            ]} if t.overrides else {}),
         }
         for t in rules.tiers
     ]
@@ -795,6 +928,7 @@ def _toml_key(key: str) -> str:
 
 OVERRIDE_FORMS = (
     "tier.<N or name>.<min|max|target>.<count column>",
+    "tier.<N or name>.override.<M>.<min|max|target|weights>.<column or term>",
     "tier.<N or name>.weights.<size|homogeneity|compactness|stability>",
     "tier.<N or name>.<homogeneity|compactness>",
     f"search.<{'|'.join(SEARCH_KEYS)}>",
@@ -848,7 +982,19 @@ def override_key(rules: Rules, key: str) -> str:
 def _set_override(rules: Rules, data: dict, key: str, parsed: object) -> None:
     parts = key.split(".")
     head = parts[0]
-    if head == "tier" and len(parts) in (3, 4):
+    if head == "tier" and len(parts) == 6 and parts[2] == "override":
+        k = _tier_position(rules, parts[1], key)
+        overrides = data["tier"][k].get("override", [])
+        if not parts[3].isdigit() or not 1 <= int(parts[3]) <= len(overrides):
+            _bad_key(key, f"tier {parts[1]} has {len(overrides)} override(s); count them from 1")
+        table = overrides[int(parts[3]) - 1]
+        if parts[4] not in (*BOUND_KEYS, "weights"):
+            _bad_key(key, f"an override has no field {parts[4]!r}")
+        if parsed is None:
+            table[parts[4]].pop(parts[5], None)
+        else:
+            table[parts[4]][parts[5]] = parsed
+    elif head == "tier" and len(parts) in (3, 4):
         k = _tier_position(rules, parts[1], key)
         tier = data["tier"][k]
         field = parts[2]

@@ -21,7 +21,7 @@ from zonedesign.measures import (
     zone_sums,
 )
 from zonedesign.records import Areas, Bounds, Graph
-from zonedesign.rules import TierRules
+from zonedesign.rules import TierRules, tier_in_fence
 
 
 def bounds_of(tier: TierRules, count_names: Sequence[str]) -> Bounds:
@@ -47,23 +47,29 @@ def zone_table(
     first[codes[::-1]] = np.arange(labels.shape[0])[::-1]
     zone_ids = labels[first]
     sums = zone_sums(codes, k, areas.counts)
-    b = bounds_of(tier, areas.count_names)
+    zone_fence = areas.fence[first].astype(str)
+    # each zone is held to the bounds of its fence ([[tier.override]])
+    in_fence = {f: bounds_of(tier_in_fence(tier, f), areas.count_names) for f in set(zone_fence.tolist())}
+    zone_bounds = [in_fence[f] for f in zone_fence.tolist()]
+    target = np.array([b.target for b in zone_bounds]).reshape(k, len(areas.count_names))
     area = zone_sums(codes, k, areas.area)
     per = zone_perimeter(graph, codes, k, areas.perimeter)
     df = pd.DataFrame({"zone": zone_ids.astype(str), "fence": areas.fence[first].astype(str)})
     for c, name in enumerate(areas.count_names):
         df[name] = sums[:, c]
     for c, name in enumerate(areas.count_names):
-        if np.isfinite(b.target[c]) and b.target[c] > 0:
-            df[f"{name}_vs_target"] = (sums[:, c] - b.target[c]) / b.target[c]
+        aim = target[:, c]
+        if (np.isfinite(aim) & (aim > 0)).any():
+            with np.errstate(invalid="ignore", divide="ignore"):
+                df[f"{name}_vs_target"] = np.where(aim > 0, (sums[:, c] - aim) / aim, np.nan)
     df["polsby_popper"] = polsby_popper(area, per)
     df["homogeneity"] = within_variance(areas, codes, k)
     df["n_areas"] = np.bincount(codes, minlength=k)
     df["n_units"] = df["n_areas"] if units_per_zone is None else units_per_zone
     df["area_km2"] = area / 1e6
-    breaks = bound_breaks(sums, b)
+    breaks = np.array([bound_breaks(sums[z : z + 1], zone_bounds[z])[0] for z in range(k)]) if k else np.zeros(0)
     df["bound_break"] = breaks > 0
-    df["breaks"] = [describe_breaks(sums[z], b) if breaks[z] > 0 else "" for z in range(k)]
+    df["breaks"] = [describe_breaks(sums[z], zone_bounds[z]) if breaks[z] > 0 else "" for z in range(k)]
     if parent is not None:
         df["parent"] = np.asarray(parent, dtype=object)[first].astype(str)
     return df

@@ -587,6 +587,28 @@ def _counts_before(counts: dict) -> str:
     return "; ".join(f"{k}: " + ", ".join(f"{c} {num(x)}" for c, x in v.items()) for k, v in counts.items())
 
 
+def _overrides(overrides: object) -> list[str]:
+    """The per-fence bounds of [[tier.override]], beside the tiers' own."""
+    if not isinstance(overrides, dict) or not overrides:
+        return []
+    rows = []
+    for tier, items in overrides.items():
+        for o in items if isinstance(items, list) else []:
+            given = "; ".join(
+                f"{key} " + ", ".join(f"{c} {num(v)}" for c, v in (o.get(key) or {}).items())
+                for key in ("min", "max", "target", "weights")
+                if o.get(key)
+            )
+            rows.append(
+                f"<tr><td>{esc(tier)}</td><td>{esc(', '.join(map(str, o.get('fences', []))))}</td>"
+                f"<td>{esc(given)}</td></tr>"
+            )
+    return [
+        '<h3 id="input-overrides">Bounds that apply in some fences only</h3><table><thead><tr><th>tier</th>'
+        f"<th>fences</th><th>in place of the tier's own</th></tr></thead><tbody>{''.join(rows)}</tbody></table>"
+    ]
+
+
 def _codes_text(codes: object) -> str | None:
     if not isinstance(codes, list) or not codes or codes == ["all"]:
         return None
@@ -623,6 +645,7 @@ def _input(run: ReportPlan) -> str:
             + "</ul>"
         )
     out += _mended(areas)
+    out += _overrides(s.get("overrides"))
     repaired = areas.get("repaired_polygons")
     if repaired:
         shown = ", ".join(map(str, repaired[:200])) + (

@@ -24,7 +24,7 @@ import numpy as np
 from ortools.sat.python import cp_model
 
 from zonedesign.records import Areas, Graph
-from zonedesign.rules import TierRules
+from zonedesign.rules import TierRules, tier_in_fence
 from zonedesign.verify.checks import encode_labels, tier_bounds
 from zonedesign.verify.solving import solve_model
 
@@ -94,8 +94,8 @@ def certify(
     for k, t in enumerate(tiers):
         tl = encode_labels(labels[t.name])
         upper = encode_labels(labels[tiers[k + 1].name]).codes if k + 1 < len(tiers) else None
-        bounds = tier_bounds(t, areas.count_names)
         for f in fences:
+            bounds = tier_bounds(tier_in_fence(t, f), areas.count_names)  # an override's bounds in this fence
             out.append(
                 _certify_fence(areas, graph, fence, f, t.name, tl.codes, upper, bounds, scale, time_limit, workers)
             )

@@ -34,7 +34,7 @@ from scipy.sparse.csgraph import connected_components
 from zonedesign import measures
 from zonedesign.errors import InputError
 from zonedesign.records import Areas, Bounds, Graph
-from zonedesign.rules import TierRules
+from zonedesign.rules import TierRules, fence_groups
 
 KINDS = ("coverage", "nesting", "contiguity", "fence", "bounds")
 # the rules the CP-SAT certificate encodes, per fence and tier
@@ -300,12 +300,13 @@ def audit(
         tl = encoded[t.name]
         members = zone_members(tl.codes, tl.k)
         parts[t.name] = zone_parts(graph, tl.codes)
-        bounds = tier_bounds(t, areas.count_names)
         if k + 1 < len(tiers):
             violations += _nesting(areas, graph, t.name, tl, members, tiers[k + 1].name, encoded[tiers[k + 1].name])
         violations += _contiguity(areas, t.name, tl, members, parts[t.name])
         violations += _fences(areas, t.name, tl, members)
-        violations += _bounds(areas, t.name, tl, members, bounds)
+        for here, applies in fence_groups(t):  # each fence's own bounds ([[tier.override]])
+            found = _bounds(areas, t.name, tl, members, tier_bounds(here, areas.count_names))
+            violations += [v for v in found if applies(v.fences)]
 
     kinds = {a: attribute_kind(areas, a, attribute_kinds) for a in areas.attr_names}
     zones, summaries, outliers = {}, {}, []
