@@ -1,8 +1,13 @@
-"""`audit --repair` always hands back a lookup that passes the audit."""
+"""`audit --repair` always hands back a lookup that passes the audit, as a full output.
+
+The zones layers are read back with pyogrio (reference library for GeoPackage) and the
+repaired lookup is audited again by the independent checker.
+"""
 
 from __future__ import annotations
 
 import pandas as pd
+import pyogrio
 from cli_support import write_inputs
 
 from zonedesign import api
@@ -30,7 +35,7 @@ def test_repair_gives_a_lookup_that_passes(tmp_path):
     res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, report=False)
     assert res.exit_code == 1  # the input hierarchy breaks rules
     assert res.summary["repair"]["repaired_lookup_passes"]
-    again = api.audit(areas, rules, None, lookup=tmp_path / "audit" / "lookup.repaired.csv", report=False)
+    again = api.audit(areas, rules, None, lookup=tmp_path / "audit" / "repaired" / "lookup.csv", report=False)
     assert again.exit_code == 0
     moves = pd.read_csv(tmp_path / "audit" / "repair.csv")
     assert len(moves) == res.summary["repair"]["moves"] > 0
@@ -46,7 +51,7 @@ def test_when_the_cp_sat_repair_cannot_finish_the_search_mends_it_and_says_so(tm
     res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, report=False, certify=False)
     assert res.summary["repair"]["method"].startswith("redraw search")
     assert res.summary["repair"]["repaired_lookup_passes"]
-    again = api.audit(areas, rules, None, lookup=tmp_path / "audit" / "lookup.repaired.csv", report=False, certify=False)
+    again = api.audit(areas, rules, None, lookup=tmp_path / "audit" / "repaired" / "lookup.csv", report=False, certify=False)
     assert again.exit_code == 0
 
 
@@ -76,3 +81,42 @@ def test_an_unproven_cp_sat_repair_gives_way_to_a_search_repair_with_fewer_moves
     # the search's zones keep the names they carry on, so only areas that moved are listed
     wasted = int((designed["block"] != pd.Series(wasteful)).sum())
     assert len(moves) == repair["moves"] < wasted
+
+
+def test_the_repaired_hierarchy_is_a_full_output_that_the_report_and_show_describe(tmp_path):
+    from zonedesign.show import show
+
+    areas, rules, broken = _broken_lookup(tmp_path)
+    res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, certify=False)
+    out = tmp_path / "audit"
+    folder = out / "repaired"
+    for name in ("lookup.csv", "zones.gpkg", "changes.csv", "area_changes.csv", "report.html"):
+        assert (folder / name).is_file(), name
+    # the id column keeps the input lookup's name: the design wrote "area"
+    assert (folder / "lookup.csv").read_text().splitlines()[0].split(",")[0] == "area"
+    # an audit writes the audited hierarchy's zones too, one layer per tier (pyogrio lists them)
+    tiers = res.summary["tier_order"]
+    assert [name for name, _ in pyogrio.list_layers(out / "zones.gpkg")] == tiers
+    assert [name for name, _ in pyogrio.list_layers(folder / "zones.gpkg")] == tiers
+    repair = res.summary["repair"]
+    moved = pd.read_csv(folder / "area_changes.csv", dtype=str, keep_default_na=False)
+    changes = pd.read_csv(folder / "changes.csv", dtype=str, keep_default_na=False)
+    for tier in tiers:
+        n = int(((moved["tier"] == tier) & (moved["old_code"] != "")).sum())
+        assert repair["moved_per_tier"][tier] == n
+        assert changes.loc[changes["tier"] == tier, "areas_in"].astype(int).sum() == n
+    assert (changes.loc[changes["kind"] != "kept", "reason"] != "").all()
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert 'id="repair"' in html and "proven the fewest" in html and "repaired/report.html" in html
+    line = [x for x in show(out).splitlines() if x.strip().startswith("repair:")]
+    assert len(line) == 1 and str(repair["moves"]) in line[0]
+
+
+def test_a_lookup_whose_id_column_has_its_own_name_keeps_it_in_the_repair(tmp_path):
+    areas, rules, broken = _broken_lookup(tmp_path)
+    frame = pd.read_csv(broken, dtype=str).rename(columns={"area": "tract_code"})
+    renamed = tmp_path / "renamed.csv"
+    frame.to_csv(renamed, index=False)
+    api.audit(areas, rules, tmp_path / "audit", lookup=renamed, repair=True, report=False, certify=False)
+    header = (tmp_path / "audit" / "repaired" / "lookup.csv").read_text().splitlines()[0]
+    assert header.split(",")[0] == "tract_code"

@@ -13,6 +13,7 @@ from hypothesis import strategies as st
 
 from zonedesign.errors import InputError, RulesError
 from zonedesign.rules import (
+    STABILITY_DEFAULT,
     AreasRules,
     GraphRules,
     Rules,
@@ -78,7 +79,7 @@ def test_valid_file_gives_the_stated_records(tmp_path: Path) -> None:
     assert block.min == {"households": 40.0, "persons": 100.0}
     assert block.target == {"households": 125.0}
     # weights not given keep their defaults
-    assert block.weights == {"size": 1.0, "homogeneity": 2.0, "compactness": 1.0, "stability": 0.0}
+    assert block.weights == {"size": 1.0, "homogeneity": 2.0, "compactness": 1.0, "stability": STABILITY_DEFAULT}
     assert quarter.max == {} and quarter.homogeneity == "pairwise" and quarter.compactness == "cut"
     assert r.search == SearchRules(method="tabu", seed=7, cooling=0.8, time_limit_fence=5.0)
     assert r.text == VALID and r.source == Path("rules.toml")

@@ -556,14 +556,13 @@ def search_repair(prep: Prepared, labels: Mapping[str, np.ndarray]) -> dict[str,
     """Mend a broken hierarchy with the redraw search: nesting by majority, then every
     broken zone and its neighbours re-searched with a heavy stability weight. Not proven
     minimal; used when the CP-SAT repair cannot finish."""
-    from zonedesign.redraw import keep_matched_ids, redraw_hierarchy
+    from zonedesign.redraw import redraw_hierarchy
 
     names = [t.name for t in prep.rules.tiers]
     given = {n: np.array(["" if v is None else str(v) for v in labels[n]], dtype=object) for n in names}
     prev = mend_nesting(given, names)
-    now = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev).lookup()
-    # zones keep the names they are matched to, so the moves listed are areas that moved
-    return {n: keep_matched_ids(given[n], now[n]) for n in names}
+    # codes carry on by the rules' code policy, so the moves listed are areas that moved
+    return redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev).lookup()
 
 
 def repair_moves(ids: np.ndarray, before: Mapping[str, np.ndarray], after: Mapping[str, np.ndarray]) -> pd.DataFrame:
@@ -594,29 +593,50 @@ def redraw(
     report: bool = True,
     progress: Progress | None = None,
     extra_files: Mapping[str, Path] | None = None,
+    previous_counts: str | Path | None = None,
 ) -> RunResult:
-    """Redraw a published hierarchy on new counts, changing as little as possible."""
-    from zonedesign.redraw import change_shares, redraw_hierarchy
+    """Redraw a published hierarchy on new counts, changing as little as possible.
+
+    previous_counts: the previous areas file (or a table of area id and counts) whose
+    totals were published; changes.csv then states them beside the new totals."""
+    from zonedesign.redraw import redraw_hierarchy
+    from zonedesign.redraw_output import published_counts, redraw_tables
 
     t_start = time.perf_counter()
     run, prep = _start_run(
         areas_path, rules, out, overwrite, layer, crs, executor, workers, scheduler, progress, extra_input=previous
     )
     prev, problems = read_previous(previous, prep, mend=mend)
+    names = [t.name for t in prep.rules.tiers]
+    published, before = None, None
+    if previous_counts is not None:
+        prep.inputs.append(Path(previous_counts))
+        published, before = published_counts(
+            previous_counts, previous, prep.areas.ids, prep.rules.areas.id, prep.areas.count_names, names
+        )
     _say(progress, f"redrawing {len(prep.rules.tiers)} tiers against {previous}")
     with _closing(run):
-        result = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, executor=run)
+        result = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, executor=run, published=published)
     lookup = result.lookup()
-    changes = result.changes()
+    changes, per_area, figures = redraw_tables(
+        prep, prev, lookup, policy=result.policy, before_totals=before,
+        retired={t.name: t.succession.retired for t in result.tiers},
+    )
     seconds, summary = _run_summary(prep, "redraw", result, executor, workers)
-    summary["previous"] = {"lookup": str(previous), **problems}
-    summary["changes"] = change_shares(changes, [t.name for t in prep.rules.tiers], lookup, prev)
+    summary["previous"] = {"lookup": str(previous), "counts": None if previous_counts is None else str(previous_counts),
+                           **problems}
+    summary["redraw"] = {
+        "code_policy": result.policy,
+        "stability": {t.name: t.stability for t in result.tiers},
+        "moved_areas": "areas whose zone's code changed under the code policy",
+    }
+    summary["changes"] = figures
     failures = [{"fence": f.fence, "tier": t.name, "error": f.error} for t in result.tiers for f in t.fences if f.error]
     summary["fence_failures"] = failures
     return finish(
         prep, lookup, summary, out, overwrite=overwrite, seconds=seconds, t_start=t_start,
         certify=certify, report=report, progress=progress, extra_files=extra_files,
-        extra_tables={"changes.csv": changes}, failed=bool(failures),
+        extra_tables={"changes.csv": changes, "area_changes.csv": per_area}, failed=bool(failures),
     )
 
 
@@ -794,6 +814,7 @@ def audit(
         summary["repair"] = {
             "method": "cp-sat (fewest moves)",
             "status": res.status,
+            "proven_fewest": res.status == "optimal",
             "moves": int(len(moves)),
             "repaired_lookup_passes": bool(recheck.ok) if recheck is not None else False,
         }
@@ -816,9 +837,17 @@ def audit(
                     "method": "redraw search (not proven fewest moves)",
                     "status": "feasible" if again.ok else "partial",
                     "cp_sat_status": res.status,
+                    "proven_fewest": False,
                     "moves": int(len(moves)),
                     "repaired_lookup_passes": bool(again.ok),
                 }
+        if repaired is not None:
+            from zonedesign.zonecodes import moved_areas
+
+            summary["repair"]["moved_per_tier"] = {
+                n: int(moved_areas(_codes(labels[n]), repaired[n]).sum()) for n in names
+            }
+            summary["repair"]["folder"] = "repaired"
         seconds["repair"] = time.perf_counter() - t0
     stage.close()
     tables = {}
@@ -829,7 +858,6 @@ def audit(
     rc = 0 if checked.ok and not overlay_flags else 1
     summary["exit_code"] = rc
     if out is not None:
-        from zonedesign.io.lookup import write_lookup
         from zonedesign.io.output import atomic_output, write_json
 
         with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
@@ -841,12 +869,15 @@ def audit(
             if moves is not None:
                 moves.to_csv(tmp / "repair.csv", index=False, lineterminator="\n")
                 if repaired is not None:
-                    write_lookup(tmp / "lookup.repaired.csv", prep.areas.ids, repaired)
+                    write_repaired(tmp / "repaired", prep, labels, repaired, summary,
+                                   id_column=_id_column(lookup, prep), report=report)
             layers = {}
-            if report and tables:
+            if tables:
                 from zonedesign.dissolve import zone_layers
+                from zonedesign.io.output import write_layers_gpkg
 
                 layers = zone_layers(prep.geometry, labels, tables)
+                write_layers_gpkg(tmp / "zones.gpkg", layers)
             seconds["total"] = time.perf_counter() - t_start
             summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
             if report:
@@ -855,6 +886,52 @@ def audit(
                 write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers)
             write_json(tmp / "summary.json", summary)
     return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=rc, lookup=labels)
+
+
+def _codes(values: np.ndarray) -> np.ndarray:
+    return np.array(["" if v is None else str(v) for v in np.asarray(values, dtype=object)], dtype=object)
+
+
+def _id_column(lookup: str | Path | None, prep: Prepared) -> str:
+    """The id column's name in the audited lookup (the rules' id column for --tiers-from)."""
+    if lookup is None:
+        return prep.rules.areas.id or "area"
+    from zonedesign.io.lookup import read_lookup
+
+    frame, _ = read_lookup(lookup, None, None, strict=False)
+    return str(frame.index.name or prep.rules.areas.id or "area")
+
+
+def write_repaired(
+    folder: Path, prep: Prepared, before: Mapping[str, np.ndarray], repaired: Mapping[str, np.ndarray],
+    summary: dict, *, id_column: str, report: bool,
+) -> None:
+    """OUT/repaired/: the repaired hierarchy as a full output (lookup.csv with the input's id
+    column name, zones.gpkg, changes.csv, area_changes.csv, and a report drawing the moves)."""
+    from zonedesign.dissolve import zone_layers
+    from zonedesign.io.lookup import write_lookup
+    from zonedesign.io.output import write_layers_gpkg
+    from zonedesign.redraw_output import redraw_tables
+    from zonedesign.zonetables import all_tables
+
+    folder.mkdir(parents=True, exist_ok=True)
+    tiers = list(prep.rules.tiers)
+    prev = {t.name: _codes(before[t.name]) for t in tiers}
+    now = {t.name: _codes(repaired[t.name]) for t in tiers}
+    write_lookup(folder / "lookup.csv", prep.areas.ids, now, id_column=id_column)
+    tables = all_tables(prep.areas, prep.graph, now, tiers)
+    layers = zone_layers(prep.geometry, now, tables)
+    write_layers_gpkg(folder / "zones.gpkg", layers)
+    changes, per_area, figures = redraw_tables(prep, prev, now, policy=prep.rules.redraw.codes)
+    changes.to_csv(folder / "changes.csv", index=False, lineterminator="\n")
+    per_area.to_csv(folder / "area_changes.csv", index=False, lineterminator="\n")
+    if report:
+        from zonedesign.report.html import write_report
+
+        inner = {**base_summary(prep, "audit --repair"), "changes": figures,
+                 "repair": {k: v for k, v in (summary.get("repair") or {}).items() if k != "folder"},
+                 "redraw": {"code_policy": prep.rules.redraw.codes}}
+        write_report(folder / "report.html", summary=inner, tables=tables, layers=layers, changes=changes)
 
 
 def _complete(values: np.ndarray) -> bool:

@@ -157,6 +157,8 @@ def _parser() -> argparse.ArgumentParser:
     inputs(r)
     r.add_argument("--previous", required=True, type=Path, help="previous lookup (CSV or Parquet)")
     r.add_argument("--mend", action="store_true", help="mend a previous lookup that does not match or nest")
+    r.add_argument("--previous-counts", type=Path,
+                   help="the previous areas file (or a table of id and counts) whose zone totals were published")
     common(r)
     executor(r)
     r.add_argument("--no-certificate", action="store_true", help="skip the CP-SAT certificate")
@@ -345,7 +347,7 @@ def _run(args: argparse.Namespace) -> int:
     if cmd == "redraw":
         res = api.redraw(
             args.areas, args.rules, args.previous, args.out, layer=args.layer, crs=args.crs,
-            overwrite=args.overwrite, mend=args.mend, executor=args.executor,
+            overwrite=args.overwrite, mend=args.mend, executor=args.executor, previous_counts=args.previous_counts,
             workers=args.workers, scheduler=args.scheduler, certify=not args.no_certificate,
             report=not args.no_report, progress=say,
         )

@@ -13,19 +13,21 @@ Per tier (bottom-up) and fence:
    are handed to the search, which starts from the current labelling with a heavy stability
    weight (every unit leaving its previous zone costs), and may merge, split and move units;
    the ring widens when the breaks cannot be mended inside it;
-3. when the search moved more units than `fewest_moves_bound` (a counting lower bound)
+3. when the search moved more areas than `fewest_moves_bound` (a counting lower bound)
    allows, the same zones are searched again with stability first, then the CP-SAT
-   fewest-move repair of the previous zones is tried; the labelling moving fewest units
-   (counted by `matched_moves`) is kept;
-4. every other zone is kept whole with its id.
-An upper-tier zone keeps its id when its members are unchanged; nesting holds after every tier
-because tier k is redrawn from the tier-(k-1) zones.
+   fewest-move repair of the previous zones is tried; the labelling moving fewest areas
+   (`zonecodes.unit_moves`: areas whose code changes under the code policy) is kept;
+4. every other zone is kept whole with its code.
+Codes are then given per tier by the code policy (`zonecodes.assign_codes`): a zone holding
+exactly an old zone's areas always keeps its code. Nesting holds after every tier because
+tier k is redrawn from the tier-(k-1) zones. A stability weight of 0 switches stability off:
+broken zones and their neighbours are mended by the other weights alone, and no fewest-move
+step runs.
 """
 
 from __future__ import annotations
 
 import time
-from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -48,10 +50,12 @@ from zonedesign.hierarchy import (
 )
 from zonedesign.measures import bound_breaks, compact_labels, zone_sums
 from zonedesign.records import Areas, Graph
-from zonedesign.rules import Rules, TierRules, tier_in_fence
+from zonedesign.rules import STABILITY_DEFAULT, Rules, TierRules, tier_in_fence
+from zonedesign.zonecodes import Succession, assign_codes, unit_moves
 from zonedesign.zonetables import bounds_of
 
-STABILITY_DEFAULT = 20.0  # heavy by default: moving a unit must buy a lot of objective
+__all__ = ["STABILITY_DEFAULT", "redraw_hierarchy", "RedrawResult", "RedrawTier"]
+
 STABILITY_FIRST = 1000.0  # the stability weight of the fewest-move search pass
 REPAIR_WORK = 3.0  # CP-SAT deterministic time per fence for the fewest-move repair
 REPAIR_CAP = 120.0  # seconds: a safety cap that a normal run never reaches
@@ -63,8 +67,9 @@ class RedrawTier:
     zone_of_unit: np.ndarray
     zone_ids: np.ndarray
     zone_fence: np.ndarray
-    changes: pd.DataFrame
+    succession: Succession
     seconds: float
+    stability: float  # the weight the redraw used (0: off)
     fences: list[FenceResult] = field(default_factory=list)
 
 
@@ -75,13 +80,20 @@ class RedrawResult:
     new_areas: list[str]
     gone_areas: list[str]
     seconds: dict[str, float]
+    policy: str = "successor"
 
     def lookup(self) -> dict[str, np.ndarray]:
         return {t.name: t.zone_ids[t.zone_of_unit[u.of_area]] for t, u in zip(self.tiers, self.units)}
 
-    def changes(self) -> pd.DataFrame:
-        frames = [t.changes for t in self.tiers]
-        return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+
+@dataclass(frozen=True)
+class RedrawTask(FenceTask):
+    """A fence task with what counting moved areas needs: the code policy, and per unit its
+    published count (the share that decides a code's successor) and its number of areas."""
+
+    policy: str = "successor"
+    unit_weight: np.ndarray | None = None
+    unit_size: np.ndarray | None = None
 
 
 # ---------------------------------------------------------------- start labelling
@@ -198,7 +210,7 @@ def redraw_fence(task: FenceTask, rings: int = 3) -> FenceResult:
         if fresh.score.breaks < score(p, compact_labels(best)[0]).breaks:
             best = np.asarray(fresh.labels, dtype=np.int64)
             info["redesigned"] = True
-    if p.previous is not None:
+    if p.previous is not None and p.term_weights.get("stability", 0.0) > 0:
         best = _fewer_moves(task, best, active, info)
     return scored_result(task, best, t0, info)
 
@@ -254,40 +266,22 @@ def matched_moves(before: np.ndarray, after: np.ndarray) -> int:
     return int(np.asarray(before).shape[0] - overlap[rows, cols].sum())
 
 
-def keep_matched_ids(before: np.ndarray, after: np.ndarray) -> np.ndarray:
-    """`after` with each new zone named as the old zone it is matched to (when they share
-    a unit), so that only units that really moved change id; other new zones keep their
-    names (renamed apart where one clashes with a name given back)."""
-    bn, an, rows, cols, overlap = _matching(before, after)
-    # areas that had no zone ("") are no zone to name anything after
-    rename = {str(an[c]): str(bn[r]) for r, c in zip(rows, cols) if overlap[r, c] > 0 and str(bn[r]) != ""}
-    taken = set(rename.values()) | set(map(str, an))
-    for z in map(str, an):
-        if z not in rename and z in set(rename.values()):
-            # an unmatched zone whose name an old zone now carries again: a fresh name
-            j = 1
-            while f"{z}-{j}" in taken:
-                j += 1
-            rename[z] = f"{z}-{j}"
-            taken.add(rename[z])
-    out = np.asarray(after, dtype=object).copy()
-    for i, z in enumerate(out):
-        out[i] = rename.get(str(z), z)
-    return out
+def fewest_moves_bound(previous: np.ndarray, counts: np.ndarray, bounds, size: np.ndarray | None = None) -> int:
+    """A lower bound on the areas any valid redraw moves, under either code policy.
 
-
-def fewest_moves_bound(previous: np.ndarray, counts: np.ndarray, bounds) -> int:
-    """A lower bound on the units any valid redraw moves (counted as `matched_moves` does).
-
-    previous: previous zone code per unit (-1: new). A zone above a ceiling keeps at most a
-    ceiling's worth of its units in its matched zone, so it loses at least as many units as
-    its largest units take to cover the excess; these losses are different units for
-    different zones. A zone below a floor either gains units (at least as many as the
-    largest other units take to cover the shortfall) or is taken apart (all its units move).
+    previous: previous zone code per unit (-1: new); size: areas per unit (1 each when
+    None). Any code policy hands each old code to at most one new zone, so the moves are at
+    least those of the best one-to-one matching of new zones to old ones. A zone above a
+    ceiling keeps at most a ceiling's worth of its units in its matched zone, so it loses
+    at least as many units as its largest units take to cover the excess; these losses are
+    different units for different zones. A zone below a floor either gains units (at least
+    as many as the largest other units take to cover the shortfall) or is taken apart (all
+    its units move). A count of units becomes areas by the smallest units of that many.
     """
     prev = np.asarray(previous, dtype=np.int64)
     if not (prev >= 0).any():
         return 0
+    size = np.ones(prev.shape[0]) if size is None else np.asarray(size, dtype=np.float64)
     k = int(prev.max()) + 1
     sums = zone_sums(np.where(prev >= 0, prev, 0), k, np.where((prev >= 0)[:, None], counts, 0.0))
     leaving = 0
@@ -304,9 +298,10 @@ def fewest_moves_bound(previous: np.ndarray, counts: np.ndarray, bounds) -> int:
             lack = bounds.lo[c] - sums[z, c]
             if lack > 1e-9:
                 need_in = max(need_in, _units_to_cover(counts[~members, c], lack))
-        leaving += need_out
+        leaving += int(np.sort(size[members])[:need_out].sum())
         if need_in:
-            shortfall = max(shortfall, min(need_in, int(members.sum())))
+            smallest_in = np.sort(size[~members])[:need_in].sum()
+            shortfall = max(shortfall, int(min(smallest_in, size[members].sum())))
     return max(leaving, shortfall)
 
 
@@ -326,14 +321,14 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
     deterministic, so a redraw repeats exactly under any load.
     """
     from zonedesign.records import Areas
-    from zonedesign.rules import TierRules
     from zonedesign.verify.repair import minimal_repair
 
     p = task.problem
     prev = np.asarray(p.previous, dtype=np.int64)
     b = p.bounds
-    search_moves = matched_moves(prev, searched)
-    bound = fewest_moves_bound(prev, p.counts, b)
+    moves = _mover(task)
+    search_moves = moves(searched)
+    bound = fewest_moves_bound(prev, p.counts, b, getattr(task, "unit_size", None))
     searched_breaks = _breaks(p, searched)
     info["moves_search"] = search_moves
     info["moves_bound"] = bound
@@ -344,7 +339,7 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
 
         first = replace(task, problem=replace(p, term_weights={**p.term_weights, "stability": STABILITY_FIRST}))
         again, breaks = _search_ring(first, active, task.seed + 100)
-        again_moves = matched_moves(prev, again)
+        again_moves = moves(again)
         info["moves_stability_first"] = again_moves
         if breaks == 0 and (searched_breaks > 0 or again_moves < search_moves):
             searched, search_moves, searched_breaks = again, again_moves, 0
@@ -381,13 +376,27 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
     codes, _ = compact_labels(np.asarray(rep.labels[task.tier], dtype=object))
     if _breaks(p, codes) > 0:
         return searched
-    repair_moves = matched_moves(prev, codes)
+    repair_moves = moves(codes)
     info["moves_repair"] = repair_moves
     if searched_breaks == 0 and repair_moves >= search_moves:
         return searched
     proven = rep.status == "optimal" or repair_moves <= bound
     info["mended_by"] = "cp-sat fewest moves" + (" (proven)" if proven else "")
     return codes
+
+
+def _mover(task: FenceTask):
+    """Areas a labelling of this fence moves: `zonecodes.unit_moves` under the task's code
+    policy (units counted once each, by the best matching, for a plain fence task)."""
+    prev = np.asarray(task.problem.previous, dtype=np.int64)
+    if not isinstance(task, RedrawTask) or task.unit_size is None:
+        return lambda labels: matched_moves(prev, labels)
+    weight = task.unit_weight if task.unit_weight is not None else task.problem.counts[:, 0]
+
+    def moves(labels: np.ndarray) -> int:
+        return unit_moves(prev, compact_labels(labels)[0], weight, task.unit_size, task.policy)
+
+    return moves
 
 
 def _breaks(p, labels: np.ndarray) -> float:
@@ -423,88 +432,6 @@ def run_redraw_task(task: FenceTask) -> FenceResult:
         )
 
 
-# ---------------------------------------------------------------- ids and changes
-
-
-def name_zones(
-    fence: str,
-    tier: str,
-    labels: np.ndarray,
-    prev_ids: np.ndarray,
-    prev_members: dict[str, set[int]],
-    taken: set[str],
-) -> tuple[list[str], list[dict]]:
-    """Zone ids and change rows for one fence: ids survive where the zone carries on.
-
-    labels: new zone per unit (0..k-1); prev_ids: previous zone id per unit ("" when new);
-    prev_members: previous zone id -> its units (in this fence, present now).
-    """
-    k = int(labels.max()) + 1 if labels.size else 0
-    members = [np.flatnonzero(labels == z) for z in range(k)]
-    overlap: list[dict[str, int]] = []
-    for m in members:
-        vals, cnt = np.unique(prev_ids[m], return_counts=True)
-        overlap.append({str(v): int(c) for v, c in zip(vals, cnt) if v != ""})
-    # each previous zone's successor: the new zone holding most of its units
-    successor: dict[str, int] = {}
-    for z, ov in enumerate(overlap):
-        for pid, c in ov.items():
-            if pid not in successor or c > overlap[successor[pid]].get(pid, 0):
-                successor[pid] = z
-    spread: dict[str, int] = {}
-    for ov in overlap:
-        for pid in ov:
-            spread[pid] = spread.get(pid, 0) + 1
-    ids: list[str] = []
-    rows: list[dict] = []
-    counter = 0
-    for z, m in enumerate(members):
-        ov = overlap[z]
-        dominant = max(sorted(ov), key=lambda q: ov[q]) if ov else ""
-        whole = [q for q in ov if ov[q] * 2 > len(prev_members.get(q, ())) and ov[q] > 0]
-        if not ov:
-            kind = "new"
-        elif set(m.tolist()) == prev_members.get(dominant, set()):
-            kind = "kept"
-        elif len(whole) >= 2:
-            kind = "merged"
-        elif spread.get(dominant, 1) >= 2 and ov[dominant] < len(prev_members.get(dominant, ())) and not _mostly_kept(ov[dominant], prev_members.get(dominant, ())):
-            kind = "split"
-        else:
-            kind = "reshaped"
-        if kind in ("kept", "reshaped", "merged") and successor.get(dominant) == z and dominant not in taken:
-            zid = dominant
-        else:
-            while True:
-                counter += 1
-                zid = f"{fence}-{tier}-n{counter:04d}"
-                if zid not in taken and zid not in prev_members:
-                    break
-        taken.add(zid)
-        ids.append(zid)
-        moved = int(sum(1 for u in m if prev_ids[u] != zid))
-        rows.append(
-            {
-                "tier": tier,
-                "fence": fence,
-                "old_zones": ";".join(sorted(ov)),
-                "new_zone": zid,
-                "kind": kind,
-                "units_moved": moved,
-            }
-        )
-    for pid in sorted(prev_members):
-        if pid not in ids and prev_members[pid]:
-            rows.append(
-                {"tier": tier, "fence": fence, "old_zones": pid, "new_zone": "", "kind": "retired", "units_moved": 0}
-            )
-    return ids, rows
-
-
-def _mostly_kept(kept: int, members) -> bool:
-    return kept * 10 >= 9 * max(len(members), 1)
-
-
 # ---------------------------------------------------------------- hierarchy
 
 
@@ -515,10 +442,17 @@ def redraw_hierarchy(
     previous: dict[str, np.ndarray],
     *,
     executor: Executor | None = None,
+    published: np.ndarray | None = None,
 ) -> RedrawResult:
-    """Redraw every tier bottom-up; previous[tier] holds each area's previous zone id
-    ("" for areas new since the previous lookup)."""
+    """Redraw every tier bottom-up; previous[tier] holds each area's previous zone code
+    ("" for areas new since the previous lookup). published: each area's published count
+    of the first count column (the share that decides a code's successor); the new
+    counts when None. Codes follow `rules.redraw.codes`."""
+    from dataclasses import replace
+
     run = executor or serial_executor
+    policy = rules.redraw.codes
+    weight_area = areas.counts[:, 0] if published is None else np.asarray(published, dtype=np.float64)
     units = base_units(areas, graph)
     fences = fence_order(areas.fence)
     new_areas = [str(a) for a, p in zip(areas.ids, previous[rules.tiers[0].name]) if p == ""]
@@ -527,7 +461,11 @@ def redraw_hierarchy(
     seconds: dict[str, float] = {}
     for t, tier in enumerate(rules.tiers):
         t0 = time.perf_counter()
-        prev_unit = unit_previous(previous[tier.name], units.of_area, units.counts.shape[0])
+        n_units = units.counts.shape[0]
+        prev_unit = unit_previous(previous[tier.name], units.of_area, n_units)
+        unit_size = np.bincount(units.of_area, minlength=n_units).astype(np.float64)
+        unit_weight = np.bincount(units.of_area, weights=weight_area, minlength=n_units)
+        stability = float(tier.weights.get("stability", STABILITY_DEFAULT))
         tasks, meta = [], []
         for fence in fences:
             index = np.flatnonzero(units.fence == fence)
@@ -537,63 +475,49 @@ def redraw_hierarchy(
             b = bounds_of(here, areas.count_names)
             sub_graph = units.graph.subgraph(index)
             start, anchors = start_labels(sub_graph, codes, units.counts[index], b.lo)
-            weights = dict(here.weights)
-            if weights.get("stability", 0.0) <= 0:
-                weights["stability"] = STABILITY_DEFAULT
-            problem = fence_problem(units, index, _with_weights(here, weights), areas.count_names, previous=None)
-            from dataclasses import replace
-
+            # the weight actually used: the default when left out, 0 switches stability off
+            used = replace(here, weights={**here.weights, "stability": float(here.weights.get("stability", STABILITY_DEFAULT))})
+            problem = fence_problem(units, index, used, areas.count_names, previous=None)
             problem = replace(problem, previous=codes)
             tasks.append(
-                FenceTask(
+                RedrawTask(
                     fence=fence, tier=tier.name, tier_index=t, units=index, problem=problem,
                     search=rules.search, seed=task_seed(rules.search.seed, fence, t),
-                    start=start, anchors=anchors,
+                    start=start, anchors=anchors, policy=policy,
+                    unit_weight=unit_weight[index], unit_size=unit_size[index],
                 )
             )
-            meta.append((index, pid))
+            meta.append(index)
         results = run(tasks, run_redraw_task)
-        zone_of_unit = np.full(units.counts.shape[0], -1, dtype=np.int64)
-        ids: list[str] = []
+        zone_of_unit = np.full(n_units, -1, dtype=np.int64)
         zfence: list[str] = []
-        rows: list[dict] = []
-        taken: set[str] = set()
-        for fence, res, (index, pid) in zip(fences, results, meta):
+        for fence, res, index in zip(fences, results, meta):
             labels, k = compact_labels(res.labels)
-            prev_members: dict[str, set[int]] = {}
-            for u, q in enumerate(pid):
-                if q != "":
-                    prev_members.setdefault(str(q), set()).add(u)
-            zids, zrows = name_zones(fence, tier.name, labels, pid, prev_members, taken)
-            zone_of_unit[index] = labels + len(ids)
-            ids.extend(zids)
+            zone_of_unit[index] = labels + len(zfence)
             zfence.extend([fence] * k)
-            rows.extend(zrows)
-        changes = _change_table(rows, areas, units, zone_of_unit, np.array(ids, dtype=object), previous[tier.name])
+        zone_fence = np.array(zfence, dtype=object)
+        old = np.asarray(previous[tier.name], dtype=object)
+        succession = assign_codes(old, zone_of_unit[units.of_area], zone_fence, tier.name, weight_area, policy)
         seconds[f"tier {tier.name}"] = time.perf_counter() - t0
         tiers.append(
             RedrawTier(
-                name=tier.name, zone_of_unit=zone_of_unit, zone_ids=np.array(ids, dtype=object),
-                zone_fence=np.array(zfence, dtype=object), changes=changes,
-                seconds=seconds[f"tier {tier.name}"], fences=results,
+                name=tier.name, zone_of_unit=zone_of_unit, zone_ids=succession.codes,
+                zone_fence=zone_fence, succession=succession,
+                seconds=seconds[f"tier {tier.name}"], stability=stability, fences=results,
             )
         )
         all_units.append(units)
         if t + 1 < len(rules.tiers):
-            units = next_units(units, zone_of_unit, np.array(zfence, dtype=object))
-    return RedrawResult(tiers=tiers, units=all_units, new_areas=new_areas, gone_areas=[], seconds=seconds)
+            units = next_units(units, zone_of_unit, zone_fence)
+    return RedrawResult(
+        tiers=tiers, units=all_units, new_areas=new_areas, gone_areas=[], seconds=seconds, policy=policy
+    )
 
 
 def previous_codes(ids: np.ndarray) -> np.ndarray:
     """Previous zone ids as codes 0..k-1 in sorted id order; -1 for "" (no previous zone)."""
     codes, _ = pd.factorize(pd.Series(np.asarray(ids, dtype=object)).replace("", np.nan), sort=True)
     return codes.astype(np.int64)
-
-
-def _with_weights(tier: TierRules, weights: dict[str, float]) -> TierRules:
-    from dataclasses import replace
-
-    return replace(tier, weights=weights)
 
 
 def unit_previous(prev_area: np.ndarray, of_area: np.ndarray, n_units: int) -> np.ndarray:
@@ -607,62 +531,6 @@ def unit_previous(prev_area: np.ndarray, of_area: np.ndarray, n_units: int) -> n
         top = counts.drop_duplicates("u")
         out[top["u"].to_numpy()] = top["p"].to_numpy()
     return out
-
-
-def _change_table(
-    rows: list[dict], areas: Areas, units: Units, zone_of_unit: np.ndarray, zone_ids: np.ndarray, prev_area: np.ndarray
-) -> pd.DataFrame:
-    """changes.csv rows with areas moved and counts before (old zone) and after (new zone)."""
-    new_area = zone_ids[zone_of_unit[units.of_area]]
-    prev_area = np.asarray(prev_area, dtype=object)
-    moved_areas = pd.Series(new_area != prev_area).groupby(new_area).sum()
-    df = pd.DataFrame(rows)
-    if df.empty:
-        return df
-    df["areas_moved"] = [int(moved_areas.get(z, 0)) if z else 0 for z in df["new_zone"]]
-    # a zone is kept only when its base areas are the same, not just its units: an upper
-    # zone whose units were reshaped underneath it has changed too
-    same = _same_areas(prev_area, new_area)
-    reshaped = (df["kind"] == "kept") & ~df["new_zone"].map(lambda z: same.get(z, False))
-    df.loc[reshaped, "kind"] = "reshaped"
-    for c, name in enumerate(areas.count_names):
-        after = pd.Series(areas.counts[:, c]).groupby(new_area).sum()
-        before = pd.Series(areas.counts[:, c]).groupby(prev_area).sum()
-        df[f"{name}_before"] = [
-            float(sum(before.get(q, 0.0) for q in str(o).split(";") if q)) for o in df["old_zones"]
-        ]
-        df[f"{name}_after"] = [float(after.get(z, 0.0)) if z else 0.0 for z in df["new_zone"]]
-    return df.drop(columns=["units_moved"])
-
-
-def change_shares(changes: pd.DataFrame, tiers: Sequence[str], lookup: dict[str, np.ndarray], previous: dict[str, np.ndarray]) -> dict:
-    """Per tier: share of previous zones kept unchanged and the number of areas moved."""
-    out = {}
-    for name in tiers:
-        c = changes[changes["tier"] == name] if len(changes) else changes
-        prev = np.asarray(previous[name], dtype=object)
-        n_prev = len(set(prev[prev != ""].tolist()))
-        kept = int((c["kind"] == "kept").sum()) if len(c) else 0
-        moved = int((np.asarray(lookup[name], dtype=object) != prev).sum())
-        out[name] = {
-            "previous_zones": n_prev,
-            "kept": kept,
-            "share_unchanged": kept / n_prev if n_prev else 1.0,
-            "share_changed": 1 - kept / n_prev if n_prev else 0.0,
-            "areas_moved": moved,
-            "kinds": {k: int(v) for k, v in c["kind"].value_counts().sort_index().items()} if len(c) else {},
-        }
-    return out
-
-
-def _same_areas(previous: np.ndarray, now: np.ndarray) -> dict[str, bool]:
-    """Zone id -> whether it holds exactly the areas it held before."""
-    prev = pd.Series(np.asarray(previous, dtype=object))
-    cur = pd.Series(np.asarray(now, dtype=object))
-    inside = (prev == cur).groupby(cur).all()
-    n_now = cur.value_counts()
-    n_prev = prev[prev != ""].value_counts().reindex(n_now.index, fill_value=0)
-    return {str(z): bool(inside[z] and n_now[z] == n_prev[z]) for z in n_now.index}
 
 
 def unchanged_share(previous: np.ndarray, now: np.ndarray) -> float:

@@ -23,7 +23,7 @@
     min = { households = 50, persons = 120 }    # set from your own disclosure-control rules
     max = { households = 280, persons = 700 }
     target = { households = 140 }
-    weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 0.0 }
+    weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 20.0 }
     homogeneity = "ssd"               # or "pairwise"
     compactness = "polsby"            # or "cut"
 
@@ -36,6 +36,9 @@
     constructions = 4
     time_limit_fence = 10.0           # seconds per fence and tier
     time_limit_total = 600.0          # seconds for the whole run
+
+    [redraw]                          # optional
+    codes = "successor"               # or "fresh": how zone codes carry on in a redraw
 """
 
 from __future__ import annotations
@@ -93,6 +96,9 @@ class GraphRules:
     links: Path | None = None
 
 
+STABILITY_DEFAULT = 20.0  # a redraw's cost of moving a unit; 0 switches stability off
+
+
 @dataclass(frozen=True)
 class TierOverride:
     """Bounds, target and weights that replace the tier's own in some fences only."""
@@ -111,7 +117,9 @@ class TierRules:
     max: dict[str, float] = field(default_factory=dict)
     target: dict[str, float] = field(default_factory=dict)
     weights: dict[str, float] = field(
-        default_factory=lambda: {"size": 1.0, "homogeneity": 1.0, "compactness": 1.0, "stability": 0.0}
+        default_factory=lambda: {
+            "size": 1.0, "homogeneity": 1.0, "compactness": 1.0, "stability": STABILITY_DEFAULT
+        }
     )
     homogeneity: str = "ssd"
     compactness: str = "polsby"
@@ -183,11 +191,19 @@ class SearchRules:
 
 
 @dataclass(frozen=True)
+class RedrawRules:
+    # "successor": an old code passes to the new zone holding most of its published count;
+    # "fresh": every zone that changed gets a new code
+    codes: str = "successor"
+
+
+@dataclass(frozen=True)
 class Rules:
     areas: AreasRules
     tiers: tuple[TierRules, ...]
     graph: GraphRules = GraphRules()
     search: SearchRules = SearchRules()
+    redraw: RedrawRules = RedrawRules()
     source: Path | None = None
     text: str = ""
 
@@ -227,7 +243,9 @@ SEARCH_KEYS = (
     "max_no_improve",
     "restarts",
 )
-TOP_KEYS = ("areas", "graph", "tier", "search")
+REDRAW_KEYS = ("codes",)
+CODE_POLICIES = ("successor", "fresh")
+TOP_KEYS = ("areas", "graph", "tier", "search", "redraw")
 
 _BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
 _KEY_PART = r"""(?:[A-Za-z0-9_-]+|"(?:[^"\\]|\\.)*"|'[^']*')"""
@@ -507,8 +525,16 @@ def _build(data: dict, check: _Check, base_dir: Path | None) -> Rules:
     graph = _graph(top.get("graph", {}), check, base_dir)
     search = _search(top.get("search", {}), check)
     tiers = _tiers(top.get("tier"), check, areas)
+    redraw = _redraw(top.get("redraw", {}), check)
     _raise(check.problems)
-    return Rules(areas=areas, tiers=tiers, graph=graph, search=search)
+    return Rules(areas=areas, tiers=tiers, graph=graph, search=search, redraw=redraw)
+
+
+def _redraw(value: object, check: _Check) -> RedrawRules:
+    path: KeyPath = ("redraw",)
+    t = check.table(value, path, REDRAW_KEYS, "[redraw]")
+    codes = check.text(t, "codes", path, choices=CODE_POLICIES)
+    return RedrawRules(codes=codes or RedrawRules().codes)
 
 
 def _raise(problems: list[str]) -> None:
@@ -852,6 +878,8 @@ def rules_to_toml(rules: Rules) -> str:
             out += [f"{k} = {_toml_value(v)}" for k, v in o.items() if v or k == "fences"]
     out += ["", "[search]"]
     out += [f"{k} = {_toml_value(v)}" for k, v in data["search"].items()]
+    out += ["", "[redraw]"]
+    out += [f"{k} = {_toml_value(v)}" for k, v in data["redraw"].items()]
     return "\n".join(out) + "\n"
 
 
@@ -894,7 +922,8 @@ def _rules_data(rules: Rules) -> dict:
     ]
     # a setting left to the effort preset (None) is not written
     search = {key: getattr(rules.search, key) for key in SEARCH_KEYS if getattr(rules.search, key) is not None}
-    return {"areas": areas, "graph": graph, "tier": tiers, "search": search}
+    redraw = {key: getattr(rules.redraw, key) for key in REDRAW_KEYS}
+    return {"areas": areas, "graph": graph, "tier": tiers, "search": search, "redraw": redraw}
 
 
 def _toml_value(value: object) -> str:

@@ -65,6 +65,7 @@ def show(folder: str | Path) -> str:
                 f"{c.get('areas_moved', '?')} areas moved"
             )
     lines += _sweep_lines(s)
+    lines += _repair_line(s)
     audit = s.get("audit") or {}
     if audit:
         violations = [v for v in audit.get("violations") or [] if isinstance(v, dict)]
@@ -136,3 +137,15 @@ def _first(items: list) -> str:
 
 def _more(items: list) -> list[str]:
     return [f"    ... and {len(items) - SHOWN} more (see summary.json)"] if len(items) > SHOWN else []
+
+
+def _repair_line(s: dict) -> list[str]:
+    """One line on an audit's repair: method, moves, whether proven fewest, where it is."""
+    rep = s.get("repair")
+    if not isinstance(rep, dict):
+        return []
+    proven = "proven fewest" if rep.get("proven_fewest") else "not proven fewest"
+    passes = "passes" if rep.get("repaired_lookup_passes") else "does not pass"
+    where = f", in {rep['folder']}/" if rep.get("folder") else ""
+    return [f"  repair: {rep.get('method', '?')}, {rep.get('moves', '?')} area move(s) ({proven}); "
+            f"the repaired hierarchy {passes} the audit{where}"]

@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from zonedesign.records import Graph
+from zonedesign.rules import STABILITY_DEFAULT
 
 _ID_NAME = re.compile(r"(^id$|_id$|^id_|code|key|^fid$|geoid|fips|_$|no$|num$|^objectid$|tract|^sp_id$)", re.I)
 _FENCE_NAME = re.compile(r"(district|county|region|munic|borough|parish|province|state|fence)", re.I)
@@ -154,6 +155,9 @@ def starter_rules(table: pd.DataFrame, graph: Graph | None = None, *, note: str 
         "constructions = 4",
         "time_limit_fence = 10.0   # seconds per fence and tier",
         "time_limit_total = 600.0   # seconds for the whole run",
+        "",
+        "[redraw]",
+        'codes = "successor"   # an old code passes to the new zone holding most of it; "fresh": changed zones get new codes',
     ]
     return "\n".join(out) + "\n"
 
@@ -196,9 +200,9 @@ def _tiers(table: pd.DataFrame, bounded: list[str], primary: str | None, fence: 
             if values:
                 out.append(f"{key} = {_table(values)}   {PLACEHOLDER}")
         out += [
-            "weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 0.0 }",
-            "# stability counts only in a redraw (0 means 20 there); where these weights would move",
-            "# more areas than needed, a redraw searches again for the fewest moves",
+            f"weights = {{ size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = {STABILITY_DEFAULT:g}.0 }}",
+            f"# stability counts only in a redraw ({STABILITY_DEFAULT:g} when left out; 0 switches it off, and",
+            "# then the redraw mends broken zones by these weights alone, without seeking the fewest moves)",
             'homogeneity = "ssd"   # or "pairwise"',
             'compactness = "polsby"   # or "cut"',
         ]

@@ -128,7 +128,7 @@ class ReportPlan:
         ch = self.changes
         if ch is None or not isinstance(ch, pd.DataFrame) or ch.empty or "kind" not in ch:
             return
-        new_col = "new_zone" if "new_zone" in ch else ("new_zones" if "new_zones" in ch else None)
+        new_col = next((c for c in ("new_code", "new_zone", "new_zones") if c in ch), None)
         if new_col is None or "tier" not in ch:
             return
         for tier, part in ch.groupby("tier", sort=False):

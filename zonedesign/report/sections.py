@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from zonedesign.report import charts
+from zonedesign.report.changelist import change_list, policy_note, repair_section
 from zonedesign.report.format import (
     TABLE_ROWS,
     Raw,
@@ -215,6 +216,8 @@ def _changes(run: ReportPlan) -> str:
                 rows,
             )
         )
+    out.append(policy_note(run.summary))
+    out.append(change_list(ch))
     return "".join(out)
 
 
@@ -716,6 +719,7 @@ SECTIONS: list[tuple[str, str, Callable[[ReportPlan], str]]] = [
     ("zones", "Zones", _zones),
     ("fences", "Fences", _fences),
     ("violations", "Rule breaks", _violations),
+    ("repair", "Repair", lambda run: repair_section(run.summary)),
     ("certificate", "Certificate and proofs", _certificate),
     ("input", "Input", _input),
     ("rules", "Rules used", _rules),

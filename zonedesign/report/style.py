@@ -12,13 +12,14 @@ import hashlib
 
 from zonedesign.report.colouring import WARNING, palette
 
-CHANGE_KINDS = ("kept", "merged", "split", "reshaped", "new")
+CHANGE_KINDS = ("kept", "merged", "split", "merged-and-split", "reshaped", "new")
 KIND_STYLE = {
     # fill, pattern drawn over it; each kind differs in pattern as well as in colour
     "kept": ("#e4e1d9", ""),
     "merged": ("#a9c8e8", '<path d="M0 2h8M0 6h8" stroke="#2f4f6f" stroke-width="1"/>'),
     "split": ("#f2c48d", '<path d="M2 0v8M6 0v8" stroke="#7a4a12" stroke-width="1"/>'),
     "reshaped": ("#b5d6a7", '<circle cx="4" cy="4" r="1.3" fill="#2f5a25"/>'),
+    "merged-and-split": ("#9fd4cf", '<path d="M0 2h8M0 6h8M2 0v8M6 0v8" stroke="#245a55" stroke-width="0.8"/>'),
     "new": ("#d9b8e0", '<path d="M0 4h8M4 0v8" stroke="#5a2f66" stroke-width="1"/>'),
     "other": ("#ffffff", '<path d="M0 8L8 0" stroke="#555" stroke-width="0.8"/>'),
 }
@@ -27,6 +28,7 @@ KIND_WORDS = {
     "merged": "merged: two or more previous zones joined",
     "split": "split: part of a previous zone",
     "reshaped": "reshaped: a previous zone with areas moved in or out",
+    "merged-and-split": "merged-and-split: built from parts of two or more previous zones",
     "new": "new: no previous zone behind it",
     "other": "other",
 }
