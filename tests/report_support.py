@@ -324,3 +324,71 @@ class Page(HTMLParser):
         ):
             if self.zone_paths:
                 self.zone_paths[-1]["title"] += data
+
+
+def merged_run(run: dict, tier: str, pairs: list[tuple[str, str]]) -> dict:
+    """`run` redrawn: each pair of zones of `tier` merged into one new zone, every other kept.
+
+    The new zones get codes no zone had before (`N0`, `N1`, ...), as a redraw names them.
+    """
+    import geopandas as gpd
+
+    table = run["tables"][tier].set_index("zone")
+    layer = run["layers"][tier].set_index("zone")
+    gone = {z for pair in pairs for z in pair}
+    rows, geoms = [], []
+    for k, (a, b) in enumerate(pairs):
+        row = table.loc[a].copy()
+        for c in ("households", "persons", "n_areas", "n_units"):
+            if c in table:
+                row[c] = table.loc[a, c] + table.loc[b, c]
+        row.name = f"N{k}"
+        rows.append(row)
+        geoms.append(shapely.union_all([layer.geometry[a], layer.geometry[b]]))
+    kept = table.drop(index=sorted(gone))
+    new_table = pd.concat([kept, pd.DataFrame(rows)]).rename_axis("zone").reset_index()
+    new_geoms = list(layer.drop(index=sorted(gone)).geometry) + geoms
+    tables = dict(run["tables"], **{tier: new_table})
+    layers = dict(run["layers"], **{tier: gpd.GeoDataFrame(new_table.copy(), geometry=new_geoms, crs=layer.crs)})
+    summary = dict(run["summary"], command="redraw")
+    return {"summary": summary, "tables": tables, "layers": layers}
+
+
+# NY8 census tracts (Debian r-cran-spdata, NY8_utm18.shp): POP8 persons, county = AREAKEY[:5]
+NY8_RULES = """
+[areas]
+id = "AREAKEY"
+counts = ["POP8"]
+attributes = ["PCTOWNHOME", "PCTAGE65P"]
+fence = "county"
+weight = "POP8"
+
+[[tier]]
+name = "tier1"
+min = { POP8 = 5000 }
+max = { POP8 = 16000 }
+target = { POP8 = 9000 }
+
+[[tier]]
+name = "tier2"
+min = { POP8 = 20000 }
+max = { POP8 = 150000 }
+target = { POP8 = 50000 }
+
+[search]
+method = "descent"
+seed = 2
+time_limit_fence = 2.0
+"""
+NY8_TIED = "tier.2.min.POP8,tier.2.target.POP8=20000/30000,40000/50000,60000/65000"
+
+
+def ny8_inputs(spdata_dir, folder):
+    """NY8 tracts as a GeoPackage with a county column, and the rules above, in `folder`."""
+    import geopandas as gpd
+
+    frame = gpd.read_file(spdata_dir / "NY8_utm18.shp", engine="pyogrio")
+    frame["county"] = frame["AREAKEY"].astype(str).str[:5]
+    frame.to_file(folder / "ny8.gpkg", layer="tracts", driver="GPKG")
+    (folder / "rules.toml").write_text(NY8_RULES)
+    return folder / "ny8.gpkg", folder / "rules.toml"

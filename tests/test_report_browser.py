@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from report_support import grid_run
+from report_support import NY8_TIED, grid_run, merged_run, ny8_inputs
 
 from zonedesign.report.colouring import PALETTE, WARNING
 from zonedesign.report.html import write_report
@@ -349,3 +349,120 @@ def test_a_link_into_a_closed_fence_section_opens_it_and_shows_the_zone(browser,
     assert 0 <= state["top"] and state["bottom"] <= state["h"]  # scrolled into view
     assert console_errors(browser, sid) == []
     assert fetched(browser, sid, url) == []
+
+
+# ---------------------------------------------------------------- pan, zoom and colours by code
+
+
+def viewbox(b: Browser, sid: str, svg_id: str) -> list[float]:
+    return b.eval(sid, f"document.getElementById('{svg_id}').getAttribute('viewBox').split(' ').map(Number)")
+
+
+def wheel(b: Browser, sid: str, svg_id: str, x: float, y: float, delta: float) -> None:
+    """A scripted wheel event over the map at (x, y), as a mouse wheel sends it."""
+    b.eval(sid, f"document.getElementById('{svg_id}').dispatchEvent(new WheelEvent('wheel', "
+                f"{{deltaY: {delta}, clientX: {x}, clientY: {y}, bubbles: true, cancelable: true}}))")
+
+
+def centre_of(b: Browser, sid: str, svg_id: str) -> tuple[float, float]:
+    return tuple(b.eval(
+        sid,
+        f"(() => {{ const s = document.getElementById('{svg_id}'); s.scrollIntoView({{block: 'center'}});"
+        " const r = s.getBoundingClientRect(); return [r.left + r.width / 2, r.top + r.height / 2]; })()",
+    ))
+
+
+def test_the_wheel_zooms_a_map_and_a_drag_pans_it(browser, design):
+    sid = design["sid"]
+    before = viewbox(browser, sid, "map-block")
+    x, y = centre_of(browser, sid, "map-block")
+    wheel(browser, sid, "map-block", x, y, -240)
+    zoomed = viewbox(browser, sid, "map-block")
+    assert zoomed[2] < before[2] and zoomed[3] < before[3]  # a smaller window onto the map: zoomed in
+    browser.send("Input.dispatchMouseEvent", {"type": "mousePressed", "x": x, "y": y, "button": "left",
+                                              "clickCount": 1}, sid)
+    browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": x + 80, "y": y + 40, "button": "left",
+                                              "buttons": 1}, sid)
+    browser.send("Input.dispatchMouseEvent", {"type": "mouseReleased", "x": x + 80, "y": y + 40, "button": "left",
+                                              "clickCount": 1}, sid)
+    panned = viewbox(browser, sid, "map-block")
+    assert panned[0] < zoomed[0] and panned[1] < zoomed[1] and panned[2:] == pytest.approx(zoomed[2:], rel=1e-6)
+    # zoomed in, the zone under the pointer still tells its code
+    zone = browser.eval(sid, f"document.elementFromPoint({x}, {y}).closest('.zone').dataset.zone")
+    browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": x, "y": y}, sid)
+    assert f"zone {zone}" in browser.eval(sid, "document.getElementById('tip').textContent")
+    browser.eval(sid, "document.getElementById('map-block').dispatchEvent(new MouseEvent('dblclick'))")
+    assert viewbox(browser, sid, "map-block") == pytest.approx(before)  # a double click shows the whole map again
+    assert console_errors(browser, sid) == []  # the script ran under the page's hashed CSP
+
+
+def test_a_design_and_its_redraw_paint_a_kept_zone_alike(browser, tmp_path):
+    design_run = grid_run(8, parents=(4,), fence_side=4, low_zones=0)
+    redraw_run = merged_run(design_run, "block", [("B0", "B1"), ("B18", "B26")])
+    fills = []
+    for name, run in (("design", design_run), ("redraw", redraw_run)):
+        path = tmp_path / f"{name}.html"
+        write_report(path, **run)
+        sid = browser.open(path.resolve().as_uri())
+        fills.append(browser.eval(
+            sid,
+            "Object.fromEntries(Array.from(document.querySelectorAll('#map-block path.zone'))"
+            ".map(p => [p.dataset.zone, getComputedStyle(p).fill]))",
+        ))
+    kept = sorted(set(fills[0]) & set(fills[1]))
+    assert len(kept) == len(fills[0]) - 4
+    same = [z for z in kept if fills[0][z] == fills[1][z]]
+    # fills follow zone codes, so nearly every kept zone looks as it did (colouring.colour_by_code)
+    assert len(same) >= 0.9 * len(kept), sorted(set(kept) - set(same))
+
+
+@pytest.fixture(scope="module")
+def sweep_page(spdata_dir, tmp_path_factory, browser):
+    from zonedesign.cli import main
+
+    folder = tmp_path_factory.mktemp("ny8-sweep")
+    areas, rules = ny8_inputs(spdata_dir, folder)
+    code = main(["sweep", str(areas), "--rules", str(rules), "--vary", NY8_TIED, "--out", str(folder / "out"),
+                 "--quiet"])
+    assert code == 1  # three counties cannot meet the 60,000 floor
+    url = (folder / "out" / "report.html").resolve().as_uri()
+    sid = browser.open(url)
+    browser.send("Emulation.setDeviceMetricsOverride",
+                 {"width": 1400, "height": 1000, "deviceScaleFactor": 1, "mobile": False}, sid)
+    return {"sid": sid, "url": url, "out": folder / "out"}
+
+
+@pytest.mark.opendata
+def test_the_sweep_decision_table_fits_1400_px_without_horizontal_scrolling(browser, sweep_page):
+    sid = sweep_page["sid"]
+    assert console_errors(browser, sid) == [] and fetched(browser, sid, sweep_page["url"]) == []
+    fit = browser.eval(
+        sid,
+        "(() => { const t = document.getElementById('decision-table'); const w = t.closest('.table-wrap');"
+        " const cells = Array.from(t.querySelectorAll('th, td')).map(c => c.getBoundingClientRect().right);"
+        " return {page: document.documentElement.scrollWidth, wrap: w.scrollWidth - w.clientWidth,"
+        " right: Math.max(...cells), rows: t.tBodies[0].rows.length}; })()",
+    )
+    assert fit["page"] <= 1400 and fit["wrap"] <= 0 and fit["right"] <= 1400
+    assert fit["rows"] == 3
+    # the best value of a column is marked by a star as well as by weight and shade
+    assert browser.eval(sid, "document.querySelectorAll('#decision-table td.best').length") > 0
+    assert "\u2605" in browser.eval(
+        sid, "getComputedStyle(document.querySelector('#decision-table td.best'), '::before').content"
+    )
+
+
+@pytest.mark.opendata
+def test_the_sweep_maps_share_one_scale_zoom_together_and_name_a_zone_on_hover(browser, sweep_page):
+    sid = sweep_page["sid"]
+    ids = browser.eval(sid, "Array.from(document.querySelectorAll('.maps-side svg.zonemap')).map(s => s.id)")
+    assert len(ids) == 3
+    boxes = [viewbox(browser, sid, i) for i in ids]
+    assert all(b == boxes[0] for b in boxes)  # one frame: one scale for every variant
+    x, y = centre_of(browser, sid, ids[0])
+    wheel(browser, sid, ids[0], x, y, -240)
+    zoomed = [viewbox(browser, sid, i) for i in ids]
+    assert zoomed[0][2] < boxes[0][2] and all(b == zoomed[0] for b in zoomed)
+    zone = browser.eval(sid, f"document.elementFromPoint({x}, {y}).closest('.zone').dataset.zone")
+    browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": x, "y": y}, sid)
+    assert f"zone {zone}" in browser.eval(sid, "document.getElementById('tip').textContent")

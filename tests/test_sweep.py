@@ -12,6 +12,7 @@ import geopandas as gpd
 import pandas as pd
 import pytest
 from hierarchy_support import two_tier_rules, voronoi_instance
+from report_support import NY8_TIED, ny8_inputs
 
 from zonedesign import api
 from zonedesign.cli import main
@@ -121,41 +122,13 @@ def test_each_variant_is_checked_as_a_whole_and_an_invalid_one_says_why():
 
 # ---------------------------------------------------------------- NY8 (open data)
 
-NY8_RULES = """
-[areas]
-id = "AREAKEY"
-counts = ["POP8"]
-attributes = ["PCTOWNHOME", "PCTAGE65P"]
-fence = "county"
-weight = "POP8"
-
-[[tier]]
-name = "tier1"
-min = { POP8 = 5000 }
-max = { POP8 = 16000 }
-target = { POP8 = 9000 }
-
-[[tier]]
-name = "tier2"
-min = { POP8 = 20000 }
-max = { POP8 = 150000 }
-target = { POP8 = 50000 }
-
-[search]
-method = "descent"
-seed = 2
-time_limit_fence = 2.0
-"""
-TIED = "tier.2.min.POP8,tier.2.target.POP8=20000/30000,40000/50000,60000/65000"
+TIED = NY8_TIED
 
 
 @pytest.fixture(scope="module")
 def ny8(spdata_dir, tmp_path_factory):
     folder = tmp_path_factory.mktemp("ny8")
-    frame = gpd.read_file(spdata_dir / "NY8_utm18.shp", engine="pyogrio")
-    frame["county"] = frame["AREAKEY"].astype(str).str[:5]  # r-cran-spdata NY8: county = AREAKEY[:5]
-    frame.to_file(folder / "ny8.gpkg", layer="tracts", driver="GPKG")
-    (folder / "rules.toml").write_text(NY8_RULES)
+    ny8_inputs(spdata_dir, folder)
     return folder
 
 

@@ -84,7 +84,7 @@ def count_histograms(
     if not names:
         return None
     plt = _pyplot()
-    fig, axes = plt.subplots(1, len(names), figsize=(3.1 * len(names) + 0.4, 2.3), squeeze=False)
+    fig, axes = plt.subplots(1, len(names), figsize=(max(10.5, 3.1 * len(names) + 0.4), 2.6), squeeze=False)
     for ax, name in zip(axes[0], names):
         x = np.asarray(values[name], dtype=float)
         x = x[np.isfinite(x)]
@@ -120,7 +120,7 @@ def shape_boxplots(series: Mapping[str, Mapping[str, np.ndarray]]) -> str | None
         return None
     plt = _pyplot()
     fig, axes = plt.subplots(
-        1, len(measures), figsize=(3.4 * len(measures) + 0.4, 2.5), squeeze=False
+        1, len(measures), figsize=(max(10.5, 3.4 * len(measures) + 0.4), 2.8), squeeze=False
     )
     for ax, m in zip(axes[0], measures):
         tiers = [t for t, v in series[m].items() if np.asarray(v).size]
@@ -147,7 +147,7 @@ def share_bars(shares: Mapping[str, float], title: str) -> str | None:
     plt = _pyplot()
     tiers = list(shares)
     vals = [float(shares[t]) for t in tiers]
-    fig, ax = plt.subplots(figsize=(4.6, 0.5 + 0.35 * len(tiers)))
+    fig, ax = plt.subplots(figsize=(8.0, 0.7 + 0.4 * len(tiers)))
     y = np.arange(len(tiers))
     ax.barh(y, vals, color=BARS, edgecolor=EDGE, linewidth=0.5)
     for yi, v in zip(y, vals):

@@ -12,9 +12,14 @@ Size budget: the file stays under `REPORT_BYTES` (8 MB) whatever the run's size.
   (fences holding rule breaks first); fences past it, and whole tiers when nothing fits,
   are named in a line saying why they were left out. Change maps of a redraw come after
   the tier maps, from what is left.
-- Long tables stop at `format.TABLE_ROWS` rows and say how many were left out; zone lists
-  show every zone of a tier of at most `plan.ZONE_LIST_ROWS` zones, else only zones that
-  break a rule. summary.json, violations.csv and zones.gpkg always hold everything.
+- Long tables stop at `format.TABLE_ROWS` rows and say how many were left out; the Zones
+  section lists every tier: all zones of a tier of at most `plan.ZONE_LIST_ROWS` zones, else
+  the zones that break a rule and the `plan.DEVIATION_ROWS` zones furthest from their target,
+  with a sentence pointing to zones.gpkg. summary.json, violations.csv and zones.gpkg always
+  hold everything.
+- Maps zoom with the wheel (or + and -), pan by dragging (or the arrow keys) and show a
+  zone's code and figures on hover; the one inline script is allowed by its hash in the
+  content security policy.
 """
 
 from __future__ import annotations

@@ -30,6 +30,7 @@ from zonedesign.report.svgmap import (
 REPORT_BYTES = 8_000_000
 MAPS_BYTES = 6_000_000
 ZONE_LIST_ROWS = 500
+DEVIATION_ROWS = 50  # zones furthest from target listed for a tier over ZONE_LIST_ROWS
 MIN_ZONE_BYTES = 120  # a drawn zone never costs less: used to skip fences that cannot fit
 
 
@@ -145,10 +146,19 @@ class ReportPlan:
             zones = table["zone"].astype(str)
             if len(table) <= ZONE_LIST_ROWS:
                 self.listed[tier] = set(zones)
-            else:
-                self.listed[tier] = {z for z in zones if (tier, z) in self.problems}
-                if len(self.listed[tier]) > ZONE_LIST_ROWS:
-                    self.listed[tier] = set(sorted(self.listed[tier])[:ZONE_LIST_ROWS])
+                continue
+            # over the cap: every zone that breaks a rule, then the zones furthest from
+            # their target, so each tier is present and its extremes are in view
+            broken = sorted(z for z in zones if (tier, z) in self.problems)[:ZONE_LIST_ROWS]
+            devs = [c for c in table.columns if str(c).endswith("_vs_target")]
+            listed = set(broken)
+            if devs:
+                worst = table[devs].abs().max(axis=1).fillna(0).to_numpy()
+                for i in np.argsort(-worst, kind="stable")[:DEVIATION_ROWS]:
+                    if len(listed) >= ZONE_LIST_ROWS + DEVIATION_ROWS:
+                        break
+                    listed.add(zones.iat[int(i)])
+            self.listed[tier] = listed
 
     # ------------------------------------------------------------ maps
 

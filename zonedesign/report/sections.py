@@ -341,7 +341,13 @@ def _zones(run: ReportPlan) -> str:
     for tier in run.tiers:
         table = run.tables.get(tier)
         listed = run.listed.get(tier)
-        if table is None or not listed:
+        if table is None:
+            continue
+        if not listed:
+            out.append(
+                f'<p class="note">Tier {esc(tier)}: {len(table):,} zones, none of them breaks a rule or has a target '
+                f"to deviate from; every zone is in zones.gpkg, layer {esc(tier)}.</p>"
+            )
             continue
         sub = table[table["zone"].astype(str).isin(listed)]
         sub = sub.assign(zone=sub["zone"].astype(str))
@@ -372,7 +378,11 @@ def _zones(run: ReportPlan) -> str:
         if len(table) <= ZONE_LIST_ROWS:
             caption = f"Every zone of tier {tier} ({len(table):,})"
         else:
-            caption = f"Zones of tier {tier} that break a rule ({len(sub):,} of {len(table):,} zones; the full list is in zones.gpkg)"
+            caption = (
+                f"Tier {tier} has {len(table):,} zones, more than the report lists: shown are the zones that break "
+                f"a rule and those furthest from their target ({len(sub):,} in all); every zone is in zones.gpkg, "
+                f"layer {tier}"
+            )
         out.append(
             f"<details><summary>Tier {esc(tier)}: {len(sub):,} zone(s) listed</summary>"
             f"{html_table(caption, [c.replace('_', ' ') for c in cols], rows, row_ids=ids, row_headers=True)}</details>"

@@ -7,6 +7,7 @@ of an axis from 0, never in the middle of an auto-scaled -0.04 to 0.04.
 
 from __future__ import annotations
 
+import textwrap
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -37,7 +38,7 @@ def small_multiples(labels: Sequence[str], series: Sequence[tuple[Measure, np.nd
         ax = axes[k // cols][k % cols]
         y = np.asarray(values, dtype=float)
         ax.plot(x, y, marker="o", color=EDGE, linewidth=1.4, markersize=4)
-        ax.set_title(measure.words, fontsize=8.5, color=INK, loc="left")
+        ax.set_title(textwrap.fill(measure.words, 44), fontsize=8.5, color=INK, loc="left")
         ax.set_ylabel(_unit(measure), fontsize=7.5)
         ax.grid(True, axis="y", alpha=0.3)
         finite = y[np.isfinite(y)]
@@ -61,7 +62,7 @@ def small_multiples(labels: Sequence[str], series: Sequence[tuple[Measure, np.nd
             axes[r][c].tick_params(labelbottom=True)
     fig.supxlabel(x_words, fontsize=8.5, color=INK)
     _margins(fig, left=0.55, bottom=0.95 if long else 0.65, top=0.35, wspace=0.35)
-    fig.subplots_adjust(hspace=0.55)
+    fig.subplots_adjust(hspace=0.75)
     return _svg(fig)
 
 

@@ -78,7 +78,10 @@ def decision_measures(table: pd.DataFrame, tiers: Sequence[str]) -> list[Measure
         if f"polsby_popper.median.{t}" in cols:
             out.append(Measure(f"polsby_popper.median.{t}", f"median shape of tier {t} (Polsby-Popper, 1 = circle)",
                                "value", "max"))
-    finest = next((t for t in tiers if f"areas_changed_vs_first.{t}" in cols), None)
+    changed = [t for t in tiers if f"areas_changed_vs_first.{t}" in cols]
+    # the finest tier whose zones differ between the variants says most about the change
+    finest = next((t for t in changed if pd.to_numeric(table[f"areas_changed_vs_first.{t}"], errors="coerce")
+                   .fillna(0).gt(0).any()), changed[0] if changed else None)
     if finest is not None:
         out.append(Measure(f"areas_changed_vs_first.{finest}", f"areas in another tier {finest} zone than in the first variant",
                            "count", ""))
@@ -125,7 +128,7 @@ def _decision(p: SweepPage) -> str:
         "lookup.csv, zones.gpkg, rules.toml and summary.json; sweep.csv holds every figure.</p>"
     )
     return (
-        f'<div class="table-wrap"><table class="decide" id="decision"><caption>One row per variant of the rules'
+        f'<div class="table-wrap"><table class="decide" id="decision-table"><caption>One row per variant of the rules'
         f"</caption><thead><tr>{''.join(head)}</tr></thead><tbody>{''.join(rows)}</tbody></table></div>{note}"
     )
 
