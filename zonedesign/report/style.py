@@ -85,7 +85,7 @@ def css(n_colours: int) -> str:
         "svg.zonemap{display:block;width:100%;height:auto;max-height:82vh;cursor:grab;touch-action:none}"
         "svg.zonemap:focus{outline:2px solid #1b4f86}"
         "body.wide header,body.wide nav,body.wide main{max-width:1400px;padding:0 16px}"
-        ".maps-side{display:grid;grid-template-columns:repeat(auto-fill,minmax(300px,1fr));gap:10px}"
+        ".maps-side{display:grid;grid-template-columns:repeat(auto-fit,minmax(300px,1fr));gap:10px}"
         ".maps-side figure{margin:0}"
         "table.decide{width:100%;table-layout:fixed;font-size:.8rem}"
         "table.decide th,table.decide td{padding:3px 4px;overflow-wrap:anywhere}"

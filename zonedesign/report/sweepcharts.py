@@ -41,16 +41,11 @@ def small_multiples(labels: Sequence[str], series: Sequence[tuple[Measure, np.nd
         ax.set_title(textwrap.fill(measure.words, 44), fontsize=8.5, color=INK, loc="left")
         ax.set_ylabel(_unit(measure), fontsize=7.5)
         ax.grid(True, axis="y", alpha=0.3)
-        finite = y[np.isfinite(y)]
+        ax.set_ylim(*y_limits(measure.kind, y))
         if measure.kind == "share":
-            ax.set_ylim(0, 1.02)
             ax.yaxis.set_major_formatter(PercentFormatter(1.0, decimals=0))
-        elif finite.size:
-            lo, hi = float(finite.min()), float(finite.max())
-            top = hi * 1.1 if hi > 0 else 1.0
-            ax.set_ylim(min(0.0, lo * 1.1), max(top, 1.0))
-            if measure.kind == "count":
-                ax.yaxis.set_major_locator(MaxNLocator(integer=True, nbins=5))
+        elif measure.kind == "count":
+            ax.yaxis.set_major_locator(MaxNLocator(integer=True, nbins=5))
     for k in range(n, rows * cols):
         axes[k // cols][k % cols].set_visible(False)
     long = max(map(len, labels), default=0) > 8
@@ -61,9 +56,22 @@ def small_multiples(labels: Sequence[str], series: Sequence[tuple[Measure, np.nd
         if k + cols >= n:  # nothing drawn below: this panel carries the variant names
             axes[r][c].tick_params(labelbottom=True)
     fig.supxlabel(x_words, fontsize=8.5, color=INK)
-    _margins(fig, left=0.55, bottom=0.95 if long else 0.65, top=0.35, wspace=0.35)
+    _margins(fig, left=0.55, right=0.45, bottom=0.95 if long else 0.65, top=0.35, wspace=0.35)
     fig.subplots_adjust(hspace=0.75)
     return _svg(fig)
+
+
+def y_limits(kind: str, values: np.ndarray) -> tuple[float, float]:
+    """A panel's y range: from 0 (or below, for negative values) to a little above the top;
+    shares from 0 to 100 %; a flat series of zeros from 0 to 1."""
+    if kind == "share":
+        return 0.0, 1.02
+    y = np.asarray(values, dtype=float)
+    y = y[np.isfinite(y)]
+    if not y.size:
+        return 0.0, 1.0
+    lo, hi = float(y.min()), float(y.max())
+    return min(0.0, lo * 1.1), max(hi * 1.1 if hi > 0 else 1.0, 1.0 if kind == "count" else 0.0) or 1.0
 
 
 def change_bars(pairs: Sequence[str], per_tier: dict[str, Sequence[float]]) -> bytes:

@@ -104,8 +104,9 @@ def _decision(p: SweepPage) -> str:
             best[m.column] = vals.max() if m.best == "max" else vals.min()
     rows = []
     for v, rec in zip(p.variants, p.table.to_dict("records")):
+        shown = [num(val) if _is_number(val) else val for _, val in v.values]
         cells = [f'<th scope="row">{esc(val)}</th>' if i == 0 else f"<td>{esc(val)}</td>"
-                 for i, (_, val) in enumerate(v.values)]
+                 for i, val in enumerate(shown)]
         if v.rules is None:
             cells.append(f'<td class="bad" colspan="{len(p.measures) + 1}">not run: {esc(v.error)}</td>')
         else:
@@ -219,11 +220,8 @@ def _maps(p: SweepPage) -> str:
 
 
 def _variant_map(p: SweepPage, v: Any, r: Any, tier: str, layer: Any, first: np.ndarray):
-    from zonedesign.redraw import keep_matched_ids
-
     here = np.asarray(r.lookup[tier], dtype=object)
-    matched = keep_matched_ids(first, here)
-    shown = dict(zip(here.tolist(), matched.tolist()))  # zone -> the first variant's code it matches
+    shown = match_codes(first, here)  # zone -> the first variant's code it matches
     zones = layer["zone"].astype(str).to_numpy()
     geoms = np.asarray(layer.geometry.values, dtype=object)
     colours = colour_by_code([str(shown.get(z, z)) for z in zones], zone_neighbours(geoms))
@@ -248,6 +246,27 @@ def _variant_map(p: SweepPage, v: Any, r: Any, tier: str, layer: Any, first: np.
         svg_id=f"map-v{v.number}",
     )
     return drawn, int(colours.max()) + 1 if colours.size else 0
+
+
+def match_codes(first: np.ndarray, here: np.ndarray) -> dict[str, str]:
+    """Each zone of `here` named as the zone of `first` it shares most areas with, one to one.
+
+    Pairs are taken greedily, largest overlap first (ties by code), so a zone two variants
+    draw alike gets one code; a zone left without a partner keeps its own.
+    """
+    pairs = pd.DataFrame({"a": np.asarray(first, dtype=str), "b": np.asarray(here, dtype=str)})
+    overlap = pairs.value_counts().reset_index(name="n").sort_values(["n", "a", "b"], ascending=[False, True, True])
+    out: dict[str, str] = {}
+    used: set[str] = set()
+    for a, b in zip(overlap["a"], overlap["b"]):
+        if b not in out and a not in used:
+            out[b] = a
+            used.add(a)
+    taken = set(out.values())
+    for b in pairs["b"].unique():
+        if b not in out:
+            out[b] = b if b not in taken else f"{b}~"
+    return out
 
 
 def _changes(p: SweepPage) -> str:
@@ -317,6 +336,14 @@ def write_sweep_report(folder: Path, *, summary: Mapping[str, Any], table: pd.Da
         (Path(folder) / "charts").mkdir(exist_ok=True)
         for name, data in p.charts.items():
             (Path(folder) / "charts" / name).write_bytes(data)
+
+
+def _is_number(text: Any) -> bool:
+    try:
+        float(text)
+    except (TypeError, ValueError):
+        return False
+    return True
 
 
 def _float(x: Any) -> float:
