@@ -530,3 +530,105 @@ def test_overrides_round_trip_and_take_sweep_keys():
     assert tier_in_fence(swept.tiers[0], "U").min == {"persons": 50.0}
     with pytest.raises(RulesError, match="has 1 override"):
         apply_override(rules, "tier.1.override.2.min.persons", "15")
+
+
+# ---------------------------------------------------------------- locked zones
+
+# By construction: fence U holds U0..U3 (25 persons each), fence R holds R0..R2 (10 each).
+# The agreed zone AGREED-1 is U0 + U1 (50 persons); every other zone is free.
+LOCK_TIERS = (
+    '[[tier]]\nname = "tier1"\nmin = { persons = 20 }\nmax = { persons = 100 }\ntarget = { persons = 50 }\n\n'
+    '[[tier]]\nname = "tier2"\nmin = { persons = 20 }\nmax = { persons = 1000 }\n'
+)
+
+
+def locked_inputs(tmp_path: Path, lock_csv: str) -> tuple[Path, Path]:
+    areas = two_fences(tmp_path)
+    (tmp_path / "locked.csv").write_text(lock_csv)
+    rules = rules_file(tmp_path, AREAS, LOCK_TIERS + '\n[lock]\nfile = "locked.csv"\n')
+    return areas, rules
+
+
+def test_design_keeps_a_locked_zone_exactly_and_designs_around_it(tmp_path):
+    import json
+
+    areas, rules = locked_inputs(tmp_path, "area,tier1\nU0,AGREED-1\nU1,AGREED-1\n")
+    out = tmp_path / "out"
+    assert main(design_argv(areas, rules, out)) == 0
+    lookup = pd.read_csv(out / "lookup.csv", dtype=str).set_index("area")
+    assert sorted(lookup.index[lookup["tier1"] == "AGREED-1"]) == ["U0", "U1"]
+    assert lookup.loc["U2", "tier1"] == lookup.loc["U3", "tier1"] != "AGREED-1"  # 50 persons, the rest of U
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["locks"]["kept"] is True
+    assert summary["locks"]["zones"] == {"tier1": ["AGREED-1"]}
+
+
+def test_a_locked_zone_survives_a_redraw_after_a_count_shock_unchanged(tmp_path):
+    import json
+
+    areas, rules = locked_inputs(tmp_path, "area,tier1\nU0,AGREED-1\nU1,AGREED-1\n")
+    first = tmp_path / "first"
+    assert main(design_argv(areas, rules, first)) == 0
+    # a count shock: U0 and U1 now hold 80 persons each, 160 in the agreed zone (max 100)
+    gdf = gpd.read_file(areas)
+    gdf.loc[gdf["code"].isin(["U0", "U1"]), "persons"] = 80
+    later = write_gpkg(gdf, tmp_path / "later.gpkg")
+    second = tmp_path / "second"
+    code = main(["redraw", str(later), "--rules", str(rules), "--previous", str(first / "lookup.csv"),
+                 "--out", str(second), "--quiet", "--no-report", "--no-certificate"])
+    assert code == 1  # the agreed zone now breaks the ceiling, and stays as agreed
+    lookup = pd.read_csv(second / "lookup.csv", dtype=str).set_index("area")
+    assert sorted(lookup.index[lookup["tier1"] == "AGREED-1"]) == ["U0", "U1"]
+    summary = json.loads((second / "summary.json").read_text())
+    (brk,) = [b for b in summary["bound_breaks"] if b["tier"] == "tier1"]
+    assert brk["zone"] == "AGREED-1" and brk["locked"] is True
+    assert summary["locks"]["kept"] is True
+
+
+def test_the_audit_reports_a_locked_zone_the_lookup_does_not_keep(tmp_path):
+    import json
+
+    areas, rules = locked_inputs(tmp_path, "area,tier1\nU0,AGREED-1\nU1,AGREED-1\n")
+    (tmp_path / "lookup.csv").write_text(
+        "area,tier1,tier2\nU0,AGREED-1,T1\nU1,Z2,T1\nU2,Z2,T1\nU3,Z2,T1\nR0,Z3,T2\nR1,Z3,T2\nR2,Z3,T2\n"
+    )
+    out = tmp_path / "out"
+    code = main(["audit", str(areas), "--rules", str(rules), "--lookup", str(tmp_path / "lookup.csv"),
+                 "--out", str(out), "--quiet", "--no-report", "--no-certificate"])
+    assert code == 1
+    summary = json.loads((out / "summary.json").read_text())
+    (lock,) = [v for v in summary["audit"]["violations"] if v.get("kind") == "lock"]
+    assert lock["zone"] == "AGREED-1" and "1 of its areas elsewhere ('U1')" in lock["message"]
+
+
+@pytest.mark.parametrize(
+    "lock_csv, message",
+    [
+        ("area,tier1\nU0,L1\nU2,L1\n", "locked zone 'L1' of tier 'tier1' is not contiguous: 2 pieces ('U0' | 'U2')"),
+        ("area,tier1\nU3,L1\nR0,L1\n", "locked zone 'L1' of tier 'tier1' crosses fences R, U"),
+        ("area,tier1\nU0,L1\nX9,L1\n", "locked.csv: 1 area id(s) not in the areas file: 'X9'"),
+        ("area,ward\nU0,L1\n", "locked.csv: column(s) 'ward' name no tier"),
+        ("code,tier1\nU0,L1\n", "locked.csv: no column 'area'"),
+        ("area,tier1\nU0,L1\nU0,L2\n", "locked.csv: area id(s) listed twice: 'U0'"),
+        ("area,tier1,tier2\nU0,L1,B1\nU1,L1,\n", "locked zone 'L1' of tier 'tier1' straddles the tier 'tier2' zones"),
+    ],
+)
+def test_bad_lock_files_are_exit_2_with_one_line(tmp_path, capsys, lock_csv, message):
+    areas, rules = locked_inputs(tmp_path, lock_csv)
+    for argv in (design_argv(areas, rules, tmp_path / "out"), ["rules", "check", str(rules), str(areas)]):
+        err = one_line_exit_2(argv, capsys)
+        assert message in err
+
+
+@pytest.mark.parametrize(
+    "lock, message",
+    [
+        ("[lock]\n", "lock: a [lock] table needs file"),
+        ('[lock]\nfile = 3\n', "lock.file: expected a non-empty text"),
+        ('[lock]\nfile = "a.csv"\nzones = 2\n', "lock.zones: unknown key in [lock]"),
+    ],
+)
+def test_bad_lock_keys_are_rules_errors(lock, message):
+    with pytest.raises(RulesError) as info:
+        parse_rules(f"[areas]\n{AREAS}\n\n{LOCK_TIERS}\n{lock}")
+    assert message in str(info.value)

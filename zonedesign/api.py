@@ -50,6 +50,7 @@ class Prepared:
     seconds: dict[str, float] = field(default_factory=dict)
     crs_note: str = ""  # which CRS areas and lengths are measured in, and why
     overlaps_cut: list[dict] = field(default_factory=list)  # [areas] overlaps = "cut"
+    locks: Any = None  # zonedesign.locks.Locks from [lock] file, or None
     duplicates_merged: list[dict] = field(default_factory=list)
 
 
@@ -126,6 +127,12 @@ def prepare(
         # whether a declared link joins the island to the rest of its fence
         island["linked"] = bool(built.linked & set(island.get("ids", [])))
     seconds["graph"] = time.perf_counter() - t0
+    locks = None
+    if rules.lock.file is not None:
+        from zonedesign.locks import read_locks
+
+        inputs.append(Path(rules.lock.file))
+        locks = read_locks(rules.lock.file, file.areas, graph, rules.tiers)
     stage.close()
     return Prepared(
         rules=rules,
@@ -140,6 +147,7 @@ def prepare(
         crs_note=file.crs_note,
         overlaps_cut=file.overlaps_cut,
         duplicates_merged=file.duplicates_merged,
+        locks=locks,
     )
 
 
@@ -187,7 +195,7 @@ def design(
 
     _say(progress, f"designing {len(prep.rules.tiers)} tiers over {len(set(prep.areas.fence))} fences")
     with _closing(run):
-        result = build_hierarchy(prep.areas, prep.graph, prep.rules, executor=run, on_tier=on_tier)
+        result = build_hierarchy(prep.areas, prep.graph, prep.rules, executor=run, on_tier=on_tier, locks=prep.locks)
     lookup = result.lookup()
     seconds, summary = _run_summary(prep, "design", result, executor, workers)
     summary["fences"] = fence_figures(result)
@@ -343,6 +351,7 @@ def finish(
         "ok": bool(checked.ok),
         "violations": [_jsonable(v) for v in _violations(checked)],
     }
+    add_lock_checks(prep, lookup, summary)
     if certify:
         from zonedesign.verify.certificate import certify as run_certify
 
@@ -361,12 +370,13 @@ def finish(
         df = tables[t.name]
         for _, row in df[df["bound_break"]].iterrows():
             breaks.append({"tier": t.name, "zone": row["zone"], "fence": row["fence"], "breaks": row["breaks"]})
+    mark_locked_breaks(prep, breaks)
     summary["bound_breaks"] = breaks
     stage(f"seeking proofs for {len({(b['tier'], b['fence']) for b in breaks})} fence(s) with bound breaks")
     summary["proofs"] = explain_breaks(prep, lookup, breaks)
     stage.close()
     summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
-    rc = 1 if (breaks or not checked.ok or failed) else 0
+    rc = 1 if (breaks or not summary["audit"]["ok"] or failed) else 0
     summary["exit_code"] = rc
     if out is not None:
         write_outputs(
@@ -385,6 +395,31 @@ def finish(
             audit_result=checked,
         )
     return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=rc, lookup=lookup)
+
+
+def add_lock_checks(prep: Prepared, lookup: Mapping[str, np.ndarray], summary: dict) -> None:
+    """Every locked zone must be in the lookup exactly as the lock file gives it."""
+    if not prep.locks:
+        return
+    from zonedesign.locks import lock_breaks
+
+    found = lock_breaks(prep.locks, lookup, prep.areas)
+    summary["locks"] = {
+        "file": str(prep.locks.source),
+        "zones": {name: sorted(prep.locks.zones(name)) for name in prep.locks.codes},
+        "kept": not found,
+    }
+    if found:
+        summary["audit"]["violations"] = list(summary["audit"].get("violations", [])) + found
+        summary["audit"]["ok"] = False
+
+
+def mark_locked_breaks(prep: Prepared, breaks: list[dict]) -> None:
+    """A locked zone that breaks a bound stays as agreed; its break says so."""
+    if not prep.locks:
+        return
+    for b in breaks:
+        b["locked"] = b["zone"] in prep.locks.zones(b["tier"])
 
 
 def explain_breaks(prep: Prepared, lookup: Mapping[str, np.ndarray], breaks: list[dict]) -> list[dict]:
@@ -562,7 +597,7 @@ def search_repair(prep: Prepared, labels: Mapping[str, np.ndarray]) -> dict[str,
     given = {n: np.array(["" if v is None else str(v) for v in labels[n]], dtype=object) for n in names}
     prev = mend_nesting(given, names)
     # codes carry on by the rules' code policy, so the moves listed are areas that moved
-    return redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev).lookup()
+    return redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, locks=prep.locks).lookup()
 
 
 def repair_moves(ids: np.ndarray, before: Mapping[str, np.ndarray], after: Mapping[str, np.ndarray]) -> pd.DataFrame:
@@ -616,7 +651,8 @@ def redraw(
         )
     _say(progress, f"redrawing {len(prep.rules.tiers)} tiers against {previous}")
     with _closing(run):
-        result = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, executor=run, published=published)
+        result = redraw_hierarchy(prep.areas, prep.graph, prep.rules, prev, executor=run, published=published,
+                                   locks=prep.locks)
     lookup = result.lookup()
     changes, per_area, figures = redraw_tables(
         prep, prev, lookup, policy=result.policy, before_totals=before,
@@ -787,6 +823,7 @@ def audit(
     summary = base_summary(prep, "audit")
     summary["audit"] = _jsonable(checked.to_json())
     summary["audit"]["source"] = str(lookup or tiers_from)
+    add_lock_checks(prep, labels, summary)
     if tiers_from is not None:
         summary["audit"]["overlay"] = {"tolerance_share": tolerance, "flags": _jsonable(overlay_flags)}
     certs = []
@@ -855,7 +892,7 @@ def audit(
         from zonedesign.zonetables import all_tables
 
         tables = all_tables(prep.areas, prep.graph, labels, tiers)
-    rc = 0 if checked.ok and not overlay_flags else 1
+    rc = 0 if summary["audit"]["ok"] and not overlay_flags else 1
     summary["exit_code"] = rc
     if out is not None:
         from zonedesign.io.output import atomic_output, write_json

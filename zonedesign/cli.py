@@ -385,13 +385,12 @@ def _rules(args: argparse.Namespace) -> int:
         if args.areas is not None:
             columns, table_columns = rule_columns(args.areas, rules.areas, layer=args.layer or rules.areas.layer)
             check_rules_against(rules, columns, str(args.areas), table_columns)
-            if any(t.overrides for t in rules.tiers):
-                from zonedesign.io.read import read_areas
-                from zonedesign.rules import check_fences_against
+            if any(t.overrides for t in rules.tiers) or rules.lock.file is not None:
+                from zonedesign.api import prepare
 
-                # override fence codes are checked against the fences the file really has
-                fences = read_areas(args.areas, rules.areas, layer=args.layer or rules.areas.layer).areas.fence
-                check_fences_against(rules, fences.tolist(), str(args.areas))
+                # override fences and locked zones are checked against the areas as read:
+                # their fence codes, and the graph a locked zone must be contiguous in
+                prepare(args.areas, rules, layer=args.layer)
         tiers = ", ".join(t.name for t in rules.tiers)
         print(f"{args.rules}: ok ({len(rules.tiers)} tiers: {tiers})")
         return 0

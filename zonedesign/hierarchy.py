@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from zonedesign.graph.collapse import collapse
+from zonedesign.locks import Locks, cut_graph, unit_codes, upper_key
 from zonedesign.measures import (
     bound_breaks,
     compact_labels,
@@ -276,17 +277,41 @@ def zone_id(fence: str, tier: str, number: int) -> str:
 
 
 def assemble_tier(
-    tier: TierRules, units: Units, fences: list[str], results: list[FenceResult], seconds: float
+    tier: TierRules,
+    units: Units,
+    fences: list[str],
+    results: list[FenceResult],
+    seconds: float,
+    spans: list[np.ndarray] | None = None,
+    locked: np.ndarray | None = None,
 ) -> TierResult:
+    """Global zone indices and ids of one tier from its fences' results.
+
+    spans: the units each fence's result labels (default: all of the fence); locked: the
+    locked zone code per unit ("" where free), each locked zone keeping its code.
+    """
     zone_of_unit = np.full(units.counts.shape[0], -1, dtype=np.int64)
     ids: list[str] = []
     zfence: list[str] = []
-    for fence, res in zip(fences, results):
-        index = np.flatnonzero(units.fence == fence)
+    taken = set() if locked is None else set(locked.tolist()) - {""}
+    for f, (fence, res) in enumerate(zip(fences, results)):
+        index = np.flatnonzero(units.fence == fence) if spans is None else spans[f]
+        if index.size == 0:
+            continue
         labels, k = compact_labels(res.labels)
         zone_of_unit[index] = labels + len(ids)
-        ids.extend(zone_id(fence, tier.name, z + 1) for z in range(k))
+        number = 0
+        for _ in range(k):
+            number += 1
+            while zone_id(fence, tier.name, number) in taken:  # a locked zone holds that code
+                number += 1
+            ids.append(zone_id(fence, tier.name, number))
         zfence.extend([fence] * k)
+    for code in sorted(taken):
+        members = np.flatnonzero(locked == code)
+        zone_of_unit[members] = len(ids)
+        ids.append(code)
+        zfence.append(str(units.fence[members[0]]))
     return TierResult(
         name=tier.name,
         zone_of_unit=zone_of_unit,
@@ -304,8 +329,11 @@ def build_hierarchy(
     *,
     executor: Executor | None = None,
     on_tier: Callable[[str, int, int], None] | None = None,
+    locks: Locks | None = None,
 ) -> HierarchyResult:
-    """Design every tier bottom-up; `graph` holds rook edges plus declared links."""
+    """Design every tier bottom-up; `graph` holds rook edges plus declared links.
+
+    Locked zones (`locks`) are kept as given; the rest is designed around them."""
     run = executor or serial_executor
     units = base_units(areas, graph)
     fences = fence_order(areas.fence)
@@ -315,21 +343,24 @@ def build_hierarchy(
     for t, tier in enumerate(rules.tiers):
         t0 = time.perf_counter()
         tasks = []
-        for fence in fences:
-            index = np.flatnonzero(units.fence == fence)
+        locked, search_units = locked_units(units, locks, rules.tiers, t, areas.n)
+        spans = [np.flatnonzero((units.fence == fence) & (locked == "")) for fence in fences]
+        for fence, index in zip(fences, spans):
+            if index.size == 0:
+                continue  # every unit of the fence is in a locked zone
             tasks.append(
                 FenceTask(
                     fence=fence,
                     tier=tier.name,
                     tier_index=t,
                     units=index,
-                    problem=fence_problem(units, index, tier_in_fence(tier, fence), areas.count_names),
+                    problem=fence_problem(search_units, index, tier_in_fence(tier, fence), areas.count_names),
                     search=rules.search,
                     seed=task_seed(rules.search.seed, fence, t),
                 )
             )
-        results = run(tasks)
-        result = assemble_tier(tier, units, fences, results, time.perf_counter() - t0)
+        results = with_locked_fences(run(tasks), fences, spans, tier.name)
+        result = assemble_tier(tier, units, fences, results, time.perf_counter() - t0, spans, locked)
         seconds[f"tier {tier.name}"] = result.seconds
         tiers.append(result)
         all_units.append(units)
@@ -338,6 +369,36 @@ def build_hierarchy(
         if t + 1 < len(rules.tiers):
             units = next_units(units, result.zone_of_unit, result.zone_fence)
     return HierarchyResult(tiers=tiers, units=all_units, seconds=seconds)
+
+
+def locked_units(
+    units: Units, locks: Locks | None, tiers: Sequence[TierRules], t: int, n_areas: int
+) -> tuple[np.ndarray, Units]:
+    """The locked zone code of each unit of tier t ("" where free), and the units the
+    search sees: their graph cut along the rims of upper-tier locked zones, so that no
+    free zone straddles one."""
+    n = units.counts.shape[0]
+    if not locks:
+        return np.full(n, "", dtype=object), units
+    from dataclasses import replace
+
+    locked = unit_codes(locks.of(tiers[t].name, n_areas), units.of_area, n)
+    key = upper_key(locks, [x.name for x in tiers[t + 1 :]], units.of_area, n)
+    return locked, replace(units, graph=cut_graph(units.graph, key))
+
+
+def with_locked_fences(
+    results: list[FenceResult], fences: list[str], spans: list[np.ndarray], tier: str
+) -> list[FenceResult]:
+    """One result per fence: an empty one where every unit is locked (nothing to search)."""
+    found = iter(results)
+    return [
+        next(found) if index.size else FenceResult(
+            fence=fence, tier=tier, labels=np.zeros(0, dtype=np.int64), breaks=0.0, total=0.0,
+            terms={}, seconds=0.0, info={"locked": True},
+        )
+        for fence, index in zip(fences, spans)
+    ]
 
 
 def tier_breaks(result: TierResult, units: Units, tier: TierRules, count_names: Sequence[str]) -> list[dict]:

@@ -43,11 +43,14 @@ from zonedesign.hierarchy import (
     base_units,
     fence_order,
     fence_problem,
+    locked_units,
     next_units,
     scored_result,
     serial_executor,
     task_seed,
+    with_locked_fences,
 )
+from zonedesign.locks import Locks
 from zonedesign.measures import bound_breaks, compact_labels, zone_sums
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import STABILITY_DEFAULT, Rules, TierRules, tier_in_fence
@@ -443,11 +446,13 @@ def redraw_hierarchy(
     *,
     executor: Executor | None = None,
     published: np.ndarray | None = None,
+    locks: Locks | None = None,
 ) -> RedrawResult:
     """Redraw every tier bottom-up; previous[tier] holds each area's previous zone code
     ("" for areas new since the previous lookup). published: each area's published count
     of the first count column (the share that decides a code's successor); the new
-    counts when None. Codes follow `rules.redraw.codes`."""
+    counts when None. Codes follow `rules.redraw.codes`. Locked zones (`locks`) are kept
+    exactly, code and areas, whatever the new counts."""
     from dataclasses import replace
 
     run = executor or serial_executor
@@ -467,17 +472,20 @@ def redraw_hierarchy(
         unit_weight = np.bincount(units.of_area, weights=weight_area, minlength=n_units)
         stability = float(tier.weights.get("stability", STABILITY_DEFAULT))
         tasks, meta = [], []
-        for fence in fences:
-            index = np.flatnonzero(units.fence == fence)
+        locked, search_units = locked_units(units, locks, rules.tiers, t, areas.n)
+        spans = [np.flatnonzero((units.fence == fence) & (locked == "")) for fence in fences]
+        for fence, index in zip(fences, spans):
+            if index.size == 0:
+                continue  # every unit of the fence is in a locked zone
             pid = prev_unit[index]
             codes = previous_codes(pid)
             here = tier_in_fence(tier, fence)  # an override's bounds and weights in this fence
             b = bounds_of(here, areas.count_names)
-            sub_graph = units.graph.subgraph(index)
+            sub_graph = search_units.graph.subgraph(index)
             start, anchors = start_labels(sub_graph, codes, units.counts[index], b.lo)
             # the weight actually used: the default when left out, 0 switches stability off
             used = replace(here, weights={**here.weights, "stability": float(here.weights.get("stability", STABILITY_DEFAULT))})
-            problem = fence_problem(units, index, used, areas.count_names, previous=None)
+            problem = fence_problem(search_units, index, used, areas.count_names, previous=None)
             problem = replace(problem, previous=codes)
             tasks.append(
                 RedrawTask(
@@ -488,16 +496,27 @@ def redraw_hierarchy(
                 )
             )
             meta.append(index)
-        results = run(tasks, run_redraw_task)
+        searched = run(tasks, run_redraw_task)
+        results = with_locked_fences(searched, fences, spans, tier.name)
         zone_of_unit = np.full(n_units, -1, dtype=np.int64)
         zfence: list[str] = []
-        for fence, res, index in zip(fences, results, meta):
+        for res, index in zip(searched, meta):
             labels, k = compact_labels(res.labels)
             zone_of_unit[index] = labels + len(zfence)
-            zfence.extend([fence] * k)
+            zfence.extend([res.fence] * k)
+        lock_codes = sorted(set(locked.tolist()) - {""})
+        for code in lock_codes:
+            members = np.flatnonzero(locked == code)
+            zone_of_unit[members] = len(zfence)
+            zfence.append(str(units.fence[members[0]]))
         zone_fence = np.array(zfence, dtype=object)
         old = np.asarray(previous[tier.name], dtype=object)
-        succession = assign_codes(old, zone_of_unit[units.of_area], zone_fence, tier.name, weight_area, policy)
+        succession = assign_codes(
+            locked_old(old, locked[units.of_area], lock_codes), zone_of_unit[units.of_area], zone_fence,
+            tier.name, weight_area, policy, known=set(old.tolist()) - {""},
+        )
+        for z, code in enumerate(lock_codes, start=len(zfence) - len(lock_codes)):
+            succession.codes[z] = code  # already so: only the locked areas carry a locked code
         seconds[f"tier {tier.name}"] = time.perf_counter() - t0
         tiers.append(
             RedrawTier(
@@ -512,6 +531,17 @@ def redraw_hierarchy(
     return RedrawResult(
         tiers=tiers, units=all_units, new_areas=new_areas, gone_areas=[], seconds=seconds, policy=policy
     )
+
+
+def locked_old(old: np.ndarray, locked_area: np.ndarray, lock_codes: list[str]) -> np.ndarray:
+    """Old codes as code assignment sees them with locks: a locked zone's areas carry its
+    code, and no free area does, so the locked zone alone carries it on."""
+    if not lock_codes:
+        return old
+    out = old.copy()
+    out[(locked_area == "") & np.isin(out, lock_codes)] = ""
+    out[locked_area != ""] = locked_area[locked_area != ""]
+    return out
 
 
 def previous_codes(ids: np.ndarray) -> np.ndarray:

@@ -198,12 +198,20 @@ class RedrawRules:
 
 
 @dataclass(frozen=True)
+class LockRules:
+    """[lock]: a CSV of zones fixed by agreement (column `area`, one column per locked tier)."""
+
+    file: Path | None = None
+
+
+@dataclass(frozen=True)
 class Rules:
     areas: AreasRules
     tiers: tuple[TierRules, ...]
     graph: GraphRules = GraphRules()
     search: SearchRules = SearchRules()
     redraw: RedrawRules = RedrawRules()
+    lock: LockRules = field(default_factory=lambda: LockRules())
     source: Path | None = None
     text: str = ""
 
@@ -245,7 +253,8 @@ SEARCH_KEYS = (
 )
 REDRAW_KEYS = ("codes",)
 CODE_POLICIES = ("successor", "fresh")
-TOP_KEYS = ("areas", "graph", "tier", "search", "redraw")
+TOP_KEYS = ("areas", "graph", "tier", "search", "redraw", "lock")
+LOCK_KEYS = ("file",)
 
 _BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
 _KEY_PART = r"""(?:[A-Za-z0-9_-]+|"(?:[^"\\]|\\.)*"|'[^']*')"""
@@ -524,10 +533,11 @@ def _build(data: dict, check: _Check, base_dir: Path | None) -> Rules:
         areas = AreasRules(id="", counts=())
     graph = _graph(top.get("graph", {}), check, base_dir)
     search = _search(top.get("search", {}), check)
+    lock = _lock(top.get("lock"), check, base_dir)
     tiers = _tiers(top.get("tier"), check, areas)
     redraw = _redraw(top.get("redraw", {}), check)
     _raise(check.problems)
-    return Rules(areas=areas, tiers=tiers, graph=graph, search=search, redraw=redraw)
+    return Rules(areas=areas, tiers=tiers, graph=graph, search=search, redraw=redraw, lock=lock)
 
 
 def _redraw(value: object, check: _Check) -> RedrawRules:
@@ -535,6 +545,17 @@ def _redraw(value: object, check: _Check) -> RedrawRules:
     t = check.table(value, path, REDRAW_KEYS, "[redraw]")
     codes = check.text(t, "codes", path, choices=CODE_POLICIES)
     return RedrawRules(codes=codes or RedrawRules().codes)
+
+
+def _lock(value: object, check: _Check, base_dir: Path | None) -> LockRules:
+    path: KeyPath = ("lock",)
+    if value is None:
+        return LockRules()
+    t = check.table(value, path, LOCK_KEYS, "[lock]")
+    file = check.text(t, "file", path)
+    if isinstance(value, dict) and "file" not in value:
+        check.fail(path, 'a [lock] table needs file = "locked.csv"')
+    return LockRules(file=None if file is None else _relative(file, base_dir))
 
 
 def _raise(problems: list[str]) -> None:
@@ -880,6 +901,8 @@ def rules_to_toml(rules: Rules) -> str:
     out += [f"{k} = {_toml_value(v)}" for k, v in data["search"].items()]
     out += ["", "[redraw]"]
     out += [f"{k} = {_toml_value(v)}" for k, v in data["redraw"].items()]
+    if "lock" in data:
+        out += ["", "[lock]", f"file = {_toml_value(data['lock']['file'])}"]
     return "\n".join(out) + "\n"
 
 
@@ -923,7 +946,10 @@ def _rules_data(rules: Rules) -> dict:
     # a setting left to the effort preset (None) is not written
     search = {key: getattr(rules.search, key) for key in SEARCH_KEYS if getattr(rules.search, key) is not None}
     redraw = {key: getattr(rules.redraw, key) for key in REDRAW_KEYS}
-    return {"areas": areas, "graph": graph, "tier": tiers, "search": search, "redraw": redraw}
+    out = {"areas": areas, "graph": graph, "tier": tiers, "search": search, "redraw": redraw}
+    if rules.lock.file is not None:
+        out["lock"] = {"file": str(rules.lock.file)}
+    return out
 
 
 def _toml_value(value: object) -> str:
