@@ -74,14 +74,17 @@ from zonedesign.search.mergesplit import (
     split_pass,
     try_split,
 )
+from zonedesign.search.multilevel import coarsen, uses_multilevel
 from zonedesign.search.schedule import fence_schedule
-from zonedesign.search.state import ZoneState, full_score
+from zonedesign.search.state import ZoneState, full_score, search_normalisers
 from zonedesign.search.tabu import tabu_block
 
 # budgets (the primary stop criteria; see the module docstring)
 MAX_SWEEPS = 1000  # descent sweeps per call (a sweep that moves nothing ends it sooner)
 MAX_ROUNDS = 50  # descent / merge / split rounds
 ANNEAL_START_ACCEPT = 0.1  # share of average uphill moves taken at the first temperature
+REFINE_START_ACCEPT = 0.01  # a refinement starts cold: it keeps the coarse zoning's shape
+REFINE_SHARE = 0.5  # of a run's moves, spent refining each finer level
 ANNEAL_FROZEN = 3  # temperatures without a new best and with (almost) no change
 TABU_NO_IMPROVE = 1  # x n, when search_rules.max_no_improve is 0
 TABU_MAX_ITER = 5  # x max_no_improve
@@ -146,8 +149,12 @@ def solve(
     start: np.ndarray | None = None,
     anchors: np.ndarray | None = None,
     method: str | None = None,
+    multilevel: bool | None = None,
 ) -> Solution:
     """Partition the problem's units into contiguous zones; breaks first, then the objective.
+
+    multilevel: None chooses by fence size (`search.multilevel.uses_multilevel`), True
+    or False forces the multilevel or the flat path; `info["path"]` says which ran.
 
     Without `start`, runs `schedule.fence_schedule(rules, n).runs` independent searches
     (seeds derived from `seed`) and keeps the best by (breaks, total); with `start`, one search from it.
@@ -158,6 +165,34 @@ def solve(
     rules = search_rules if search_rules is not None else SearchRules()
     if not time_limit > 0:
         raise InputError(f"time limit must be positive, got {time_limit}", where="search.time_limit_fence")
+    t0 = time.perf_counter()
+    levels = []
+    if start is None and uses_multilevel(problem.n, rules.method if method is None else method, multilevel):
+        levels = coarsen(problem, seed)
+    if levels:
+        best = _solve_multilevel(problem, levels, rules, seed, time_limit, method)
+    else:
+        best = _solve_restarts(problem, None, rules, seed, time_limit, start, anchors, method)
+    plan = fence_schedule(rules, problem.n)
+    best.info["path"] = "multilevel" if levels else "flat"
+    best.info["levels"] = [problem.n, *(lv.problem.n for lv in levels)]
+    best.info["effort"] = rules.effort
+    best.info["moves_per_run"] = plan.moves
+    best.info["seconds_all_restarts"] = time.perf_counter() - t0
+    return best
+
+
+def _solve_restarts(
+    problem: Problem,
+    norm: dict[str, float] | None,
+    rules: SearchRules,
+    seed: int,
+    time_limit: float,
+    start: np.ndarray | None = None,
+    anchors: np.ndarray | None = None,
+    method: str | None = None,
+) -> Solution:
+    """The best of the fence schedule's independent runs (one run from a given start)."""
     runs = 1 if start is not None else fence_schedule(rules, problem.n).runs
     t0 = time.perf_counter()
     best: Solution | None = None
@@ -167,17 +202,41 @@ def solve(
             break
         sol = solve_once(
             problem, search_rules=rules, seed=seed if r == 0 else seed * 7919 + r,
-            time_limit=max(left, 1e-3), start=start, anchors=anchors, method=method,
+            time_limit=max(left, 1e-3), start=start, anchors=anchors, method=method, norm=norm,
         )
         if best is None or sol.score.key() < best.score.key():
             best = sol
     assert best is not None
     best.info["restarts"] = runs
-    plan = fence_schedule(rules, problem.n)
-    best.info["effort"] = rules.effort
-    best.info["moves_per_run"] = plan.moves
-    best.info["seconds_all_restarts"] = time.perf_counter() - t0
     return best
+
+
+def _solve_multilevel(
+    problem: Problem, levels: list, rules: SearchRules, seed: int, time_limit: float, method: str | None
+) -> Solution:
+    """Solve the coarsest level, then project and refine level by level (search.multilevel).
+
+    Every level is priced with the fence's own normalisers, so the levels agree on what a
+    better zoning is.
+    """
+    t0 = time.perf_counter()
+    norm = search_normalisers(problem)
+    problems = [problem, *(lv.problem for lv in levels)]
+    sol = _solve_restarts(problems[-1], norm, rules, seed, time_limit, method=method)
+    refine_seconds = []
+    for depth in range(len(levels) - 1, -1, -1):
+        finer = problems[depth]
+        left = max(time_limit - (time.perf_counter() - t0), 1e-3)
+        t1 = time.perf_counter()
+        sol = solve_once(
+            finer, search_rules=rules, seed=seed + 104729 * (depth + 1), time_limit=left,
+            start=sol.labels[levels[depth].parent], anchors=sol.anchors if finer.previous is not None else None,
+            method=method, norm=norm if depth > 0 else None, refine=True,
+        )
+        refine_seconds.append(time.perf_counter() - t1)
+    sol.info["refine_seconds"] = refine_seconds
+    sol.info["restarts"] = 1
+    return sol
 
 
 def solve_once(
@@ -189,8 +248,15 @@ def solve_once(
     start: np.ndarray | None = None,
     anchors: np.ndarray | None = None,
     method: str | None = None,
+    norm: dict[str, float] | None = None,
+    refine: bool = False,
 ) -> Solution:
     """One search, no restarts: `solve` with its arguments, from one seed.
+
+    norm: the normalisers to price zones with (a coarse level's are its fine problem's);
+    its score is then the search's own (breaks, total), with no terms. refine: a
+    refinement of `start` (a projected coarser zoning): annealing starts cold and spends
+    `REFINE_SHARE` of a run's moves.
 
     >>> sol = solve_once(problem, seed=3)       # doctest: +SKIP
     >>> sol.labels, sol.score.breaks, sol.info["bounds_met"]   # doctest: +SKIP
@@ -210,7 +276,7 @@ def solve_once(
         sc = Score(breaks=0.0, total=0.0, terms={t: 0.0 for t in measures.TERMS})
         return Solution(empty, sc, {"method": method, "seconds": 0.0, "bounds_met": True}, empty)
 
-    state = ZoneState(problem)
+    state = ZoneState(problem, norm=norm)
     run = _Run(state, rules, seed, time_limit)
     info = run.info
     info["method"] = method
@@ -232,7 +298,10 @@ def solve_once(
 
     _improve(run)
     if method == "annealing" and not run.out_of_time():
-        _anneal(run)
+        if refine:
+            _anneal(run, REFINE_START_ACCEPT, REFINE_SHARE)
+        else:
+            _anneal(run)
         _improve(run)
     elif method == "tabu" and not run.out_of_time():
         _tabu(run)
@@ -242,7 +311,11 @@ def solve_once(
         _improve(run)
 
     labels, zone_anchors = state.compact()
-    sc = full_score(problem, labels, zone_anchors if problem.previous is not None else None)
+    if norm is None:
+        sc = full_score(problem, labels, zone_anchors if problem.previous is not None else None)
+    else:
+        brk, tot = state.key()
+        sc = Score(breaks=brk, total=tot, terms={})
     info["zones"] = int(labels.max()) + 1
     info["bounds_met"] = bool(sc.breaks == 0.0)
     info["seconds"] = time.perf_counter() - t0
@@ -453,8 +526,12 @@ def _back_to_best(run: _Run, best: np.ndarray, cti: np.ndarray) -> None:
         state.load(best, state.zones.anchor.copy())
 
 
-def _anneal(run: _Run) -> None:
-    """Simulated annealing from the current labelling; ends on the best labelling seen."""
+def _anneal(run: _Run, start_accept: float = ANNEAL_START_ACCEPT, share: float = 1.0) -> None:
+    """Simulated annealing from the current labelling; ends on the best labelling seen.
+
+    start_accept: the share of average uphill moves taken at the first temperature;
+    share: the part of the schedule's moves spent (over all of its temperatures).
+    """
     state = run.state
     st = state.st
     n = state.problem.n
@@ -462,11 +539,11 @@ def _anneal(run: _Run) -> None:
     uphill = float(sample_uphill(st, run.seed(), max(MIN_WORK, min(20 * n, 5000))))
     if uphill <= 0.0:
         return
-    temp = uphill / -math.log(ANNEAL_START_ACCEPT)
+    temp = uphill / -math.log(start_accept)
     plan = fence_schedule(run.rules, n)
     cooling = plan.cooling
-    per_temp = plan.per_temperature
-    budget = plan.moves
+    per_temp = max(1, int(plan.per_temperature * share))
+    budget = max(1, int(plan.moves * share))
     done = 0
     frozen = 0
     temps = 0

@@ -13,9 +13,9 @@ The presets (`effort` in the rules' [search] table):
 
 | effort | moves_per_unit | cooling | moves of a 2,000-unit fence |
 |---|---|---|---|
-| quick | 150 | 0.94 | 0.3 million |
-| default | 600 | 0.97 | 1.2 million |
-| thorough | 12,000 | 0.99 | 24 million |
+| quick | 300 | 0.95 | 0.6 million |
+| default | 1,200 | 0.985 | 2.4 million |
+| thorough | 24,000 | 0.995 | 48 million |
 
 `thorough` is what the `quality-scale` benchmark runs for its best-known references.
 A stated `moves_per_unit` or `cooling` overrides the preset's value.
@@ -29,9 +29,9 @@ from dataclasses import dataclass
 from zonedesign.rules import SearchRules
 
 PRESETS: dict[str, tuple[int, float]] = {
-    "quick": (150, 0.94),
-    "default": (600, 0.97),
-    "thorough": (12_000, 0.99),
+    "quick": (300, 0.95),
+    "default": (1200, 0.985),
+    "thorough": (24_000, 0.995),
 }
 FLOOR_UNITS = 1000  # a fence smaller than this gets the moves of one this size
 MAX_RUNS = 16

@@ -84,9 +84,16 @@ class ZoneState:
     them 0..k-1 in order of first appearance, with the anchors in the same order.
     """
 
-    def __init__(self, problem: Problem, labels: np.ndarray | None = None, anchors: np.ndarray | None = None):
+    def __init__(
+        self,
+        problem: Problem,
+        labels: np.ndarray | None = None,
+        anchors: np.ndarray | None = None,
+        norm: dict[str, float] | None = None,
+    ):
         self.problem = problem
-        self.norm = search_normalisers(problem)
+        # a coarse level is priced with its fine problem's normalisers (search.multilevel)
+        self.norm = search_normalisers(problem) if norm is None else norm
         self.data = problem_data(problem, self.norm)
         n = problem.n
         self.zones = K.make_zones(n, self.data.counts.shape[1], self.data.x.shape[1])
