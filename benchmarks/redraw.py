@@ -46,7 +46,6 @@ LOW_STABILITY = 1.0  # the stability weight of the second redraw (0, the third, 
 
 def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> tuple[list[dict], dict]:
     from zonedesign import api
-    from zonedesign.changelog import area_changes, change_table
     from zonedesign.hierarchy import build_hierarchy, fence_order
     from zonedesign.redraw import (
         fewest_moves_bound,
@@ -87,20 +86,9 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
     redraw_low_s = time.perf_counter() - t0
     off = replace(second.rules, tiers=tuple(replace(t, weights={**t.weights, "stability": 0.0}) for t in second.rules.tiers))
     now_off = redraw_hierarchy(second.areas, second.graph, off, prev_aligned).lookup()
-    # the one count of moved areas, taken three ways as the redraw writes its outputs
-    names = [t.name for t in second.rules.tiers]
-    changes = change_table(list(second.rules.tiers), second.areas.fence, second.areas.counts,
-                           second.areas.count_names, prev_aligned, now)
-    per_area = area_changes(second.areas.ids, names, prev_aligned, now)
-    per_tier = {
-        n: {
-            "lookup": int(moved_areas(prev_aligned[n], now[n]).sum()),
-            "changes_csv": int(changes.loc[changes["tier"] == n, "areas_in"].sum()),
-            "area_changes_csv": int(((per_area["tier"] == n) & (per_area["old_code"] != "")).sum()),
-            "stability_off": int(moved_areas(prev_aligned[n], now_off[n]).sum()),
-        }
-        for n in names
-    }
+    per_tier = moved_three_ways(second.rules, second.areas, prev_aligned, now)
+    for n, c in per_tier.items():
+        c["stability_off"] = int(moved_areas(prev_aligned[n], now_off[n]).sum())
 
     tier1 = second.rules.tiers[0]
     name = tier1.name
@@ -162,6 +150,26 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
     info = {"design_s": design_s, "redraw_s": redraw_s, "redraw_low_s": redraw_low_s, "areas": second.areas.n,
             "audit_ok": bool(checked.ok), "per_tier": per_tier}
     return rows, info
+
+
+def moved_three_ways(rules, areas, previous: dict, now: dict) -> dict[str, dict[str, int]]:
+    """Per tier, the one count of moved areas (`zonecodes.moved_areas`) taken from the
+    lookups, from changes.csv (areas in, summed) and from area_changes.csv (rows with an
+    old code), each built as the redraw writes it."""
+    from zonedesign.changelog import area_changes, change_table
+    from zonedesign.zonecodes import moved_areas
+
+    names = [t.name for t in rules.tiers]
+    changes = change_table(list(rules.tiers), areas.fence, areas.counts, areas.count_names, previous, now)
+    per_area = area_changes(areas.ids, names, previous, now)
+    return {
+        n: {
+            "lookup": int(moved_areas(previous[n], now[n]).sum()),
+            "changes_csv": int(changes.loc[changes["tier"] == n, "areas_in"].sum()),
+            "area_changes_csv": int(((per_area["tier"] == n) & (per_area["old_code"] != "")).sum()),
+        }
+        for n in names
+    }
 
 
 def _ratio(moved: int, fewest: float) -> float:

@@ -10,6 +10,7 @@ policy's words; every check is made on the lookup.
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 from verify_support import grid_graph, make_areas
 
@@ -120,3 +121,39 @@ def test_the_code_policy_is_read_from_the_rules_with_key_and_line_in_errors():
     # the bad value is on line 9 of the text below
     with pytest.raises(RulesError, match=r"r\.toml:9: redraw\.codes: 'kept' is not one of 'successor', 'fresh'"):
         parse_rules(base + '\n[redraw]\ncodes = "kept"\n', "r.toml")
+
+
+def test_previous_counts_give_the_published_totals_and_without_them_the_column_says_so(tmp_path):
+    from cli_support import region, write_areas, write_inputs
+
+    from zonedesign import api
+
+    areas, rules = write_inputs(tmp_path / "in")
+    assert api.design(areas, rules, tmp_path / "d", report=False, certify=False).exit_code == 0
+    later = region()
+    later["households"] = (later["households"] * np.where(later["fence"] == later["fence"].iloc[0], 1.6, 1.0)).round()
+    later_path = write_areas(later, tmp_path / "in" / "later.gpkg")
+    lookup = tmp_path / "d" / "lookup.csv"
+    with_counts = api.redraw(later_path, rules, lookup, tmp_path / "r1", previous_counts=areas,
+                             report=False, certify=False)
+    plain = api.redraw(later_path, rules, lookup, tmp_path / "r2", report=False, certify=False)
+    published = pd.read_csv(tmp_path / "r1" / "changes.csv", keep_default_na=False)
+    at_new = pd.read_csv(tmp_path / "r2" / "changes.csv", keep_default_na=False)
+    assert "households_published" in published and "households_old_zone_new_counts" in at_new
+    # the published total of a code is its zone's total as the design wrote it (pyogrio
+    # reads the design's zones.gpkg, one layer per tier)
+    import pyogrio
+
+    for tier in ("block", "ward"):
+        layer = pyogrio.read_dataframe(tmp_path / "d" / "zones.gpkg", layer=tier, read_geometry=False)
+        design_total = dict(zip(layer["zone"].astype(str), layer["households"].astype(float)))
+        rows = published[(published["tier"] == tier) & (published["households_published"] != "")]
+        assert len(rows) > 0
+        for code, total in zip(rows["new_code"].where(rows["kind"] != "retired", rows["old_codes"]),
+                               rows["households_published"].astype(float)):
+            assert total == design_total[code]
+    # the redraw is the same; only the 'before' column differs
+    assert with_counts.lookup and {k: v.tolist() for k, v in with_counts.lookup.items()} == {
+        k: v.tolist() for k, v in plain.lookup.items()
+    }
+    assert with_counts.summary["previous"]["counts"] == str(areas)
