@@ -29,7 +29,7 @@ def test_moved_areas_agree_across_summary_changes_area_changes_and_the_benchmark
     from benchmarks.redraw import moved_three_ways
     from zonedesign.scenarios import write_demo_input
 
-    files = write_demo_input(tmp_path / "in", seed=7, n=1500, later=True)
+    files = write_demo_input(tmp_path / "in", later=True)  # the input of `zonedesign demo --scenario later`
     out = tmp_path / "later"
     res = api.later_scenario(tmp_path / "in", out)
     assert res.exit_code == 0
