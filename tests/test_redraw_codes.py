@@ -157,3 +157,15 @@ def test_previous_counts_give_the_published_totals_and_without_them_the_column_s
         k: v.tolist() for k, v in plain.lookup.items()
     }
     assert with_counts.summary["previous"]["counts"] == str(areas)
+
+
+def test_a_zone_locked_by_agreement_gives_locked_as_its_reason():
+    # a 1 x 4 strip: L (locked, 2 x 80 = 160 persons) breaks the ceiling of 100 and is kept
+    # as agreed; Z is untouched
+    old = np.array(["L", "L", "Z", "Z"], dtype=object)
+    areas = make_areas(np.array([80.0, 80.0, 30.0, 30.0]))
+    tier = TierRules(name="tier1", min={"persons": 20.0}, max={"persons": 100.0})
+    changes = change_table([tier], areas.fence, areas.counts, areas.count_names, {"tier1": old}, {"tier1": old},
+                           locked={"tier1": {"L"}})
+    reasons = dict(zip(changes["new_code"], changes["reason"]))
+    assert reasons == {"L": "locked", "Z": "meets every bound; unchanged"}

@@ -88,12 +88,15 @@ def redraw_tables(
     before_totals: Mapping[str, pd.DataFrame] | None = None,
     retired: Mapping[str, Mapping[str, list[str]]] | None = None,
 ) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
-    """(changes.csv, area_changes.csv, the summary's per-tier change figures)."""
+    """(changes.csv, area_changes.csv, the summary's per-tier change figures); zones locked
+    by the rules' [lock] file get the reason "locked"."""
     names = [t.name for t in prep.rules.tiers]
+    locks = getattr(prep, "locks", None)
+    locked = {n: set(locks.zones(n)) for n in names} if locks else None
     prev = {n: np.array(["" if v is None else str(v) for v in previous[n]], dtype=object) for n in names}
     changes = change_table(
         list(prep.rules.tiers), prep.areas.fence, prep.areas.counts, prep.areas.count_names, prev, lookup,
-        before_totals=before_totals, retired=retired,
+        before_totals=before_totals, retired=retired, locked=locked,
     )
     per_area = area_changes(prep.areas.ids, names, prev, lookup)
     figures = change_figures(changes, names, prev, lookup, policy)
