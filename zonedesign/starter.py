@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 
 from zonedesign.records import Graph
-from zonedesign.rules import STABILITY_DEFAULT
+from zonedesign.rules import ROW_ID, STABILITY_DEFAULT, _toml_string, _toml_value
 
 _ID_NAME = re.compile(r"(^id$|_id$|^id_|code|key|^fid$|geoid|fips|_$|no$|num$|^objectid$|tract|^sp_id$)", re.I)
 _FENCE_NAME = re.compile(r"(district|county|region|munic|borough|parish|province|state|fence)", re.I)
@@ -98,7 +98,7 @@ def starter_rules(table: pd.DataFrame, graph: Graph | None = None, *, note: str 
     attributes = _attributes(table, {id_col, *counts})
     fence = _guess_fence(table, graph, id_col)
 
-    q = _string
+    q = _toml_string
     out = [
         "# zonedesign rules: tiers, bounds, targets, weights and search settings.",
         f"# Started from {n} areas with columns: {', '.join(columns)}.",
@@ -113,8 +113,9 @@ def starter_rules(table: pd.DataFrame, graph: Graph | None = None, *, note: str 
         near = _nearest_unique(table)
         out.append("# no column holds a unique, non-empty value per area: add one (a code per area)")
         if near is not None:
-            out.append(f"# and name it here; {near[0]!r} comes closest ({near[1]} areas share a value)")
-        out.append(f"id = {q(near[0] if near else (columns[0] if columns else 'id'))}")
+            out.append(f"# ({near[0]!r} comes closest: {near[1]} areas share a value with another),")
+        out.append('# or keep "@row" to name the areas by their row number')
+        out.append(f"id = {q(ROW_ID)}")
     else:
         others = f"   # unique per area; also unique: {', '.join(ids[1:4])}" if len(ids) > 1 else "   # unique per area"
         out.append(f"id = {q(id_col)}{others}")
@@ -198,7 +199,7 @@ def _tiers(table: pd.DataFrame, bounded: list[str], primary: str | None, fence: 
         out += ["", "[[tier]]   # bottom tier first" if k == 1 else "[[tier]]", f'name = "tier{k}"']
         for key, values in (("min", lo), ("max", hi), ("target", aim)):
             if values:
-                out.append(f"{key} = {_table(values)}   {PLACEHOLDER}")
+                out.append(f"{key} = {_toml_value(values)}   {PLACEHOLDER}")
         out += [
             f"weights = {{ size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = {STABILITY_DEFAULT:g}.0 }}",
             f"# stability counts only in a redraw ({STABILITY_DEFAULT:g} when left out; 0 switches it off, and",
@@ -355,18 +356,3 @@ def _connected_groups(graph: Graph, codes: np.ndarray) -> bool:
 
     parts = fence_components(graph, codes)
     return all(max(p.sizes) >= CONNECTED_SHARE * sum(p.sizes) for p in parts)
-
-
-# ---------------------------------------------------------------- text
-
-
-def _string(text: str) -> str:
-    from zonedesign.rules import _toml_string
-
-    return _toml_string(text)
-
-
-def _table(values: dict[str, float]) -> str:
-    from zonedesign.rules import _toml_value
-
-    return _toml_value(values)
