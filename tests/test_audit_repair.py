@@ -45,7 +45,7 @@ def test_when_the_cp_sat_repair_cannot_finish_the_search_mends_it_and_says_so(tm
     areas, rules, broken = _broken_lookup(tmp_path)
 
     def gives_up(areas_, graph, labels, tiers, **kw):
-        return RepairResult(moves=[], labels=None, status="unknown", reason="time limit")
+        return RepairResult(moves=[], labels=None, status="undecided", reason="time limit")
 
     monkeypatch.setattr("zonedesign.verify.repair.minimal_repair", gives_up)
     res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, report=False, certify=False)

@@ -155,7 +155,7 @@ def test_progress_lines_go_to_stderr_with_elapsed_time(capsys, tmp_path: Path) -
     for phase in ("reading", "building the rook graph of 100 areas", "tier 'block' by fence: 4/4",
                   "tier 'ward' by fence: 4/4", "certificate", "writing"):
         assert phase in text
-    assert lines[-1].endswith("finished: every rule holds")
+    assert lines[-1].endswith("finished: every rule holds, certificate confirmed")
 
 
 def test_bars_are_drawn_per_tier_by_fence_on_a_terminal(tmp_path: Path) -> None:
@@ -202,7 +202,7 @@ def test_show_summarises_a_run_with_tiers_in_rules_order(capsys, tmp_path: Path)
     assert "  audit: passed" in lines
     assert f"  report: {out / 'report.html'}" in lines
     assert lines[-1] == "  exit code of the run: 0"
-    assert lines[0].startswith(f"{out}  (design, zonedesign ") and lines[0].endswith(", seed 5)")
+    assert lines[0].startswith(f"{out}  (design, zonedesign ") and lines[0].endswith(", search seed 5)")
 
 
 def test_show_lists_breaks_with_their_proofs(capsys, tmp_path: Path) -> None:
@@ -215,8 +215,27 @@ def test_show_lists_breaks_with_their_proofs(capsys, tmp_path: Path) -> None:
     assert run_cli(capsys, "design", areas, "--rules", rules, "--out", out, *QUICK).code == 1
     shown = run_cli(capsys, "show", out).out
     assert shown.count("  break: tier ward zone ") == 4
-    assert shown.count("  proof (INFEASIBLE): fence F") == 4
+    assert shown.count("  proof (infeasible): fence F") == 4
     assert "  audit: 4 violation(s) (4 bounds)" in shown
+
+
+@pytest.mark.parametrize(("statuses", "verdict"), [
+    (["confirmed", "confirmed"], "confirmed (2 confirmed of 2 fence-tier models)"),
+    (["confirmed", "undecided"], "undecided (1 confirmed, 1 undecided of 2 fence-tier models)"),
+    (["OPTIMAL", "UNKNOWN"], "undecided (1 confirmed, 1 undecided of 2 fence-tier models)"),
+    (["undecided", "refuted"], "refuted (1 refuted, 1 undecided of 2 fence-tier models)"),
+])
+def test_show_never_shows_an_undecided_certificate_as_a_pass(capsys, tmp_path: Path, statuses, verdict) -> None:
+    # one vocabulary: a certificate is confirmed, refuted or undecided (older summaries
+    # with solver words are read through the same words)
+    summary = {"command": "audit", "exit_code": 1, "audit": {"ok": True, "violations": []},
+               "certificate": [{"fence": f"F{k}", "tier": "t1", "status": st} for k, st in enumerate(statuses)],
+               "repair": {"status": "unknown", "moves": 0, "method": "cp-sat", "repaired_lookup_passes": False}}
+    (tmp_path / "summary.json").write_text(json.dumps(summary))
+    shown = run_cli(capsys, "show", tmp_path).out
+    assert f"  certificate: {verdict}" in shown
+    assert "  repair: undecided, 0 area move(s)" in shown
+    assert not re.search(r"OPTIMAL|FEASIBLE|UNKNOWN|feasible\)", shown)
 
 
 def test_show_refuses_a_folder_that_is_not_an_output(capsys, tmp_path: Path) -> None:

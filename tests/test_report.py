@@ -150,7 +150,7 @@ def test_tables_cover_fences_proofs_certificate_islands_rules_and_versions(small
     s = run["summary"]
     assert "Figures per fence and tier" in text
     assert s["proofs"][0]["text"] in text
-    assert "proved: no zoning of this fence can meet every bound" in text
+    assert "infeasible: proved that no zoning of this fence can meet every bound" in text
     assert "confirmed: an independent CP-SAT model accepts these zones" in text
     assert "Islands found in the area graph" in text and "Repaired polygons" in text
     assert "min = { households = 47, persons = 100 }" in text  # the rules, preformatted

@@ -72,7 +72,7 @@ def test_repair_of_a_stray_area_moves_that_area_only():
 def test_nothing_to_repair():
     graph, areas, labels = healthy_grid(4, 4, np.full(16, 10.0))
     result = minimal_repair(areas, graph, labels, TIERS)
-    assert result.status == "nothing to repair" and result.moves == []
+    assert result.status == "optimal" and result.moves == []
 
 
 def test_zone_over_the_ceiling_is_split_into_a_new_zone():

