@@ -265,19 +265,25 @@ def test_readme_exit_code_examples_match_what_the_cli_prints(capsys, tmp_path: P
     examples = readme_exit_examples()
     assert sorted(examples) == [0, 1, 2, 3]
     assert examples[3] == "zonedesign: internal error: ..."  # shape checked in the exit-3 test below
+    # the table renders whole: a blank line inside it would end the table in Markdown
+    section = README.read_text(encoding="utf-8").split("## Exit codes", 1)[1].split("\n## ", 1)[0]
+    table = section.strip().split("\n\n", 1)[0].splitlines()
+    assert [line.split("|")[1].strip() for line in table[2:]] == ["0", "1", "2", "3", "130 / 143"]
 
+    # with the certificate, as a run goes by default
     areas, rules = write_inputs(tmp_path / "ok")
-    ran = run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "ok" / "out", "--no-report", "--no-certificate")
+    ran = run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "ok" / "out", "--no-report")
     assert ran.code == 0 and ran.err_lines[-1].endswith("] " + examples[0])
 
     text = RULES.replace("min = { households = 300 }", "min = { households = 1000 }").replace(
         "max = { households = 1200 }", "max = { households = 2000 }").replace(
         "target = { households = 600 }", "target = { households = 1500 }")
     areas, rules = write_inputs(tmp_path / "breaks", rules=text)
-    ran = run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "breaks" / "out", "--no-report", "--no-certificate")
+    ran = run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "breaks" / "out", "--no-report")
     assert ran.code == 1
     assert re.fullmatch(as_pattern(examples[1]), ran.err_lines[-1].split("] ", 1)[1])
-    assert ran.err_lines[-1].endswith("finished with 4 bound break(s), 0 audit violation(s), 0 failed fence(s): exit 1")
+    assert ran.err_lines[-1].endswith(
+        "finished with 4 bound break(s), 0 audit violation(s), 0 failed fence(s), certificate refuted: exit 1")
 
     # the README's own bad-input example, reproduced row for row
     g = region()

@@ -22,6 +22,7 @@ from zonedesign.report.html import DEFAULT_CAUTION, page, render_sections
 from zonedesign.report.plan import MAPS_BYTES
 from zonedesign.report.svgmap import MAX_ZONES_PER_MAP, element_id, zone_map
 from zonedesign.report.sweepcharts import Measure, change_bars, small_multiples
+from zonedesign.status import solve_word
 
 
 class SweepPage:
@@ -161,8 +162,7 @@ def _failing(p: SweepPage) -> str:
             continue
         items = []
         for proof in r.proofs:
-            state = {"INFEASIBLE": "proven impossible", "UNKNOWN": "undecided"}.get(str(proof.get("status")),
-                                                                                  "no proof")
+            state = solve_word(str(proof.get("status", "")))
             items.append(f"<li><strong>fence {esc(proof.get('fence'))}, tier {esc(proof.get('tier'))}</strong> "
                          f"({esc(state)}): {esc(proof.get('text'))}</li>")
         for f in r.failures:
