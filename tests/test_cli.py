@@ -234,7 +234,7 @@ def test_show_never_shows_an_undecided_certificate_as_a_pass(capsys, tmp_path: P
     (tmp_path / "summary.json").write_text(json.dumps(summary))
     shown = run_cli(capsys, "show", tmp_path).out
     assert f"  certificate: {verdict}" in shown
-    assert "  repair: undecided, 0 area move(s)" in shown
+    assert "  repair: undecided, cp-sat, 0 area move(s)" in shown
     assert not re.search(r"OPTIMAL|FEASIBLE|UNKNOWN|feasible\)", shown)
 
 

@@ -88,13 +88,6 @@ def show(folder: str | Path) -> str:
         verdict, counts = certificate_verdict(cert)
         parts = ", ".join(f"{n} {w}" for w, n in counts.items() if n)
         lines.append(f"  certificate: {verdict} ({parts} of {len(cert)} fence-tier models)")
-    repair = s.get("repair") or {}
-    if isinstance(repair, dict) and repair:
-        lines.append(
-            f"  repair: {solve_word(repair.get('status', ''))}, {repair.get('moves', '?')} area move(s)"
-            f" ({repair.get('method', '?')}); repaired lookup "
-            + ("passes the audit" if repair.get("repaired_lookup_passes") else "still breaks a rule")
-        )
     breaks = s.get("bound_breaks") or []
     for b in breaks[:SHOWN]:
         lines.append(f"  break: tier {b['tier']} zone {b['zone']}: {b.get('breaks', '')}")
@@ -160,5 +153,6 @@ def _repair_line(s: dict) -> list[str]:
     proven = "proven fewest" if rep.get("proven_fewest") else "not proven fewest"
     passes = "passes" if rep.get("repaired_lookup_passes") else "does not pass"
     where = f", in {rep['folder']}/" if rep.get("folder") else ""
-    return [f"  repair: {rep.get('method', '?')}, {rep.get('moves', '?')} area move(s) ({proven}); "
+    word = solve_word(rep.get("status", ""))
+    return [f"  repair: {word}, {rep.get('method', '?')}, {rep.get('moves', '?')} area move(s) ({proven}); "
             f"the repaired hierarchy {passes} the audit{where}"]
