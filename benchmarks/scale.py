@@ -44,11 +44,15 @@ GOAL_RSS_GB = 4.0
 AREAS_PER_FENCE = 2000
 
 def _demo_tiers() -> str:
-    """The demo's three [[tier]] tables (its invented bounds and targets), without weights."""
+    """The demo's three [[tier]] tables (its invented bounds and targets), without weights
+    and without the overrides that name the demo's own districts."""
+    import re
+
     from zonedesign.scenarios import demo_rules_text
 
     text = demo_rules_text()
     tiers = text[text.index("[[tier]]"):text.index("[search]")]
+    tiers = re.sub(r"\[\[tier\.override\]\]\n(?:[^\[\n].*\n)*", "", tiers)
     return "".join(line + "\n" for line in tiers.splitlines() if not line.startswith("weights"))
 
 

@@ -632,3 +632,31 @@ def test_bad_lock_keys_are_rules_errors(lock, message):
     with pytest.raises(RulesError) as info:
         parse_rules(f"[areas]\n{AREAS}\n\n{LOCK_TIERS}\n{lock}")
     assert message in str(info.value)
+
+
+def test_the_demo_locks_two_agreed_zones_each_contiguous_in_one_district(tmp_path):
+    import networkx as nx
+
+    from zonedesign.graph.adjacency import rook_graph
+    from zonedesign.rules import load_rules
+    from zonedesign.scenarios import demo_region, write_demo_input
+
+    paths = write_demo_input(tmp_path, seed=7, n=1500)
+    rules = load_rules(paths["rules"])
+    assert rules.lock.file == paths["locked"].absolute()
+    assert any(t.overrides for t in rules.tiers)
+    locked = pd.read_csv(paths["locked"], dtype=str)
+    gdf = demo_region(7, 1500)
+    small = rules.tiers[0].name
+    assert list(locked.columns) == ["area", small] and locked[small].nunique() == 2
+    g = rook_graph(gdf.geometry.values)
+    graph = nx.Graph()
+    graph.add_edges_from(zip(*(a.tolist() for a in g.edges()[:2])))
+    row = {c: k for k, c in enumerate(gdf["code"])}
+    lo, hi = rules.tiers[0].min["households"], rules.tiers[0].max["households"]
+    for _, zone in locked.groupby(small)["area"]:
+        members = [row[a] for a in zone]
+        # networkx (reference library): each agreed zone is connected in the rook graph
+        assert nx.is_connected(graph.subgraph(members))
+        assert gdf["district"].iloc[members].nunique() == 1
+        assert lo <= gdf["households"].iloc[members].sum() <= hi

@@ -202,7 +202,7 @@ def test_demo_rules_are_our_own_not_a_published_table():
 def test_demo_input_is_byte_identical_for_a_seed(tmp_path):
     first = write_demo_input(tmp_path / "one", seed=7, n=1500, later=True)
     second = write_demo_input(tmp_path / "two", seed=7, n=1500, later=True)
-    assert set(first) == {"areas", "rules", "links", "later"}
+    assert set(first) == {"areas", "rules", "links", "locked", "later"}
     assert first["areas"].name == "areas.gpkg" and first["later"].name == "areas.later.gpkg"
     for key in first:
         assert first[key].read_bytes() == second[key].read_bytes(), key

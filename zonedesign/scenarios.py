@@ -60,6 +60,13 @@ max = { households = 280, persons = 700 }
 target = { households = 140 }
 weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 20.0 }
 
+# the two most thinly settled districts: a lower floor, so that small zones there need not
+# stretch across empty country to reach it
+[[tier.override]]
+fences = ["D02", "D08"]
+min = { households = 40, persons = 100 }
+target = { households = 120 }
+
 [[tier]]
 name = "medium"
 min = { households = 400, persons = 1000 }
@@ -77,6 +84,10 @@ weights = { size = 1.0, homogeneity = 0.5, compactness = 1.0, stability = 20.0 }
 [search]
 method = "annealing"
 seed = 1
+
+# two small zones fixed by agreement (locked.csv): kept as they are by design and redraw
+[lock]
+file = "locked.csv"
 """
 
 
@@ -503,11 +514,12 @@ def write_gpkg(gdf: gpd.GeoDataFrame, path: Path, layer: str) -> None:
 def write_demo_input(
     folder: str | Path, seed: int = 7, *, n: int = 5000, later: bool = False
 ) -> dict[str, Path]:
-    """Write the demo's input: areas.gpkg (layer "areas"), rules.toml and links.csv.
+    """Write the demo's input: areas.gpkg (layer "areas"), rules.toml, links.csv and
+    locked.csv (two agreed small zones).
 
     With `later`, areas.later.gpkg (layer "areas") holds the same areas ten years on, for
     a redraw. The same seed and n give byte-identical files. Returns the paths by name
-    ("areas", "rules", "links" and, with `later`, "later").
+    ("areas", "rules", "links", "locked" and, with `later`, "later").
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -516,11 +528,81 @@ def write_demo_input(
         "areas": folder / "areas.gpkg",
         "rules": folder / "rules.toml",
         "links": folder / "links.csv",
+        "locked": folder / "locked.csv",
     }
     write_gpkg(gdf, paths["areas"], "areas")
     paths["rules"].write_text(demo_rules_text(), encoding="utf-8")
     demo_links(gdf).to_csv(paths["links"], index=False, lineterminator="\n")
+    ten_years_on = later_counts(gdf, seed + 4)
+    agreed_zones(gdf, [ten_years_on]).to_csv(paths["locked"], index=False, lineterminator="\n")
     if later:
         paths["later"] = folder / "areas.later.gpkg"
-        write_gpkg(later_counts(gdf, seed + 4), paths["later"], "areas")
+        write_gpkg(ten_years_on, paths["later"], "areas")
     return paths
+
+
+# the small tier's bounds in RULES_TEXT, which each agreed zone meets now and ten years on
+_SMALL = {"households": (50, 280, 140), "persons": (120, 700)}
+
+
+def agreed_zones(gdf: gpd.GeoDataFrame, later: list[gpd.GeoDataFrame] = (), n_zones: int = 2) -> pd.DataFrame:
+    """The demo's lock file: `n_zones` small zones fixed by agreement (columns area, small).
+
+    Each grows breadth-first from the first area (by code) of a district, town districts
+    first, until it holds the small tier's target of households; it is kept only when it
+    meets the small tier's bounds with these counts and the later ones, and the rest of its
+    district stays in one piece, so the zones around it can still be designed.
+    """
+    graph = rook_graph(gdf.geometry.values)
+    codes = gdf["code"].to_numpy(dtype=object)
+    district = gdf["district"].to_numpy(dtype=object)
+    counts = [gdf] + list(later)
+    density = gdf.groupby("district")["households"].sum() / gdf.groupby("district").geometry.apply(
+        lambda g: g.area.sum()
+    )
+    rows = []
+    for d in density.sort_values(ascending=False).index:
+        if len(rows) >= n_zones:
+            break
+        inside = np.flatnonzero(district == d)
+        start = int(inside[np.argmin(codes[inside])])
+        zone = _grow(graph, start, district, gdf["households"].to_numpy(dtype=float))
+        if zone is None or not all(_fits(c, zone) for c in counts):
+            continue
+        rest = np.setdiff1d(inside, zone)
+        n_before = components(graph.subgraph(inside))[0]
+        if components(graph.subgraph(rest))[0] > n_before:
+            continue
+        rows.append((d, zone))
+    out = [
+        {"area": str(codes[a]), "small": f"{d}-agreed-{k + 1}"}
+        for k, (d, zone) in enumerate(rows)
+        for a in sorted(zone.tolist(), key=lambda a: codes[a])
+    ]
+    return pd.DataFrame(out, columns=["area", "small"])
+
+
+def _grow(graph, start: int, district: np.ndarray, households: np.ndarray) -> np.ndarray | None:
+    """Areas reached breadth-first from `start` inside its district until the target."""
+    target = _SMALL["households"][2]
+    seen, order, total = {start}, [start], households[start]
+    frontier = [start]
+    while frontier and total < target:
+        nxt = []
+        for u in frontier:
+            for v in graph.neighbours(u).tolist():
+                if v not in seen and district[v] == district[start] and total < target:
+                    seen.add(v)
+                    order.append(v)
+                    total += households[v]
+                    nxt.append(v)
+        frontier = nxt
+    return np.array(sorted(order), dtype=np.int64) if total >= target else None
+
+
+def _fits(gdf: gpd.GeoDataFrame, zone: np.ndarray) -> bool:
+    for col, (lo, hi, *_) in _SMALL.items():
+        total = float(gdf[col].to_numpy(dtype=float)[zone].sum())
+        if not lo <= total <= hi:
+            return False
+    return True
