@@ -230,7 +230,7 @@ def _table(zone, fence, counts, geoms, target, lo, hi, rng) -> pd.DataFrame:
     for name, t in target.items():
         df[f"{name}_vs_target"] = (df[name] - t) / t
     df["polsby_popper"] = 4 * np.pi * area / per**2
-    df["homogeneity"] = rng.uniform(0.1, 0.9, len(df))
+    df["within_spread"] = rng.uniform(0.1, 0.9, len(df))
     df["area_km2"] = area / 1e6
     parts = np.full(len(df), "", dtype=object)
     for name in counts:

@@ -323,3 +323,22 @@ def test_summary_records_seed_versions_and_settings(capsys, tmp_path: Path) -> N
     assert s["search"] == {"method": "descent", "seed": 5, "executor": "local", "workers": 1}
     assert {"zonedesign", "python", "numpy", "shapely", "ortools", "numba"} <= set(s["versions"])
     assert json.loads(json.dumps(s)) == s
+
+
+def test_help_and_readme_define_the_same_words(capsys) -> None:
+    from zonedesign.glossary import WORDS
+
+    ran = run_cli(capsys, "--help")
+    assert ran.code == 0
+    readme = README.read_text(encoding="utf-8").split("## Words", 1)[1].split("\n## ", 1)[0]
+    help_text = " ".join(ran.out.split())  # argparse may rewrap nothing here, but spacing varies
+    for word, meaning in WORDS:
+        assert f"{word} {meaning}" in help_text, word
+        assert f"| `{word}` | {meaning} |" in readme, word
+    # the zone tables' columns that needed a definition are among them
+    assert {"within_spread", "n_areas / n_units", "<count>_vs_target"} <= {w for w, _ in WORDS}
+
+
+def test_crs_help_names_the_demo_region_s_own_utm_zone(capsys) -> None:
+    ran = run_cli(capsys, "design", "--help")
+    assert ran.code == 0 and "e.g. EPSG:32631" in " ".join(ran.out.split())

@@ -299,7 +299,7 @@ def test_hovering_a_zone_shows_its_figures(browser, design):
         assert tip["hidden"] is False and tip["display"] != "none"
         assert f"zone {row['zone']}" in tip["text"]
         assert f"households {int(row['households']):,}" in tip["text"]
-        assert "Polsby-Popper" in tip["text"] and "homogeneity" in tip["text"]
+        assert "Polsby-Popper" in tip["text"] and "within-zone spread" in tip["text"]
         assert ("breaks a rule" in tip["text"]) == bool(row["bound_break"])
         browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": 2, "y": 2}, sid)
         assert browser.eval(sid, "document.getElementById('tip').hidden") is True

@@ -354,10 +354,10 @@ def test_deviation_from_target_and_outliers():
     areas, graph, labels = _grid_case()
     tiers = [TierRules("block", target={"persons": 50})]
     result = audit(areas, graph, labels, tiers)
-    dev = dict(zip(result.zones["block"]["zone"], result.zones["block"]["dev_persons"]))
+    dev = dict(zip(result.zones["block"]["zone"], result.zones["block"]["persons_vs_target"]))
     assert dev == pytest.approx({"A": -0.4, "B": 0.8, "C": 0.8})
     flagged = {(o["zone"], o["measure"]) for o in result.outliers}
-    assert ("B", "dev_persons") in flagged and ("A", "dev_persons") not in flagged
+    assert ("B", "persons_vs_target") in flagged and ("A", "persons_vs_target") not in flagged
 
 
 # ---------------------------------------------------------------- intra-area correlation

@@ -16,6 +16,7 @@ from typing import NoReturn
 
 from zonedesign import __version__
 from zonedesign.errors import InputError
+from zonedesign.glossary import glossary_text
 
 # the demo region's layout needs this many areas at least (zonedesign.scenarios.demo_region)
 DEMO_MIN_AREAS = 500
@@ -99,14 +100,18 @@ def _parser() -> argparse.ArgumentParser:
         epilog=textwrap.dedent(
             """\
             commands: design, redraw, audit, sweep, demo, rules, show
-            exit codes: 0 ok, 1 ran but rules are broken, 2 bad input or usage,
-                        3 internal error (--debug shows the traceback)
+            exit codes: 0 ok, 1 ran but a rule is broken or undecided, 2 bad input or usage,
+                        3 internal error (--debug shows the traceback), 130/143 interrupted
+            status words: a certificate is confirmed, refuted or undecided; a solve (proof,
+                          repair) is optimal, feasible, infeasible or undecided
 
             Thresholds must follow your own statistical-disclosure-control rules; results
             need review by the responsible statistician before publication.
             """
         )
-        + "\n"
+        + "\nwords:\n"
+        + glossary_text()
+        + "\n\n"
         + textwrap.dedent(EXAMPLES["demo"]),
     )
     p.add_argument("--version", action="version", version=f"zonedesign {__version__}")

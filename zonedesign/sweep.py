@@ -263,7 +263,7 @@ def measure_row(figures: dict, count_names: Sequence[str]) -> dict:
         for c, share in f["share_within_10pct_of_target"].items():
             row[f"within_10pct.{tier}.{c}"] = share
         row[f"polsby_popper.median.{tier}"] = f["polsby_popper"]["median"]
-        row[f"homogeneity.median.{tier}"] = f["homogeneity"]["median"]
+        row[f"within_spread.median.{tier}"] = f["within_spread"]["median"]
     return row
 
 

@@ -63,7 +63,8 @@ def zone_table(
             with np.errstate(invalid="ignore", divide="ignore"):
                 df[f"{name}_vs_target"] = np.where(aim > 0, (sums[:, c] - aim) / aim, np.nan)
     df["polsby_popper"] = polsby_popper(area, per)
-    df["homogeneity"] = within_variance(areas, codes, k)
+    # a spread, 0 when a zone's areas are alike: named for what it is, not for the aim
+    df["within_spread"] = within_variance(areas, codes, k)
     df["n_areas"] = np.bincount(codes, minlength=k)
     df["n_units"] = df["n_areas"] if units_per_zone is None else units_per_zone
     df["area_km2"] = area / 1e6
@@ -123,9 +124,9 @@ def tier_figures(df: pd.DataFrame, tier: TierRules, count_names: Sequence[str]) 
             within[name] = float((df[key].abs() <= 0.10).mean()) if len(df) else 0.0
     out["share_within_10pct_of_target"] = within
     pp = df["polsby_popper"].to_numpy()
-    hom = df["homogeneity"].to_numpy()
+    hom = df["within_spread"].to_numpy()
     out["polsby_popper"] = _quantiles(pp)
-    out["homogeneity"] = _quantiles(hom)
+    out["within_spread"] = _quantiles(hom)
     return out
 
 

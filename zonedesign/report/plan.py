@@ -351,8 +351,8 @@ class ReportPlan:
         shape = []
         if "polsby_popper" in row:
             shape.append(f"Polsby-Popper {num(row['polsby_popper'])}")
-        if "homogeneity" in row:
-            shape.append(f"homogeneity {num(row['homogeneity'])}")
+        if "within_spread" in row:
+            shape.append(f"within-zone spread {num(row['within_spread'])}")
         if shape:
             lines.append(" · ".join(shape))
         for msg in self.problems.get((tier, zone), []):
@@ -379,7 +379,7 @@ def count_columns(tables: Mapping[str, pd.DataFrame]) -> list[str]:
         "fence",
         "parent",
         "polsby_popper",
-        "homogeneity",
+        "within_spread",
         "n_areas",
         "n_units",
         "area_km2",
@@ -416,7 +416,7 @@ def tier_figures(table: pd.DataFrame | None, counts: Sequence[str]) -> dict:
         for c in counts
         if f"{c}_vs_target" in table and len(table)
     }
-    for key in ("polsby_popper", "homogeneity"):
+    for key in ("polsby_popper", "within_spread"):
         if key in table and len(table):
             x = table[key].to_numpy(dtype=float)
             out[key] = {

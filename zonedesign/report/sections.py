@@ -256,7 +256,7 @@ def _distributions(run: ReportPlan) -> str:
     series: dict[str, dict[str, np.ndarray]] = {}
     for col, name in (
         ("polsby_popper", "Polsby-Popper (1 = circle)"),
-        ("homogeneity", "homogeneity (within-zone variance, 0 = alike)"),
+        ("within_spread", "within-zone spread (variance of the attributes, 0 = alike)"),
     ):
         per = {
             t: run.tables[t][col].to_numpy(dtype=float)
@@ -273,7 +273,7 @@ def _distributions(run: ReportPlan) -> str:
             for t, v in per.items()
             if v.size
         )
-        out.append('<h3 id="dist-shape">Shape and homogeneity</h3>')
+        out.append('<h3 id="dist-shape">Shape and within-zone spread</h3>')
         out.append(f'<img class="chart" src="{uri}" alt="{esc(f"Box plots per tier. {desc}")}">')
     return "".join(out)
 
@@ -286,7 +286,7 @@ def _tiers(run: ReportPlan) -> str:
     cols = ["tier", "zones", "outside bounds"]
     for c in run.counts:
         cols += [f"{c} mean (min–max)", f"{c} within 10% of target"]
-    cols += ["Polsby-Popper median (p10–p90)", "homogeneity median (p10–p90)"]
+    cols += ["Polsby-Popper median (p10–p90)", "within-zone spread median (p10–p90)"]
     rows = []
     for t in names:
         f = (
@@ -302,7 +302,7 @@ def _tiers(run: ReportPlan) -> str:
             )
             share = get(f, "share_within_10pct_of_target", c)
             row.append(pct_plain(share) if share is not None else "no target")
-        for key in ("polsby_popper", "homogeneity"):
+        for key in ("polsby_popper", "within_spread"):
             q = f.get(key) or {}
             row.append(
                 f"{num(q.get('median'))} ({num(q.get('p10'))}–{num(q.get('p90'))})" if q else "–"
@@ -337,7 +337,16 @@ def _tiers(run: ReportPlan) -> str:
 
 
 def _zones(run: ReportPlan) -> str:
-    out = []
+    from zonedesign.glossary import WORDS
+
+    # the zone tables' own column names, defined where they are read (the README has the same)
+    defined = [(w, m) for w, m in WORDS if "_" in w]
+    out = [
+        '<p class="note">Columns: '
+        + "; ".join(f"<strong>{esc(w.replace('_', ' '))}</strong>: {esc(m.removeprefix('in a zone table: '))}"
+                    for w, m in defined)
+        + ".</p>"
+    ] if run.tables else []
     for tier in run.tiers:
         table = run.tables.get(tier)
         listed = run.listed.get(tier)
@@ -358,7 +367,7 @@ def _zones(run: ReportPlan) -> str:
         ]
         cols += [
             c
-            for c in ("polsby_popper", "homogeneity", "n_units", "n_areas", "area_km2", "breaks")
+            for c in ("polsby_popper", "within_spread", "n_units", "n_areas", "area_km2", "breaks")
             if c in sub
         ]
         rows = []

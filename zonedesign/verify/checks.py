@@ -660,7 +660,8 @@ def _zone_measures(
     for c, name in enumerate(areas.count_names):
         t = bounds.target[c]
         if np.isfinite(t) and t != 0:
-            frame[f"dev_{name}"] = (sums[:, c] - t) / t
+            # (zone - target) / target, named as in the zone tables
+            frame[f"{name}_vs_target"] = (sums[:, c] - t) / t
     area = measures.zone_sums(lab, k + 1, areas.area)[:k]
     perimeter = measures.zone_perimeter(graph, lab, k + 1, areas.perimeter)[:k]
     frame["area"] = area
@@ -729,7 +730,7 @@ def _outliers(tier: TierRules, frame: pd.DataFrame, count_names: Sequence[str]) 
                 }
             )
     for name in count_names:
-        col = f"dev_{name}"
+        col = f"{name}_vs_target"
         if col not in frame:
             continue
         for z, v in zip(frame["zone"], frame[col]):
