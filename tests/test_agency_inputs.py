@@ -660,3 +660,78 @@ def test_the_demo_locks_two_agreed_zones_each_contiguous_in_one_district(tmp_pat
         assert nx.is_connected(graph.subgraph(members))
         assert gdf["district"].iloc[members].nunique() == 1
         assert lo <= gdf["households"].iloc[members].sum() <= hi
+
+
+# ---------------------------------------------------------------- a fence per tier
+
+# By construction: 8 squares of 10 persons in a row; wards of two squares (W1..W4) nest in
+# districts of four (D1, D2). Tier 1 keeps to wards and needs exactly 20 persons, so its
+# zones are the wards; tier 2 keeps to districts and needs exactly 40, so its zones join
+# two wards each: possible only if tier 2 may cross the ward lines that tier 1 may not.
+FENCE_TIERS = (
+    '[[tier]]\nname = "tier1"\nfence = "ward"\nmin = { persons = 20 }\nmax = { persons = 20 }\n\n'
+    '[[tier]]\nname = "tier2"\nmin = { persons = 40 }\nmax = { persons = 40 }\n'
+)
+
+
+def wards(tmp_path: Path, district: list[str] | None = None) -> Path:
+    gdf = gpd.GeoDataFrame(
+        {"code": [f"A{k}" for k in range(8)], "persons": [10] * 8,
+         "ward": [f"W{k // 2 + 1}" for k in range(8)],
+         "district": district or ["D1"] * 4 + ["D2"] * 4},
+        geometry=squares(8), crs=UTM,
+    )
+    return write_gpkg(gdf, tmp_path / "areas.gpkg")
+
+
+def test_each_tier_keeps_to_its_own_fence_and_upper_zones_join_lower_fences(tmp_path):
+    areas = wards(tmp_path)
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nfence = "district"', FENCE_TIERS)
+    out = tmp_path / "out"
+    assert main(design_argv(areas, rules, out)) == 0
+    lookup = pd.read_csv(out / "lookup.csv", dtype=str)
+    ward = [f"W{k // 2 + 1}" for k in range(8)]
+    # tier 1 zones are exactly the wards, tier 2 zones exactly the districts
+    assert lookup.groupby("tier1")["area"].apply(lambda a: {ward[int(x[1:])] for x in a}).map(len).eq(1).all()
+    assert lookup["tier1"].nunique() == 4 and lookup["tier2"].nunique() == 2
+    assert lookup.groupby("tier2")["area"].apply(lambda a: sorted(a)).tolist() == [
+        ["A0", "A1", "A2", "A3"], ["A4", "A5", "A6", "A7"]
+    ]
+
+
+def test_the_audit_holds_each_tier_to_its_own_fence(tmp_path):
+    from zonedesign.api import prepare
+    from zonedesign.verify.checks import audit
+
+    areas = wards(tmp_path)
+    rules = load_rules(rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nfence = "district"', FENCE_TIERS))
+    prep = prepare(areas, rules)
+    good = {"tier1": np.array(["a", "a", "b", "b", "c", "c", "d", "d"], dtype=object),
+            "tier2": np.array(["x"] * 4 + ["y"] * 4, dtype=object)}
+    assert audit(prep.areas, prep.graph, good, list(rules.tiers)).ok
+    # A1 + A2 cross the line between W1 and W2: a fence break of tier 1 only
+    bad = dict(good, tier1=np.array(["a", "b", "b", "c", "c", "e", "d", "d"], dtype=object))
+    found = audit(prep.areas, prep.graph, bad, list(rules.tiers))
+    assert {(v.kind, v.tier) for v in found.violations if v.kind == "fence"} == {("fence", "tier1")}
+
+
+def test_a_lower_fence_that_does_not_nest_is_exit_2_naming_an_area(tmp_path, capsys):
+    # W2 (A2, A3) lies in both districts once A3 moves to D2
+    areas = wards(tmp_path, ["D1"] * 3 + ["D2"] * 5)
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nfence = "district"', FENCE_TIERS)
+    for argv in (design_argv(areas, rules, tmp_path / "out"), ["rules", "check", str(rules), str(areas)]):
+        err = one_line_exit_2(argv, capsys)
+        assert ("fence 'ward' of tier 'tier1': code 'W2' is split between fences 'district' 'D1' (area 'A2') "
+                "and 'D2' (area 'A3') of tier 'tier2'") in err
+
+
+@pytest.mark.parametrize(
+    "fence, message",
+    [("3", "tier.1.fence: expected a non-empty text"), ('"wards"', "tier.1.fence: column 'wards' is not in")],
+)
+def test_bad_tier_fences_are_exit_2(tmp_path, capsys, fence, message):
+    areas = wards(tmp_path)
+    tiers = FENCE_TIERS.replace('fence = "ward"', f"fence = {fence}")
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nfence = "district"', tiers)
+    err = one_line_exit_2(["rules", "check", str(rules), str(areas)], capsys)
+    assert message in err

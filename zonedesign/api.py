@@ -112,7 +112,8 @@ def prepare(
     if rules.areas.table is not None:
         inputs.append(Path(rules.areas.table))
     file = read_areas(areas_path, rules.areas, layer=layer, crs=crs)
-    check_fences_against(rules, file.areas.fence.tolist(), str(areas_path))
+    fences = {t.name: file.areas.in_tier(t.name).fence.tolist() for t in rules.tiers}
+    check_fences_against(rules, fences, str(areas_path))
     seconds["read"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     stage(f"building the {rules.graph.contiguity} graph of {file.areas.n} areas")

@@ -40,7 +40,7 @@ def units_problem(
     tier = tier_in_fence(tiers[t], fence)  # an override's bounds and weights in this fence
     if bounds is None:
         bounds = bounds_of(tier, areas.count_names)
-    idx = np.flatnonzero(areas.fence == fence)
+    idx = np.flatnonzero(areas.in_tier(tier_name).fence == fence)
     g = graph.subgraph(idx)
     if t == 0:
         codes, k = np.arange(idx.shape[0]), idx.shape[0]

@@ -390,7 +390,7 @@ def _rules(args: argparse.Namespace) -> int:
         if args.areas is not None:
             columns, table_columns = rule_columns(args.areas, rules.areas, layer=args.layer or rules.areas.layer)
             check_rules_against(rules, columns, str(args.areas), table_columns)
-            if any(t.overrides for t in rules.tiers) or rules.lock.file is not None:
+            if any(t.overrides for t in rules.tiers) or rules.lock.file is not None or rules.areas.tier_fences:
                 from zonedesign.api import prepare
 
                 # override fences and locked zones are checked against the areas as read:

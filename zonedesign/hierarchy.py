@@ -335,13 +335,14 @@ def build_hierarchy(
 
     Locked zones (`locks`) are kept as given; the rest is designed around them."""
     run = executor or serial_executor
-    units = base_units(areas, graph)
-    fences = fence_order(areas.fence)
+    units = base_units(areas.in_tier(rules.tiers[0].name), graph)
+    full = graph  # across fences too: an upper tier may join what a lower tier's fence parts
     tiers: list[TierResult] = []
     all_units: list[Units] = []
     seconds: dict[str, float] = {}
     for t, tier in enumerate(rules.tiers):
         t0 = time.perf_counter()
+        fences = fence_order(units.fence)
         tasks = []
         locked, search_units = locked_units(units, locks, rules.tiers, t, areas.n)
         spans = [np.flatnonzero((units.fence == fence) & (locked == "")) for fence in fences]
@@ -368,7 +369,26 @@ def build_hierarchy(
             on_tier(tier.name, t + 1, len(rules.tiers))
         if t + 1 < len(rules.tiers):
             units = next_units(units, result.zone_of_unit, result.zone_fence)
+            units, full = refenced(units, full, result.zone_of_unit, areas, rules.tiers[t + 1].name)
     return HierarchyResult(tiers=tiers, units=all_units, seconds=seconds)
+
+
+def refenced(units: Units, full: Graph, zone_of_unit: np.ndarray, areas: Areas, tier: str) -> tuple[Units, Graph]:
+    """The next tier's units inside that tier's own fence ([[tier]] fence).
+
+    `full` is the graph of the tier below without fence cuts; collapsed, then cut along
+    the next tier's fence, it joins units that a lower tier's finer fence kept apart. A
+    lower fence nests in the upper one (checked on reading), so each unit has one code.
+    """
+    if not areas.tier_fence:
+        return units, full
+    from dataclasses import replace
+
+    k = units.counts.shape[0]
+    upper = collapse(full, zone_of_unit, k)
+    fence = np.empty(k, dtype=object)
+    fence[units.of_area] = areas.in_tier(tier).fence
+    return replace(units, graph=fence_graph(upper, fence), fence=fence), upper
 
 
 def locked_units(

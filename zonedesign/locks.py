@@ -93,8 +93,8 @@ def read_locks(path: str | Path, areas: Areas, graph: Graph, tiers: Sequence[Tie
 def lock_problems(locks: Locks, areas: Areas, graph: Graph, tier_names: Sequence[str], where: str) -> list[str]:
     """Locked zones that cross a fence, are not contiguous, or straddle an upper lock."""
     out = []
-    fence = areas.fence.astype(str)
     for t, name in enumerate(tier_names):
+        fence = areas.in_tier(name).fence.astype(str)
         for code, members in locks.zones(name).items():
             fences = sorted(set(fence[members].tolist()))
             if len(fences) > 1:

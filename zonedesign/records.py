@@ -7,7 +7,8 @@ tier, handed to the search and to the exact solver.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from collections.abc import Mapping
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -24,6 +25,8 @@ class Areas:
     fence: fence code per area as strings (object array); one code when no fence column.
     crs: the projected CRS used for measures (an authority string or WKT).
     repaired: ids of polygons that were invalid and repaired on reading.
+    tier_fence: tier name -> fence code per area, for tiers with a fence of their own
+    ([[tier]] fence); every other tier uses `fence`.
     """
 
     ids: np.ndarray
@@ -37,10 +40,17 @@ class Areas:
     fence: np.ndarray
     crs: str = ""
     repaired: tuple[str, ...] = ()
+    tier_fence: Mapping[str, np.ndarray] = field(default_factory=dict)
 
     @property
     def n(self) -> int:
         return int(self.ids.shape[0])
+
+    def in_tier(self, tier: str) -> Areas:
+        """The areas with the fence that tier `tier` keeps to as their fence."""
+        if tier not in self.tier_fence:
+            return self
+        return replace(self, fence=self.tier_fence[tier])
 
     def count(self, name: str) -> np.ndarray:
         return self.counts[:, self.count_names.index(name)]
@@ -59,6 +69,7 @@ class Areas:
             fence=self.fence[index],
             crs=self.crs,
             repaired=self.repaired,
+            tier_fence={k: v[index] for k, v in self.tier_fence.items()},
         )
 
 

@@ -45,6 +45,7 @@ from zonedesign.hierarchy import (
     fence_problem,
     locked_units,
     next_units,
+    refenced,
     scored_result,
     serial_executor,
     task_seed,
@@ -458,14 +459,15 @@ def redraw_hierarchy(
     run = executor or serial_executor
     policy = rules.redraw.codes
     weight_area = areas.counts[:, 0] if published is None else np.asarray(published, dtype=np.float64)
-    units = base_units(areas, graph)
-    fences = fence_order(areas.fence)
+    units = base_units(areas.in_tier(rules.tiers[0].name), graph)
+    full = graph  # across fences too: an upper tier may join what a lower tier's fence parts
     new_areas = [str(a) for a, p in zip(areas.ids, previous[rules.tiers[0].name]) if p == ""]
     tiers: list[RedrawTier] = []
     all_units: list[Units] = []
     seconds: dict[str, float] = {}
     for t, tier in enumerate(rules.tiers):
         t0 = time.perf_counter()
+        fences = fence_order(units.fence)
         n_units = units.counts.shape[0]
         prev_unit = unit_previous(previous[tier.name], units.of_area, n_units)
         unit_size = np.bincount(units.of_area, minlength=n_units).astype(np.float64)
@@ -528,6 +530,7 @@ def redraw_hierarchy(
         all_units.append(units)
         if t + 1 < len(rules.tiers):
             units = next_units(units, zone_of_unit, zone_fence)
+            units, full = refenced(units, full, zone_of_unit, areas, rules.tiers[t + 1].name)
     return RedrawResult(
         tiers=tiers, units=all_units, new_areas=new_areas, gone_areas=[], seconds=seconds, policy=policy
     )

@@ -48,7 +48,7 @@ import json
 import math
 import re
 import tomllib
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -77,6 +77,9 @@ class AreasRules:
     fence_prefix: int | None = None  # fence code = the first N characters of `fence`
     fence_suffix: int | None = None  # fence code = the last N characters of `fence`
     work_crs: str | None = None  # projected CRS areas and lengths are measured in
+    # (tier, its own fence column or None) for every tier, bottom first, when any tier has
+    # a fence of its own ([[tier]] fence); set from the tiers
+    tier_fences: tuple[tuple[str, str | None], ...] = ()
     overlaps: str = "refuse"  # "refuse" | "cut"
 
     @property
@@ -124,6 +127,7 @@ class TierRules:
     homogeneity: str = "ssd"
     compactness: str = "polsby"
     overrides: tuple[TierOverride, ...] = ()  # [[tier.override]], in file order
+    fence: str | None = None  # this tier's own fence column; else [areas] fence
 
 
 def tier_in_fence(tier: TierRules, fence: str) -> TierRules:
@@ -235,7 +239,7 @@ FENCE_KEYS = ("column", "prefix", "suffix")
 PREFER = ("table", "file")
 OVERLAPS = ("refuse", "cut")
 GRAPH_KEYS = ("contiguity", "min_shared_length", "tolerance", "links")
-TIER_KEYS = ("name", "min", "max", "target", "weights", "homogeneity", "compactness", "override")
+TIER_KEYS = ("name", "fence", "min", "max", "target", "weights", "homogeneity", "compactness", "override")
 OVERRIDE_KEYS = ("fences", "min", "max", "target", "weights")
 SEARCH_KEYS = (
     "method",
@@ -536,6 +540,9 @@ def _build(data: dict, check: _Check, base_dir: Path | None) -> Rules:
     lock = _lock(top.get("lock"), check, base_dir)
     tiers = _tiers(top.get("tier"), check, areas)
     redraw = _redraw(top.get("redraw", {}), check)
+    # the areas file is read once, with every tier's own fence column
+    if any(t.fence for t in tiers):
+        areas = replace(areas, tier_fences=tuple((t.name, t.fence) for t in tiers))
     _raise(check.problems)
     return Rules(areas=areas, tiers=tiers, graph=graph, search=search, redraw=redraw, lock=lock)
 
@@ -741,6 +748,7 @@ def _tier(raw: dict, k: int, check: _Check, areas: AreasRules) -> TierRules:
         homogeneity=check.text(t, "homogeneity", path, choices=HOMOGENEITY) or "ssd",
         compactness=check.text(t, "compactness", path, choices=COMPACTNESS) or "polsby",
         overrides=overrides,
+        fence=check.text(t, "fence", path),
     )
 
 
@@ -838,6 +846,7 @@ def check_rules_against(
         wanted.append((("areas", "fence"), a.fence))
     if a.weight is not None:
         wanted.append((("areas", "weight"), a.weight))
+    wanted += [(("tier", k, "fence"), t.fence) for k, t in enumerate(rules.tiers) if t.fence]
     table = a.table.name if a.table is not None else None
     if table is not None and a.id not in extra and not a.row_ids:
         check.fail(("areas", "table"), f"the id column {a.id!r} is not in {table}, so it cannot be joined")
@@ -863,12 +872,16 @@ def check_rules_against(
     _raise(check.problems)
 
 
-def check_fences_against(rules: Rules, fences: Sequence[str], where: str) -> None:
-    """Every fence code an override names is a fence of the areas file `where`."""
+def check_fences_against(rules: Rules, fences: Sequence[str] | Mapping[str, Sequence[str]], where: str) -> None:
+    """Every fence code an override names is a fence of its tier in the areas file `where`.
+
+    `fences`: the fence code of every area, or per tier name (tiers with fences of their own).
+    """
     check = _Check(str(rules.source) if rules.source else "<rules>", _KeyLines(rules.text) if rules.text else None)
-    known = sorted({str(f) for f in fences})
-    shown = ", ".join(known[:10]) + (f" and {len(known) - 10} more" if len(known) > 10 else "")
     for k, t in enumerate(rules.tiers):
+        codes = fences.get(t.name, ()) if isinstance(fences, Mapping) else fences
+        known = sorted({str(f) for f in codes})
+        shown = ", ".join(known[:10]) + (f" and {len(known) - 10} more" if len(known) > 10 else "")
         for m, o in enumerate(t.overrides):
             unknown = [f for f in o.fences if f not in set(known)]
             if unknown:
@@ -935,6 +948,7 @@ def _rules_data(rules: Rules) -> dict:
             "weights": dict(t.weights),
             "homogeneity": t.homogeneity,
             "compactness": t.compactness,
+            **({"fence": t.fence} if t.fence else {}),
             **({"override": [
                 {"fences": list(o.fences), "min": dict(o.min), "max": dict(o.max), "target": dict(o.target),
                  "weights": dict(o.weights)}

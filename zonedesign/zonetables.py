@@ -41,6 +41,7 @@ def zone_table(
     units_per_zone: np.ndarray | None = None,
 ) -> pd.DataFrame:
     """Figures of every zone of one tier; `labels` holds each area's zone id."""
+    areas = areas.in_tier(tier.name)  # zones keep to their tier's own fence
     labels = np.asarray(labels, dtype=object)
     codes, k = compact_labels(labels)
     first = np.zeros(k, dtype=np.int64)

@@ -105,6 +105,15 @@ def read_areas(
         fence, found, fence_notes = columns.fence(areas_rules)
         problems += found
         notes += fence_notes
+    tier_fence: dict[str, np.ndarray] = {}
+    for tier, col in areas_rules.tier_fences:
+        if col is None:
+            continue
+        plain = AreasRules(id=areas_rules.id, counts=(), fence=col)
+        tier_fence[tier], found, _ = columns.fence(plain)
+        problems += found
+    if tier_fence and not problems:
+        problems += v.fence_nesting(fence, tier_fence, areas_rules, where, labels)
 
     geoms, repaired, found = v.check_polygons(frame.geometry.to_numpy(), where, labels)
     problems += found
@@ -153,9 +162,11 @@ def read_areas(
     repaired_ids = tuple(str(ids[k]) for k in repaired)
     if areas_rules.overlaps == "cut":
         columns = {"ids": ids, "counts": counts, "attrs": attrs, "weight": weight, "fence": fence}
+        columns.update({f"tier:{k}": a for k, a in tier_fence.items()})
         mend, series, columns, found = _mend_overlaps(series, columns, areas_rules, where, labels)
         v.raise_problems(found, where=where)
         ids, counts, attrs, weight, fence = (columns[k] for k in ("ids", "counts", "attrs", "weight", "fence"))
+        tier_fence = {k: columns[f"tier:{k}"] for k in tier_fence}
         notes += mend.notes(where)
 
     geo = series.to_numpy()
@@ -171,6 +182,7 @@ def read_areas(
         fence=fence,
         crs=series.crs.to_string(),
         repaired=repaired_ids,
+        tier_fence=tier_fence,
     )
     return AreaFile(
         areas=areas, geometry=series, source=path, crs_note=crs_note, notes=notes,
@@ -251,7 +263,7 @@ def _mend_overlaps(
             attrs[r] = share @ attrs[members]  # the merged area's attributes: weighted by its parts
             weight[r] = w.sum()
             keep[members[members != r]] = False
-        columns = {"ids": ids, "counts": counts, "attrs": attrs, "weight": weight, "fence": fence}
+        columns = {**columns, "ids": ids, "counts": counts, "attrs": attrs, "weight": weight, "fence": fence}
     if problems:
         return mend, series, columns, problems
     columns = {k: a[keep] for k, a in columns.items()}
@@ -287,6 +299,9 @@ def _wanted_columns(rules: AreasRules) -> dict[str, str]:
         wanted.setdefault(rules.fence, "fence")
     if rules.weight is not None:
         wanted.setdefault(rules.weight, "weight")
+    for _, col in rules.tier_fences:
+        if col is not None:
+            wanted.setdefault(col, "fence")
     return wanted
 
 

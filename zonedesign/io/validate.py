@@ -8,11 +8,16 @@ from 1.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 import pandas as pd
 import shapely
 
 from zonedesign.errors import InputError
+
+if TYPE_CHECKING:
+    from zonedesign.rules import AreasRules
 
 SHOW = 5  # offenders listed per problem
 POLYGONAL = (3, 6)  # shapely type ids of Polygon and MultiPolygon
@@ -218,6 +223,33 @@ def cut_codes(
         ]
     cut = [c[:n] for c in text] if prefix else [c[-n:] for c in text]
     return np.array(cut, dtype=object), []
+
+
+def fence_nesting(
+    fence: np.ndarray, tier_fence: dict[str, np.ndarray], rules: AreasRules, where: str, labels: RowLabels
+) -> list[str]:
+    """Each tier's fence nests in the next tier's: one code below, one code above.
+
+    `rules.tier_fences` lists every tier (bottom first) with its own fence column or None;
+    `tier_fence` holds the codes of those with one, the others keep to `fence`. A problem
+    names an area on each side of the split.
+    """
+    out = []
+    chain = [(t, tier_fence.get(t, fence), col or rules.fence or "(none)") for t, col in rules.tier_fences]
+    for (lower, low, lcol), (upper, up, ucol) in zip(chain, chain[1:]):
+        frame = pd.DataFrame({"low": low, "up": up})
+        spread = frame.groupby("low", sort=True)["up"].nunique()
+        for code in spread.index[spread > 1][:SHOW]:
+            rows = np.flatnonzero(low == code)
+            ups = pd.unique(up[rows])
+            a = rows[up[rows] == ups[0]][0]
+            b = rows[up[rows] == ups[1]][0]
+            out.append(
+                f"{where}: fence {lcol!r} of tier {lower!r}: code {code!r} is split between fences {ucol!r} "
+                f"{ups[0]!r} (area {labels[a]}) and {ups[1]!r} (area {labels[b]}) of tier {upper!r}; "
+                "a lower tier's fence must nest in the upper one's"
+            )
+    return out
 
 
 # ---------------------------------------------------------------- geometry

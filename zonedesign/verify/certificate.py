@@ -87,14 +87,13 @@ def certify(
     whole numbers are scaled by 1000 and bounds rounded inwards at that scale.
     """
     tiers = list(tiers)
-    fence = np.asarray(areas.fence).astype(str)
-    fences = sorted(set(fence.tolist()))
     scale = integer_scale(areas.counts)
     out: list[Certificate] = []
     for k, t in enumerate(tiers):
         tl = encode_labels(labels[t.name])
         upper = encode_labels(labels[tiers[k + 1].name]).codes if k + 1 < len(tiers) else None
-        for f in fences:
+        fence = np.asarray(areas.in_tier(t.name).fence).astype(str)  # the tier's own fence
+        for f in sorted(set(fence.tolist())):
             bounds = tier_bounds(tier_in_fence(t, f), areas.count_names)  # an override's bounds in this fence
             out.append(
                 _certify_fence(areas, graph, fence, f, t.name, tl.codes, upper, bounds, scale, time_limit, workers)

@@ -303,16 +303,16 @@ def audit(
         if k + 1 < len(tiers):
             violations += _nesting(areas, graph, t.name, tl, members, tiers[k + 1].name, encoded[tiers[k + 1].name])
         violations += _contiguity(areas, t.name, tl, members, parts[t.name])
-        violations += _fences(areas, t.name, tl, members)
+        violations += _fences(areas.in_tier(t.name), t.name, tl, members)  # the tier's own fence
         for here, applies in fence_groups(t):  # each fence's own bounds ([[tier.override]])
-            found = _bounds(areas, t.name, tl, members, tier_bounds(here, areas.count_names))
+            found = _bounds(areas.in_tier(t.name), t.name, tl, members, tier_bounds(here, areas.count_names))
             violations += [v for v in found if applies(v.fences)]
 
     kinds = {a: attribute_kind(areas, a, attribute_kinds) for a in areas.attr_names}
     zones, summaries, outliers = {}, {}, []
     for k, t in enumerate(tiers):
         upper = encoded[tiers[k + 1].name] if k + 1 < len(tiers) else None
-        frame = _zone_measures(areas, graph, t, encoded[t.name], upper, parts[t.name], kinds)
+        frame = _zone_measures(areas.in_tier(t.name), graph, t, encoded[t.name], upper, parts[t.name], kinds)
         zones[t.name] = frame
         summaries[t.name] = _tier_summary(areas, t, encoded[t.name], kinds, frame)
         outliers += _outliers(t, frame, areas.count_names)
