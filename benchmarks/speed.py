@@ -13,7 +13,7 @@ objective); and applies the move when it improves (fewer breaks, or as many and 
 objective). All three make the same decisions and end on the same labelling; the run
 checks that.
 
-- compiled: a small njit driver calling the engine's kernels (`search.kernels`:
+- compiled: a small njit driver calling the engine's kernels (`search.moves` and `search.kernels`:
   unit_links, donor_ok, move_values, apply_move, better) on the engine's `ZoneState`;
 - plain Python: the same algorithm with lists and dicts, incremental per-zone sums, and
   a breadth-first connectivity test, no numba and no numpy in the loop;
@@ -42,6 +42,7 @@ from benchmarks.common import Clock, code_snapshot, frame_problem, md_table, wri
 from zonedesign import measures
 from zonedesign.records import Problem
 from zonedesign.search import kernels as K
+from zonedesign.search import moves as KM
 
 NAME = "speed"
 TITLE = "speed (compiled move loop vs plain Python vs naive AZP)"
@@ -113,7 +114,7 @@ def compiled_moves(st, moves, outcome):
         if a == b:
             outcome[t] = 0
             continue
-        la, nda, nt = K.unit_links(st, i, a)
+        la, nda, nt = KM.unit_links(st, i, a)
         lb = -1.0
         for q in range(nt):
             if st.ztouch[q] == b:
@@ -121,14 +122,14 @@ def compiled_moves(st, moves, outcome):
         if lb < 0.0:
             outcome[t] = 0
             continue
-        if not K.donor_ok(st, i):
+        if not KM.donor_ok(st, i):
             outcome[t] = 1
             continue
-        ca, ba, cb, bb = K.move_values(st, i, a, b, la, lb)
+        ca, ba, cb, bb = KM.move_values(st, i, a, b, la, lb)
         db = (ba + bb) - (st.brk[a] + st.brk[b])
         do = (ca + cb) - (st.cost[a] + st.cost[b])
         if K.better(db, do):
-            K.apply_move(st, i, b, la, lb)
+            KM.apply_move(st, i, b, la, lb)
             outcome[t] = 3
             applied += 1
         else:

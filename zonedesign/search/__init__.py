@@ -4,11 +4,14 @@
 compiled kernels work on.
 """
 
-from zonedesign.search import anneal, azp, construct, kernels, mergesplit, tabu
-from zonedesign.search.cachestamp import drop_stale_caches
+import importlib
+import pkgutil
 
-# before anything compiles: cached code of a changed kernel module must not be reused
-drop_stale_caches([kernels, construct, azp, anneal, tabu, mergesplit])
+from zonedesign.search.cachestamp import compiled_modules, drop_stale_caches
+
+# before anything compiles: cached code of a changed kernel module must not be reused;
+# every module of the package that holds compiled functions is found, none listed by hand
+drop_stale_caches(compiled_modules([importlib.import_module(f"{__name__}.{m.name}") for m in pkgutil.iter_modules(__path__)]))
 
 from zonedesign.search.engine import Solution, solve  # noqa: E402
 from zonedesign.search.state import ZoneState  # noqa: E402

@@ -19,10 +19,12 @@ from zonedesign.search.kernels import (
     FV_BRK,
     FV_TOTAL,
     IV_NB,
-    apply_move,
-    donor_ok,
     inner,
     key_less,
+)
+from zonedesign.search.moves import (
+    apply_move,
+    donor_ok,
     move_values,
     unit_links,
 )

@@ -14,12 +14,16 @@ from numba import njit
 from zonedesign.search.kernels import (
     IV_NB,
     IV_STAMP,
-    apply_move,
     better,
-    dist_to_zone,
-    donor_ok,
     key_less,
+)
+from zonedesign.search.moves import (
+    apply_move,
+    donor_ok,
     unit_links,
+)
+from zonedesign.search.valuation import (
+    dist_to_zone,
     value_with,
 )
 

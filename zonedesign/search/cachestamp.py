@@ -18,6 +18,12 @@ import numba
 STAMP = "zonedesign-search.stamp"
 
 
+def compiled_modules(modules: list[ModuleType]) -> list[ModuleType]:
+    """The modules that define functions numba caches, in a fixed (name) order."""
+    own = [m for m in modules if any(getattr(obj, "_cache", None) is not None and getattr(obj, "__module__", None) == m.__name__ for obj in vars(m).values())]
+    return sorted(own, key=lambda m: m.__name__)
+
+
 def cache_dirs(modules: list[ModuleType]) -> set[Path]:
     """The folders numba caches the modules' compiled functions in."""
     out = set()

@@ -18,11 +18,15 @@ from numba import njit
 
 from zonedesign.search.kernels import (
     IV_ZSTAMP,
-    apply_move,
-    dist_to_zone,
     key_less,
     pop_free,
+)
+from zonedesign.search.moves import (
+    apply_move,
     unit_links,
+)
+from zonedesign.search.valuation import (
+    dist_to_zone,
     value_with,
 )
 

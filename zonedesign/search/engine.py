@@ -53,6 +53,7 @@ from zonedesign.measures import Score
 from zonedesign.records import Problem
 from zonedesign.rules import METHODS, SearchRules
 from zonedesign.search import kernels as K
+from zonedesign.search import moves as KM
 from zonedesign.search.anneal import (
     CT_ACCEPTED,
     CT_CHANGED,
@@ -68,13 +69,11 @@ from zonedesign.search.construct import absorb_enclaves, grow_zones
 from zonedesign.search.mergesplit import (
     FAR_ABOVE_TARGET,
     N_TREES,
-    best_merge,
     merge_pass,
-    merge_zones,
     split_pass,
-    try_split,
 )
 from zonedesign.search.multilevel import coarsen, uses_multilevel
+from zonedesign.search.reshape import MOVES, growth_weights, reshape
 from zonedesign.search.schedule import fence_schedule
 from zonedesign.search.state import ZoneState, full_score, search_normalisers
 from zonedesign.search.tabu import tabu_block
@@ -90,9 +89,6 @@ TABU_NO_IMPROVE = 1  # x n, when search_rules.max_no_improve is 0
 TABU_MAX_ITER = 5  # x max_no_improve
 TABU_SAMPLE = 48  # boundary units priced per iteration once there are more
 BLOCK = 256  # tabu iterations per compiled call (time checks between calls)
-RESHAPE_TRIES = 0.2  # x n forced merges / splits / regrowths with repair (at least MIN_WORK)
-REGROW_NEIGHBOURS = 3  # zones dissolved with the chosen one in a regrowth
-REGROW_AIM = (0.6, 1.4)  # regrown zones aim at a random share of the target in this range
 MIN_WORK = 200  # floor of the per-unit budgets, for tiny problems
 
 
@@ -165,6 +161,8 @@ def solve(
     rules = search_rules if search_rules is not None else SearchRules()
     if not time_limit > 0:
         raise InputError(f"time limit must be positive, got {time_limit}", where="search.time_limit_fence")
+    # compile first: a first compile must not eat the restarts' share of the time limit
+    compile_seconds = warm_up()
     t0 = time.perf_counter()
     levels = []
     if start is None and uses_multilevel(problem.n, rules.method if method is None else method, multilevel):
@@ -174,6 +172,8 @@ def solve(
     else:
         best = _solve_restarts(problem, None, rules, seed, time_limit, start, anchors, method)
     plan = fence_schedule(rules, problem.n)
+    if compile_seconds:
+        best.info["compile_seconds"] = compile_seconds
     best.info["path"] = "multilevel" if levels else "flat"
     best.info["levels"] = [problem.n, *(lv.problem.n for lv in levels)]
     best.info["effort"] = rules.effort
@@ -307,7 +307,7 @@ def solve_once(
         _tabu(run)
         _improve(run)
     if method != "descent" and not run.out_of_time():
-        _reshape(run)
+        reshape(run)
         _improve(run)
 
     labels, zone_anchors = state.compact()
@@ -357,7 +357,7 @@ def warm_up() -> float:
     grow_zones(st, 1, 1.0, 1.0, labels, everyone, 0, 1.0, 1.0)
     state.load(labels)
     absorb_enclaves(st, 1)
-    K.relabel(st, everyone, np.array([0, 0, 1, 1]), zones.anchor.copy(), everyone[:0])
+    KM.relabel(st, everyone, np.array([0, 0, 1, 1]), zones.anchor.copy(), everyone[:0])
     state.load(np.array([0, 0, 1, 1]))
     stats = np.zeros(2, dtype=np.int64)
     descent_sweep(st, 1, np.empty(4, dtype=np.int64), stats)
@@ -366,15 +366,12 @@ def warm_up() -> float:
     sample_uphill(st, 1, 1)
     anneal_block(st, 1, 1.0, 1, best, log, ctl, cti)
     tabu_block(st, 1, 0, 1, 4, 1, 1, np.full(4, -1, dtype=np.int64), np.zeros(4, dtype=np.int64), best, log, ctl, cti)
-    b, _, _, anc = best_merge(st, 0, 0, 0)
-    if b >= 0:
-        merge_zones(st, 0, int(b), int(anc))
-    try_split(st, int(zones.labels[0]), 1, np.empty(4, dtype=np.int64), 1)
+    for move in MOVES:
+        state.load(np.array([0, 0, 1, 1]))
+        move.warm(state)
     K.exact_totals(st)
     state.load(np.array([0, 0, 1, 1]))
-    K.donor_ok(st, 1)
-    K.unit_links(st, 1, 0)
-    K.move_unit(st, 1, 1)
+    KM.unit_links(st, 1, 0)
     K.pair_total(np.zeros((2, 1)))
     K.seed_rng(1)
     _WARM = True
@@ -446,9 +443,7 @@ def _construct(run: _Run, rounds: int) -> tuple[np.ndarray, int]:
     """Best of `rounds` region growings by (breaks, total); returns (labels, tried)."""
     state = run.state
     st = state.st
-    tw = state.problem.term_weights
-    alpha = 1.0 if tw.get("homogeneity", 0.0) > 0 else 0.0
-    beta = 1.0 if tw.get("compactness", 0.0) > 0 or alpha == 0.0 else 0.0
+    alpha, beta = growth_weights(state)
     n = state.problem.n
     labels = np.empty(n, dtype=np.int64)
     everyone = np.arange(n, dtype=np.int64)
@@ -583,103 +578,3 @@ def _tabu(run: _Run) -> None:
         )
     run.info["tabu_iterations"] = int(cti[CT_ACCEPTED])
     _back_to_best(run, best, cti)
-
-
-def _reshape(run: _Run) -> None:
-    """Forced merges, splits and regrowths, each repaired by a local descent, kept if better.
-
-    A single move never changes the number of zones, and a merge, split or exchange of
-    units that only pays once a few units have moved is never taken by the improving
-    passes. Here a random zone is cut at its best tree cut, or merged with its best partner
-    whatever the price, or dissolved with some of its neighbours and grown again towards
-    random aims around the target, or loses one edge unit to a neighbour even if a bound
-    breaks; the neighbourhood is brought back to a local optimum and the result is kept
-    when it beats the labelling before the change (breaks first); otherwise that labelling
-    is restored.
-    """
-    state = run.state
-    st, zones = state.st, state.zones
-    n = state.problem.n
-    tries = max(MIN_WORK, int(RESHAPE_TRIES * n))
-    loc = np.empty(n, dtype=np.int64)
-    stats = np.zeros(2, dtype=np.int64)
-    g = state.problem.graph
-    kept = 0
-    for _ in range(tries):
-        if run.out_of_time():
-            break
-        live = np.flatnonzero(zones.size > 0)
-        a = int(live[run.rng.integers(live.size)])
-        before = state.running_key()
-        labels, anchors = zones.labels.copy(), zones.anchor.copy()
-        kind = run.rng.integers(4)
-        if kind == 3:
-            # a forced move (a break allowed), which the repair may turn into a swap
-            edge = np.flatnonzero((labels == a) & (zones.bpos >= 0))
-            if edge.size == 0:
-                continue
-            u = int(edge[run.rng.integers(edge.size)])
-            if not K.donor_ok(st, u):
-                continue
-            others = state.neighbour_zones(u)
-            b = int(others[run.rng.integers(others.size)])
-            K.move_unit(st, u, b)
-            touched = np.array([a, b], dtype=np.int64)
-        elif kind == 0 and zones.size[a] >= 2:
-            K.seed_rng(run.seed())
-            new = int(try_split(st, a, N_TREES, loc, 1))
-            touched = np.array([a, new], dtype=np.int64)
-        elif kind == 1:
-            b, _, _, anc = best_merge(st, a, 0, 0)
-            if b < 0:
-                continue
-            merge_zones(st, a, int(b), int(anc))
-            touched = np.array([a], dtype=np.int64)
-        else:
-            touched = _regrow(run, g, labels, anchors, a)
-            if touched is None:
-                continue
-        local_descent(st, run.seed(), touched, stats)
-        after = state.running_key()
-        if K.is_less(after[0], after[1], before[0], before[1]):
-            kept += 1
-        else:
-            state.restore(labels, anchors)
-    run.info["moves_tried"] += int(stats[0])
-    run.info["moves_accepted"] += int(stats[1])
-    run.info["reshapes"] = kept
-
-
-def _regrow(run: _Run, g, labels: np.ndarray, anchors: np.ndarray, a: int) -> np.ndarray | None:
-    """Dissolve zone a and up to REGROW_NEIGHBOURS neighbours and grow them again.
-
-    Returns the slots of the zones grown.
-    """
-    state = run.state
-    n = labels.shape[0]
-    members = np.flatnonzero(labels == a)
-    rows = np.concatenate([g.indices[g.indptr[u] : g.indptr[u + 1]] for u in members])
-    near = np.unique(labels[rows])
-    near = near[near != a]
-    if near.size > REGROW_NEIGHBOURS:
-        near = run.rng.choice(near, REGROW_NEIGHBOURS, replace=False)
-    old = np.concatenate([[a], near]).astype(np.int64)
-    region = np.flatnonzero(np.isin(labels, old))
-    work = labels.copy()
-    work[region] = -1
-    tw = state.problem.term_weights
-    alpha = 1.0 if tw.get("homogeneity", 0.0) > 0 else 0.0
-    beta = 1.0 if tw.get("compactness", 0.0) > 0 or alpha == 0.0 else 0.0
-    made = int(grow_zones(state.st, run.seed(), alpha, beta, work, region, n, REGROW_AIM[0], REGROW_AIM[1]))
-    if made == 0:
-        return None
-    # new zones take the dissolved zones' slots, then free ones; they are new zones for
-    # stability (anchor -1)
-    slots = np.concatenate([old, np.flatnonzero(state.zones.size == 0)])[:made]
-    grown = work >= n
-    work[grown] = slots[work[grown] - n]
-    new_anchors = anchors.copy()
-    new_anchors[slots] = -1
-    K.relabel(state.st, region, work, new_anchors, slots)
-    absorb_enclaves(state.st, run.seed())
-    return slots

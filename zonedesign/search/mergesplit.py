@@ -29,9 +29,11 @@ from zonedesign.search.kernels import (
     link,
     pop_free,
     push_free,
+    seed_rng,
+)
+from zonedesign.search.valuation import (
     recompute_zone,
     refresh_zone_boundary,
-    seed_rng,
     zone_value,
 )
 

@@ -15,6 +15,7 @@ from zonedesign.measures import TERMS, Score
 from zonedesign.records import Problem
 from zonedesign.search import kernels as K
 from zonedesign.search import mergesplit as MS
+from zonedesign.search import moves as KM
 
 # above this many units measures' dense pairwise matrices get too large; the search
 # computes the pairwise normaliser and final term itself (same definition, summed by pairs)
@@ -107,7 +108,7 @@ class ZoneState:
         """Set the labelling (slots, -1 for unassigned) and the anchor of each slot."""
         labels = np.ascontiguousarray(labels, dtype=np.int64)
         anchors = np.zeros(0, dtype=np.int64) if anchors is None else np.ascontiguousarray(anchors, dtype=np.int64)
-        K.build_state(self.st, labels, anchors)
+        KM.build_state(self.st, labels, anchors)
 
     def restore(self, labels: np.ndarray, anchors: np.ndarray) -> None:
         """Go back to an earlier labelling (slots) and anchors, touching only what changed."""
@@ -116,7 +117,7 @@ class ZoneState:
         changed = np.flatnonzero(self.zones.labels != labels)
         # a zone may have kept its members but not its anchor
         moved_anchor = np.flatnonzero(self.zones.anchor != anchors)
-        K.relabel(self.st, changed, labels, anchors, moved_anchor)
+        KM.relabel(self.st, changed, labels, anchors, moved_anchor)
 
     def resync(self) -> None:
         """Recompute every zone's sums from its members (drops float drift)."""
@@ -156,20 +157,20 @@ class ZoneState:
 
     def can_move(self, i: int) -> bool:
         """Taking unit i out of its zone leaves that zone non-empty and connected."""
-        return bool(K.donor_ok(self.st, int(i)))
+        return bool(KM.donor_ok(self.st, int(i)))
 
     def neighbour_zones(self, i: int) -> np.ndarray:
         """Zones other than i's own that hold a neighbour of i."""
-        _, _, nt = K.unit_links(self.st, int(i), int(self.zones.labels[i]))
+        _, _, nt = KM.unit_links(self.st, int(i), int(self.zones.labels[i]))
         return np.sort(self.zones.ztouch[:nt].copy())
 
     def move_delta(self, i: int, b: int) -> tuple[float, float]:
         """(break change, objective change) of moving unit i into zone b."""
-        db, do = K.move_delta(self.st, int(i), int(b))
+        db, do = KM.move_delta(self.st, int(i), int(b))
         return float(db), float(do)
 
     def move(self, i: int, b: int) -> None:
-        K.move_unit(self.st, int(i), int(b))
+        KM.move_unit(self.st, int(i), int(b))
 
     # ------------------------------------------------------------ merges and splits
 

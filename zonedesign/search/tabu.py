@@ -25,11 +25,15 @@ from zonedesign.search.kernels import (
     FV_BRK,
     FV_TOTAL,
     IV_NB,
-    apply_move,
-    dist_to_zone,
-    donor_ok,
     key_less,
+)
+from zonedesign.search.moves import (
+    apply_move,
+    donor_ok,
     unit_links,
+)
+from zonedesign.search.valuation import (
+    dist_to_zone,
     value_with,
 )
 
