@@ -87,13 +87,15 @@ def test_the_repaired_hierarchy_is_a_full_output_that_the_report_and_show_descri
     from zonedesign.show import show
 
     areas, rules, broken = _broken_lookup(tmp_path)
-    res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, certify=False)
+    renamed = tmp_path / "renamed.csv"
+    pd.read_csv(broken, dtype=str).rename(columns={"area": "tract_code"}).to_csv(renamed, index=False)
+    res = api.audit(areas, rules, tmp_path / "audit", lookup=renamed, repair=True, certify=False)
     out = tmp_path / "audit"
     folder = out / "repaired"
     for name in ("lookup.csv", "zones.gpkg", "changes.csv", "area_changes.csv", "report.html"):
         assert (folder / name).is_file(), name
-    # the id column keeps the input lookup's name: the design wrote "area"
-    assert (folder / "lookup.csv").read_text().splitlines()[0].split(",")[0] == "area"
+    # the id column keeps the input lookup's own name
+    assert (folder / "lookup.csv").read_text().splitlines()[0].split(",")[0] == "tract_code"
     # an audit writes the audited hierarchy's zones too, one layer per tier (pyogrio lists them)
     tiers = res.summary["tier_order"]
     assert [name for name, _ in pyogrio.list_layers(out / "zones.gpkg")] == tiers
@@ -111,12 +113,3 @@ def test_the_repaired_hierarchy_is_a_full_output_that_the_report_and_show_descri
     line = [x for x in show(out).splitlines() if x.strip().startswith("repair:")]
     assert len(line) == 1 and str(repair["moves"]) in line[0]
 
-
-def test_a_lookup_whose_id_column_has_its_own_name_keeps_it_in_the_repair(tmp_path):
-    areas, rules, broken = _broken_lookup(tmp_path)
-    frame = pd.read_csv(broken, dtype=str).rename(columns={"area": "tract_code"})
-    renamed = tmp_path / "renamed.csv"
-    frame.to_csv(renamed, index=False)
-    api.audit(areas, rules, tmp_path / "audit", lookup=renamed, repair=True, report=False, certify=False)
-    header = (tmp_path / "audit" / "repaired" / "lookup.csv").read_text().splitlines()[0]
-    assert header.split(",")[0] == "tract_code"

@@ -169,3 +169,17 @@ def test_a_zone_locked_by_agreement_gives_locked_as_its_reason():
                            locked={"tier1": {"L"}})
     reasons = dict(zip(changes["new_code"], changes["reason"]))
     assert reasons == {"L": "locked", "Z": "meets every bound; unchanged"}
+
+
+def test_previous_counts_that_lack_a_column_or_a_number_are_refused_naming_file_column_and_row(tmp_path):
+    from zonedesign.errors import InputError
+    from zonedesign.redraw_output import read_counts_table
+
+    path = tmp_path / "published.csv"
+    path.write_text("code,persons\nA1,10\nA2,x\n")
+    with pytest.raises(InputError, match=r"published\.csv: previous counts lack column\(s\) households"):
+        read_counts_table(path, "code", ("persons", "households"))
+    with pytest.raises(InputError, match=r"published\.csv: column persons, row 'A2': 'x' is not a number"):
+        read_counts_table(path, "code", ("persons",))
+    path.write_text("code,persons\nA1,10\nA2,12.5\n")
+    assert read_counts_table(path, "code", ("persons",))["persons"].to_dict() == {"A1": 10.0, "A2": 12.5}

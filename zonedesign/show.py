@@ -68,6 +68,8 @@ def show(folder: str | Path) -> str:
                 f"  changed in tier {name}: {c['share_changed']:.1%} of previous zones "
                 f"({c.get('kept', '?')} of {c.get('previous_zones', '?')} kept), "
                 f"{c.get('areas_moved', '?')} areas moved"
+                + (f", {c['codes_retired']} code(s) retired" if c.get("codes_retired") else "")
+                + (f" (codes: {c['code_policy']})" if c.get("code_policy") else "")
             )
     lines += _sweep_lines(s)
     lines += _repair_line(s)
