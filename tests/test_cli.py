@@ -342,3 +342,15 @@ def test_help_and_readme_define_the_same_words(capsys) -> None:
 def test_crs_help_names_the_demo_region_s_own_utm_zone(capsys) -> None:
     ran = run_cli(capsys, "design", "--help")
     assert ran.code == 0 and "e.g. EPSG:32631" in " ".join(ran.out.split())
+
+
+def test_developers_guide_lists_every_exit_code_and_the_status_words() -> None:
+    from zonedesign.status import CERTIFICATE_WORDS, SOLVE_WORDS
+
+    guide = (README.parent / "DEVELOPERS.md").read_text(encoding="utf-8")
+    codes = guide.split("## Exit codes", 1)[1].split("\n## ", 1)[0]
+    for code in ("0 ok", "1 ran", "2 bad input", "3 an internal error", "130 / 143 interrupted"):
+        assert code in " ".join(codes.split()), code
+    readme = README.read_text(encoding="utf-8").split("## Status words", 1)[1].split("\n## ", 1)[0]
+    for word in (*CERTIFICATE_WORDS, *SOLVE_WORDS):
+        assert f"`{word}`" in readme and f"`{word}`" in guide, word

@@ -375,7 +375,7 @@ def test_usage_errors_are_one_line_too(capsys, tmp_path: Path) -> None:
     refused(run_cli(capsys, "design", "a.gpkg", "--rules", "r.toml", "--out", "o", "--workers", "0"),
             r"argument --workers: must be at least 1, not 0")
     refused(run_cli(capsys, "demo", "--out", tmp_path / "d", "--areas", "300"),
-            r"argument --areas: the demo region needs at least 500 areas, not 300")
+            r"argument --areas: the demo region needs at least 1500 areas, not 300")
     refused(run_cli(capsys, "frobnicate"), r"invalid choice: 'frobnicate'")
     refused(run_cli(capsys), r"^zonedesign: error: a command is needed: design, redraw, audit, sweep, demo, rules or show")
     refused(run_cli(capsys, "rules"), r"^zonedesign: error: rules needs an action: init or check")

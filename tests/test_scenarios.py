@@ -192,11 +192,22 @@ _PUBLISHED = {(40, 250), (100, 625), (400, 1200), (1000, 3000), (2000, 6000), (5
 _REAL_TYPE_NAMES = {"block", "ward", "sector", "quarter", "tract", "district", "output area", "county"}
 
 
+_PUBLISHED_VALUES = {
+    "households": {40, 250, 125, 400, 1200, 2000, 6000},
+    "persons": {100, 625, 1000, 3000, 5000, 15000},
+}
+
+
 def test_demo_rules_are_our_own_not_a_published_table():
     for t in _demo_tiers():
         assert t["name"] not in _REAL_TYPE_NAMES
         for count in ("households", "persons"):
             assert (t["min"][count], t["max"][count]) not in _PUBLISHED
+        # no single floor, ceiling or target of that table either, overrides included
+        for table in [t, *t.get("override", [])]:
+            for key in ("min", "max", "target"):
+                for count, value in table.get(key, {}).items():
+                    assert value not in _PUBLISHED_VALUES[count], (t["name"], key, count, value)
 
 
 def test_demo_input_is_byte_identical_for_a_seed(tmp_path):

@@ -15,11 +15,9 @@ from pathlib import Path
 from typing import NoReturn
 
 from zonedesign import __version__
+from zonedesign.demo import MIN_AREAS as DEMO_MIN_AREAS
 from zonedesign.errors import InputError
 from zonedesign.glossary import glossary_text
-
-# the demo region's layout needs this many areas at least (zonedesign.scenarios.demo_region)
-DEMO_MIN_AREAS = 500
 
 EXAMPLES = {
     "design": """\
@@ -134,7 +132,10 @@ def _parser() -> argparse.ArgumentParser:
         sp.add_argument("--crs", help="CRS of a file that carries none, e.g. EPSG:32631 (the demo region's UTM zone 31N)")
 
     def executor(sp: argparse.ArgumentParser) -> None:
-        sp.add_argument("--executor", choices=["local", "dask"], default="local")
+        sp.add_argument(
+            "--executor", choices=["local", "dask"], default="local",
+            help="where fences are solved: local worker processes, or a dask cluster (default local)",
+        )
         sp.add_argument("--workers", type=_positive_int, default=1, help="worker processes (default 1)")
         sp.add_argument("--scheduler", help="address of a running dask scheduler")
         sp.add_argument(
@@ -191,8 +192,14 @@ def _parser() -> argparse.ArgumentParser:
     executor(s)
 
     m = sp_("demo", "run the main job on the built-in invented demo region")
-    m.add_argument("--scenario", choices=["base", "later"], default="base")
-    m.add_argument("--seed", type=int, default=7, help="seed of the demo region")
+    m.add_argument(
+        "--scenario", choices=["base", "later"], default="base",
+        help="base: design the region; later: design it, redraw it on counts ten years on, audit the redraw",
+    )
+    m.add_argument(
+        "--seed", type=int, default=7,
+        help="seed of the invented region (its map and counts); the search seed is in OUT/input/rules.toml",
+    )
     m.add_argument(
         "--areas", type=_demo_areas, default=5000,
         help=f"number of base areas (at least {DEMO_MIN_AREAS}; default 5000)",
@@ -209,8 +216,8 @@ def _parser() -> argparse.ArgumentParser:
         epilog=textwrap.dedent(EXAMPLES["rules"]),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    ri.add_argument("areas", type=Path)
-    ri.add_argument("--layer")
+    ri.add_argument("areas", type=Path, help="areas file to start from (GeoPackage, GeoJSON, Shapefile, GeoParquet)")
+    ri.add_argument("--layer", help="layer name in a GeoPackage with several layers")
     rc = rsub.add_parser(
         "check",
         help="validate a rules file (against a data file when given)",
@@ -219,14 +226,14 @@ def _parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     rc.add_argument("rules", type=Path)
-    rc.add_argument("areas", type=Path, nargs="?")
-    rc.add_argument("--layer")
+    rc.add_argument("areas", type=Path, nargs="?", help="areas file whose columns the rules must name (optional)")
+    rc.add_argument("--layer", help="layer name in a GeoPackage with several layers")
     for x in (ri, rc):
         x.add_argument("--debug", action="store_true", help="show the traceback behind an error")
     rl.add_argument("--debug", action="store_true", help="show the traceback behind an error")
 
     sh = sp_("show", "print a terminal summary of an output folder")
-    sh.add_argument("folder", type=Path)
+    sh.add_argument("folder", type=Path, help="an output folder of design, redraw, audit, sweep or demo")
     sh.add_argument("--debug", action="store_true", help="show the traceback behind an error")
     return p
 

@@ -64,21 +64,21 @@ weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 20.0 }
 # stretch across empty country to reach it
 [[tier.override]]
 fences = ["D02", "D08"]
-min = { households = 40, persons = 100 }
+min = { households = 45, persons = 110 }
 target = { households = 120 }
 
 [[tier]]
 name = "medium"
-min = { households = 400, persons = 1000 }
-max = { households = 2200, persons = 5500 }
-target = { households = 1000 }
+min = { households = 450, persons = 1100 }
+max = { households = 2500, persons = 6000 }
+target = { households = 1100 }
 weights = { size = 1.0, homogeneity = 1.0, compactness = 1.0, stability = 20.0 }
 
 [[tier]]
 name = "large"
-min = { households = 2000, persons = 4800 }
-max = { households = 11000, persons = 27000 }
-target = { households = 4500 }
+min = { households = 2200, persons = 5400 }
+max = { households = 12000, persons = 30000 }
+target = { households = 5000 }
 weights = { size = 1.0, homogeneity = 0.5, compactness = 1.0, stability = 20.0 }
 
 [search]
