@@ -53,8 +53,10 @@ def kill_at(proc: subprocess.Popen, seconds: float, sig: int) -> bool:
 def test_a_killed_run_leaves_the_previous_output_or_none(tmp_path: Path) -> None:
     areas, rules = write_inputs(tmp_path / "in")
     target = tmp_path / "out"
-    # with the certificate: its CP-SAT solves reset the system's SIGINT action, which the
-    # command line must re-arm to stop cleanly on Ctrl-C
+    # with the certificate: CP-SAT catches Ctrl-C during a solve (OR-Tools SatParameters
+    # catch_sigint_signal, default true, ortools/sat/sat_parameters.proto); that the handler
+    # in place before is not put back afterwards was observed with ortools 9.15 and is not
+    # documented, so verify.solving.solve_model restores it and this run must stop cleanly
     args = ("design", areas, "--rules", rules, "--out", target, "--quiet", "--no-report")
     rng = random.Random(SEED)
 

@@ -58,7 +58,8 @@ def test_ny8_rook_pairs_are_the_pairs_sharing_boundary_length(ny8):
     reference = {p for p, s in ny8["touching"].items() if s > 0}
     # shapely: pairs whose boundaries intersect along a positive length (reference library)
     assert set(rook) == reference
-    # r-cran-spdata NY8_utm18.shp: 764 rook pairs (design notes, from trial runs)
+    # regression value: 764 unordered pairs of NY8_utm18.shp tracts (r-cran-spdata) that
+    # share boundary length, counted by this rook graph and equal to the shapely set above
     assert len(rook) == 764
 
 
@@ -68,7 +69,8 @@ def test_ny8_queen_adds_the_point_contacts(ny8):
     rook = edge_dict(rook_graph(ny8["geoms"]))
     # shapely intersects: every pair of tracts that meet at all (reference library)
     assert set(queen) == set(ny8["touching"])
-    # r-cran-spdata NY8_utm18.shp: 48 point-only contacts (design notes, from trial runs)
+    # regression value: 48 unordered tract pairs of NY8_utm18.shp (r-cran-spdata) that meet
+    # at points only, counted as queen pairs minus rook pairs (shapely agrees on both sets)
     point_only = set(queen) - set(rook)
     assert len(point_only) == 48
     assert all(queen[p] == 0.0 and ny8["touching"][p] == 0.0 for p in point_only)

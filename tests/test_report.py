@@ -102,7 +102,7 @@ def test_document_is_accessible(small):
     _, _, page = small
     assert page.html_lang == "en"
     assert page.headings[0] == 1 and page.headings.count(1) == 1
-    # headings never skip a level on the way down (common practice: WCAG 1.3.1)
+    # headings never skip a level on the way down (common practice)
     assert all(b <= a + 1 for a, b in zip(page.headings, page.headings[1:]))
     assert page.tables
     for t in page.tables:

@@ -100,5 +100,5 @@ def test_engine_reaches_the_brute_force_optimum(shape, seed, lo_share, hi_share)
     assert abs(measures.score(problem, labels).total - tot) <= 1e-9 * max(1.0, abs(tot))
     best = engine_best(problem)
     assert best.score.breaks == 0.0
-    # exact agreement with the enumeration (Duque, Church & Middleton 2011 style exact check)
+    # exact agreement with the test's own enumeration of every partition
     assert abs(best.score.total - tot) <= 1e-9 * max(1.0, abs(tot)), (best.score.total, tot)

@@ -375,7 +375,9 @@ def test_intra_area_correlation_check_value():
     areas = _trait_areas([2, 5, 8], "owners")
     one_zone = audit(areas, graph, {"zone": np.array(["Z"] * 3, dtype=object)}, [TierRules("zone")])
     three = audit(areas, graph, {"zone": np.array(["P", "Q", "R"], dtype=object)}, [TierRules("zone")])
-    # Tranmer & Steel 1998: three areas of 10 households with 2, 5, 8 having a trait
+    # the estimator is Tranmer & Steel's (1998) one-way ANOVA intraclass correlation,
+    # rho = (F-1)/(F+n0-1); the worked example (three areas of 10 households with 2, 5 and 8
+    # having a trait, rho = 0.246032) is our own, checked against scipy just below
     assert one_zone.zones["zone"]["rho_owners"].iloc[0] == pytest.approx(0.246032, abs=1e-6)
     assert three.tiers["zone"]["rho"]["owners"] == pytest.approx(0.246032, abs=1e-6)
     # scipy.stats.f_oneway on the household-level 0/1 data: rho = (F-1)/(F+n0-1), n0 = 10
