@@ -11,6 +11,7 @@ import pyogrio
 from cli_support import write_inputs
 
 from zonedesign import api
+from zonedesign.report.svgmap import element_id
 from zonedesign.verify.repair import Move, RepairResult
 
 
@@ -110,6 +111,11 @@ def test_the_repaired_hierarchy_is_a_full_output_that_the_report_and_show_descri
     assert (changes.loc[changes["kind"] != "kept", "reason"] != "").all()
     html = (out / "report.html").read_text(encoding="utf-8")
     assert 'id="repair"' in html and "proven the fewest" in html and "repaired/report.html" in html
+    # the moves on a map: every audited zone the repair touches is drawn by what it does to it
+    touched = repair["zones"]
+    assert touched and all(
+        f'id="{element_id("repair", t, z)}"' in html for t, zones in touched.items() for z in zones
+    )
     line = [x for x in show(out).splitlines() if x.strip().startswith("repair:")]
     assert len(line) == 1 and str(repair["moves"]) in line[0]
 

@@ -962,14 +962,18 @@ def write_repaired(
     tables = all_tables(prep.areas, prep.graph, now, tiers)
     layers = zone_layers(prep.geometry, now, tables)
     write_layers_gpkg(folder / "zones.gpkg", layers)
+    from zonedesign.report.changelist import repair_effects
+
     changes, per_area, figures = redraw_tables(prep, prev, now, policy=prep.rules.redraw.codes)
+    if isinstance(summary.get("repair"), dict):
+        summary["repair"]["zones"] = repair_effects(changes)  # drawn in the audit's report
     changes.to_csv(folder / "changes.csv", index=False, lineterminator="\n")
     per_area.to_csv(folder / "area_changes.csv", index=False, lineterminator="\n")
     if report:
         from zonedesign.report.html import write_report
 
         inner = {**base_summary(prep, "audit --repair"), "changes": figures,
-                 "repair": {k: v for k, v in (summary.get("repair") or {}).items() if k != "folder"},
+                 "repair": {k: v for k, v in (summary.get("repair") or {}).items() if k not in ("folder", "zones")},
                  "redraw": {"code_policy": prep.rules.redraw.codes}}
         write_report(folder / "report.html", summary=inner, tables=tables, layers=layers, changes=changes)
 

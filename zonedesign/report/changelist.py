@@ -3,9 +3,13 @@ reason, and the repair's method, proof status and moves."""
 
 from __future__ import annotations
 
+from typing import Any
+
 import pandas as pd
 
 from zonedesign.report.format import esc, html_table, num
+from zonedesign.report.style import KIND_STYLE, KIND_WORDS
+from zonedesign.report.svgmap import MAP_BYTES, MAX_ZONES_PER_MAP, element_id, zone_map
 
 POLICY_WORDS = {
     "successor": (
@@ -55,8 +59,60 @@ def change_list(changes: pd.DataFrame | None) -> str:
     )
 
 
-def repair_section(summary: dict) -> str:
-    """An audit's repair: method, whether its moves are proven fewest, moves per tier."""
+def repair_effects(changes: pd.DataFrame) -> dict[str, dict[str, str]]:
+    """Per tier, what a repair does to each audited zone it touches (by code): its kind of
+    change while it keeps its code, or "retired"; zones left out are untouched."""
+    out: dict[str, dict[str, str]] = {}
+    for r in changes.to_dict("records") if changes is not None and not changes.empty else []:
+        if r["kind"] == "kept":
+            continue
+        if r["kind"] == "retired":
+            out.setdefault(str(r["tier"]), {})[str(r["old_codes"])] = "retired"
+        elif str(r["new_code"]) in str(r["old_codes"]).split(";"):
+            out.setdefault(str(r["tier"]), {})[str(r["new_code"])] = str(r["kind"])
+    return out
+
+
+def repair_maps(run: Any, effects: dict) -> str:
+    """The audited zones of each tier the repair touches, drawn by what it does to them,
+    fence by fence where it acts (the fences it leaves alone are not drawn)."""
+    out = []
+    for tier, kinds in effects.items():
+        if tier not in run.layers or not kinds:
+            continue
+        df = run.frame(tier)
+        fences = df["fence"].astype(str) if "fence" in df else pd.Series([""] * len(df))
+        touched = set(fences[df["zone"].isin(list(kinds))])
+        part = df[fences.isin(touched).to_numpy()]
+        if part.empty or len(part) > MAX_ZONES_PER_MAP:
+            continue
+        zones = part["zone"].to_numpy()
+        kind = [kinds.get(z, "kept") for z in zones]
+        classes = [f"k-{k}" if k in KIND_STYLE else "k-other" for k in kind]
+        titles = [
+            f"zone {z} · tier {tier}\n"
+            + ("retired by the repair" if k == "retired" else KIND_WORDS.get(k, k) if k != "kept" else "untouched by the repair")
+            for z, k in zip(zones, kind)
+        ]
+        drawn = zone_map(
+            part["geometry"].to_numpy(),
+            element_ids=[element_id("repair", tier, z) for z in zones],
+            classes=classes, titles=titles, data={"zone": zones, "tier": [tier] * len(zones), "change": kind},
+            fences=part["fence"].to_numpy() if "fence" in part else None,
+            label=f"Repair in tier {tier}", svg_id=f"repair-map-{tier}",
+        )
+        if len(drawn.svg) > MAP_BYTES:
+            continue
+        out.append(
+            f'<figure class="map">{drawn.svg}<figcaption>{esc(f"Tier {tier}: the audited zones the repair touches, by what it does to them (unhatched white: retired); fences it leaves alone are not drawn")}</figcaption></figure>'
+        )
+    return "".join(out)
+
+
+def repair_section(run: Any) -> str:
+    """An audit's repair: method, whether its moves are proven fewest, moves per tier, and
+    the audited zones it touches on a map."""
+    summary = run.summary
     rep = summary.get("repair") if isinstance(summary.get("repair"), dict) else None
     if not rep:
         return ""
@@ -73,6 +129,9 @@ def repair_section(summary: dict) -> str:
     if moved:
         out.append(html_table("Areas moved by the repair, per tier", ["tier", "areas moved"],
                               [[t, n] for t, n in moved.items()]))
+    effects = rep.get("zones") if isinstance(rep.get("zones"), dict) else {}
+    if effects and getattr(run, "layers", None):
+        out.append(repair_maps(run, effects))
     if rep.get("folder"):
         out.append(
             f'<p>The repaired hierarchy is a full output in <a href="{esc(rep["folder"])}/report.html">'

@@ -746,7 +746,7 @@ SECTIONS: list[tuple[str, str, Callable[[ReportPlan], str]]] = [
     ("zones", "Zones", _zones),
     ("fences", "Fences", _fences),
     ("violations", "Rule breaks", _violations),
-    ("repair", "Repair", lambda run: repair_section(run.summary)),
+    ("repair", "Repair", repair_section),
     ("certificate", "Certificate and proofs", _certificate),
     ("input", "Input", _input),
     ("rules", "Rules used", _rules),
