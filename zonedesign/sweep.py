@@ -233,10 +233,12 @@ def run_variant(task: VariantTask) -> VariantResult:
     row["problem"] = ""
     row.update(measure_row(figures, task.areas.count_names))
     if task.previous is not None:
-        from zonedesign.redraw import matched_moves
+        from zonedesign.zonecodes import moved_areas
 
         for tier in rules.tiers:
-            row[f"areas_changed_vs_previous.{tier.name}"] = matched_moves(task.previous[tier.name], lookup[tier.name])
+            # areas moved as every redraw figure counts them: areas whose zone code changed
+            moved = moved_areas(task.previous[tier.name], lookup[tier.name])
+            row[f"areas_changed_vs_previous.{tier.name}"] = int(moved.sum())
     row["bound_breaks"] = len(breaks)
     row["fences_infeasible"] = sum(1 for p in proofs if p.get("status") == "INFEASIBLE")
     row["fence_failures"] = len(failures)
