@@ -8,6 +8,7 @@ floor on households and on persons, a ceiling a few times the floor and a target
 
 from __future__ import annotations
 
+import re
 import tomllib
 from pathlib import Path
 
@@ -225,3 +226,28 @@ def test_demo_input_is_byte_identical_for_a_seed(tmp_path):
     links = pd.read_csv(first["links"])
     assert set(links["from"]) | set(links["to"]) <= set(back["code"])
     assert first["rules"].read_text(encoding="utf-8") == demo_rules_text()
+
+
+# as tier names only: a ward may well be a fence (it is one in some offices' systems)
+_OLD = "(block|ward|sector|quarter)"
+_OLD_NAMES = re.compile(
+    rf"""name = ["']{_OLD}["']|TierRules\(["']{_OLD}|tier\.{_OLD}\.|"tier": "{_OLD}"|\btiers? '?{_OLD}\b"""
+)
+_OLD_TABLE = re.compile(
+    r"\b40\s*[-–]\s*250\b|\b100\s*[-–]\s*625\b|\b400\s*[-–]\s*1,?200\b|\b1,?000\s*[-–]\s*3,?000\b|"
+    r"\b2,?000\s*[-–]\s*6,?000\b|\b5,?000\s*[-–]\s*15,?000\b|households = (40|125|250)\b|persons = 625\b"
+)
+
+
+def test_docs_code_and_benchmarks_speak_of_our_own_demo_only():
+    # the published table and the real geography type names (from memory, see above) stay
+    # in tests; the user-facing text, the code and the benchmarks use our own
+    files = [ROOT / "README.md", ROOT / "DEVELOPERS.md", *sorted((ROOT / "scenarios").iterdir()),
+             *sorted((ROOT / "zonedesign").rglob("*.py")), *sorted((ROOT / "benchmarks").glob("*.py")),
+             ROOT / "benchmarks" / "README.md", *sorted((ROOT / "benchmarks" / "results").glob("*.md"))]
+    found = []
+    for path in files:
+        for k, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
+            if _OLD_NAMES.search(line) or _OLD_TABLE.search(line):
+                found.append(f"{path.relative_to(ROOT)}:{k}: {line.strip()}")
+    assert found == []

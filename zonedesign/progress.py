@@ -66,7 +66,7 @@ class Progress:
 
     >>> say = Progress(quiet=False)
     >>> say("reading areas.gpkg")            # doctest: +SKIP
-    >>> with say.bar(4, "tier 'block'") as b:   # doctest: +SKIP
+    >>> with say.bar(4, "tier 'small'") as b:   # doctest: +SKIP
     ...     b.update()
     """
 

@@ -1032,7 +1032,7 @@ def apply_overrides(rules: Rules, items: Sequence[tuple[str, str]]) -> Rules:
 
 
 def override_key(rules: Rules, key: str) -> str:
-    """The one spelling of a sweep key: tiers by number (`tier.block.min.x` -> `tier.1.min.x`).
+    """The one spelling of a sweep key: tiers by number (`tier.small.min.x` -> `tier.1.min.x`).
 
     Raises RulesError naming the key when it names no tier, field, count column or term.
     """

@@ -2,7 +2,7 @@
 
 `--vary` items (keys of `rules.apply_overrides`, tiers counted from 1 at the bottom or named):
 
-    tier.1.min.households=30,40,50            one key, listed values
+    tier.1.min.households=45,50,60            one key, listed values
     tier.1.min.households=30:60:10            a range, both ends included: 30, 40, 50, 60
     tier.2.min.POP8,tier.2.target.POP8=20000/30000,40000/50000
                                               tied keys: values move together, one group each

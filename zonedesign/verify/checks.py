@@ -272,7 +272,7 @@ def audit(
     attribute_kinds: "count", "share" or "value" per attribute; detected when not given
         (see `attribute_kind`).
 
-    >>> result = audit(areas, graph, {"block": lookup}, [TierRules("block", min={"persons": 100})])
+    >>> result = audit(areas, graph, {"small": lookup}, [TierRules("small", min={"persons": 120})])
     >>> result.ok, result.violations_frame()
     """
     tiers = list(tiers)

@@ -49,7 +49,7 @@ def zones_from_layers(
     covers the area); each flag is a dict with kind, tier, area or zone, the zones or areas
     involved, their shares, tolerance_share and a message.
 
-    >>> labels, flags = zones_from_layers(areas.geometry, areas["code"], {"block": blocks}, "zone")
+    >>> labels, flags = zones_from_layers(areas.geometry, areas["code"], {"small": small_zones}, "zone")
     """
     if not 0 <= tolerance_share < 0.5:
         raise InputError(f"tolerance_share must be in [0, 0.5), got {tolerance_share}", where="overlay")

@@ -178,7 +178,7 @@ def prove_infeasible(
     "INFEASIBLE" when none exists, and a Proof with status "UNKNOWN" stating that the fence
     is too large to prove when the time limit ran out first.
 
-    >>> proof = prove_infeasible(problem, "D7", "block", time_limit=5)
+    >>> proof = prove_infeasible(problem, "D7", "small", time_limit=5)
     >>> proof.text if proof else "a valid zoning exists"
     """
     proof = arithmetic_proof(problem, fence, tier, unit_ids=unit_ids)
