@@ -11,10 +11,13 @@ import argparse
 import signal
 import sys
 import textwrap
+import warnings
 from pathlib import Path
 from typing import NoReturn
 
-from zonedesign import __version__
+import numpy as np
+
+from zonedesign import __version__, interrupts
 from zonedesign.demo import MIN_AREAS as DEMO_MIN_AREAS
 from zonedesign.errors import InputError
 from zonedesign.glossary import glossary_text
@@ -83,6 +86,13 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _out_folder(text: str) -> Path:
+    # an unset shell variable gives "": never read as the current folder
+    if not text.strip():
+        raise argparse.ArgumentTypeError("an empty path; name a new folder for the output")
+    return Path(text)
+
+
 def _demo_areas(text: str) -> int:
     value = _positive_int(text)
     if value < DEMO_MIN_AREAS:
@@ -99,7 +109,8 @@ def _parser() -> argparse.ArgumentParser:
             """\
             commands: design, redraw, audit, sweep, demo, rules, show
             exit codes: 0 ok, 1 ran but a rule is broken or undecided, 2 bad input or usage,
-                        3 internal error (--debug shows the traceback), 130/143 interrupted
+                        3 internal error (--debug shows the traceback),
+                        130/143 stopped by SIGINT/SIGTERM (previous output unchanged)
             status words: a certificate is confirmed, refuted or undecided; a solve (proof,
                           repair) is optimal, feasible, infeasible or undecided
 
@@ -120,7 +131,7 @@ def _parser() -> argparse.ArgumentParser:
         sp.add_argument("--debug", action="store_true", help="show the traceback behind an error")
 
     def common(sp: argparse.ArgumentParser, out_required: bool = True) -> None:
-        sp.add_argument("--out", required=out_required, type=Path, help="output folder (written atomically)")
+        sp.add_argument("--out", required=out_required, type=_out_folder, help="output folder (written atomically)")
         sp.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
         sp.add_argument("--no-report", action="store_true", help="skip report.html")
         talk(sp)
@@ -239,25 +250,35 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _error(text: str) -> None:
-    print(f"zonedesign: error: {text}", file=sys.stderr, flush=True)
+    print(f"zonedesign: error: {_one_line(text)}", file=sys.stderr, flush=True)
 
 
-def _on_sigterm(signum: int, frame: object) -> NoReturn:
-    # unwinds like Ctrl-C, so the temporary output folder is removed on the way out
-    raise SystemExit(128 + signum)
+def _one_line(text: str) -> str:
+    return " ".join(text.split()) if text else ""
 
 
-_interrupted: list[int] = []
+STOPPED = {
+    130: "zonedesign: interrupted (SIGINT); the temporary folder was removed and any previous output is unchanged",
+    143: "zonedesign: stopped (SIGTERM); the temporary folder was removed and any previous output is unchanged",
+}
 
 
-def _on_sigint(signum: int, frame: object) -> NoReturn:
-    # remembered, because a library may turn the KeyboardInterrupt into an error of its own
-    _interrupted.append(signum)
-    raise KeyboardInterrupt
+def _stopped(signum: int) -> int:
+    code = interrupts.EXIT_CODES.get(signum, 128 + signum)
+    print(STOPPED.get(code, f"zonedesign: stopped by signal {signum}"), file=sys.stderr, flush=True)
+    return code
 
 
 def main(argv: list[str] | None = None) -> int:
     """Run one command; returns the exit code (see the module docstring)."""
+    with interrupts.handling_signals():
+        try:
+            return _main(argv)
+        except interrupts.Interrupted as exc:  # landed after the last handler below
+            return _stopped(exc.signum)
+
+
+def _main(argv: list[str] | None) -> int:
     parser = _parser()
     try:
         args = parser.parse_args(argv)
@@ -267,62 +288,68 @@ def main(argv: list[str] | None = None) -> int:
         _error("a command is needed: design, redraw, audit, sweep, demo, rules or show (see zonedesign --help)")
         return 2
     debug = getattr(args, "debug", False)
-    in_main = _in_main_thread()
-    previous = signal.signal(signal.SIGTERM, _on_sigterm) if in_main else None
-    previous_int = signal.signal(signal.SIGINT, _on_sigint) if in_main else None
-    _interrupted.clear()
+    caught: list[warnings.WarningMessage] = []
     try:
         from zonedesign.memory import memory_guard
 
-        with memory_guard(getattr(args, "max_memory", None)):
-            return _run(args)
+        # numeric warnings of numpy, shapely and the rest are never printed raw: the run's
+        # own checks turn what matters into located errors; the rest is one note at the end
+        with warnings.catch_warnings(record=True) as caught, np.errstate(all="ignore"):
+            warnings.simplefilter("always")
+            with memory_guard(getattr(args, "max_memory", None)):
+                code = _run(args)
+        interrupts.check()
+        _note_warnings(caught, args)
+        return code
+    except KeyboardInterrupt as exc:
+        return _stopped(getattr(exc, "signum", interrupts.requested() or signal.SIGINT))
     except InputError as exc:
+        if interrupts.requested():
+            return _stopped(interrupts.requested())
         # one line: the first problem says what and where, and how many more there are
         if debug:
             raise
         _error(str(exc).splitlines()[0] if str(exc) else type(exc).__name__)
         return 2
-    except KeyboardInterrupt:
-        print("zonedesign: interrupted; no output folder was left half-written", file=sys.stderr)
-        return 130
-    except SystemExit as exc:
-        if exc.code == 128 + signal.SIGTERM:
-            print("zonedesign: stopped (SIGTERM); no output folder was left half-written", file=sys.stderr)
-        raise
     except MemoryError:
+        if interrupts.requested():
+            return _stopped(interrupts.requested())
         if debug:
             raise
         _error("out of memory; stopped before writing any output (try --max-memory, fewer workers or a smaller input)")
         return 2
     except OSError as exc:
+        if interrupts.requested():
+            return _stopped(interrupts.requested())
         if debug:
             raise
         where = f"{exc.filename}: " if exc.filename else ""
         _error(f"{where}{exc.strerror or exc}")
         return 2
     except Exception as exc:  # noqa: BLE001 - a bug: one line, the traceback on request
-        if _interrupted and not debug:
-            print("zonedesign: interrupted; no output folder was left half-written", file=sys.stderr)
-            return 130
+        if interrupts.requested():
+            # a signal landing in compiled code surfaces as an error of the library's own
+            return _stopped(interrupts.requested())
         if debug:
             raise
-        first = (str(exc).splitlines() or [""])[0]
+        first = _one_line((str(exc).splitlines() or [""])[0])
         print(
             f"zonedesign: internal error: {type(exc).__name__}: {first} (rerun with --debug for the traceback)",
             file=sys.stderr,
         )
         return 3
-    finally:
-        if in_main and previous is not None:
-            signal.signal(signal.SIGTERM, previous)
-        if in_main and previous_int is not None:
-            signal.signal(signal.SIGINT, previous_int)
 
 
-def _in_main_thread() -> bool:
-    import threading
-
-    return threading.current_thread() is threading.main_thread()
+def _note_warnings(caught: list[warnings.WarningMessage], args: argparse.Namespace) -> None:
+    """One note line for warnings the run's own checks did not turn into errors (not with --quiet)."""
+    if not caught or getattr(args, "quiet", False):
+        return
+    first = caught[0]
+    print(
+        f"zonedesign: note: {len(caught)} numeric warning(s) while computing, first: "
+        f"{first.category.__name__}: {_one_line(str(first.message))[:120]}",
+        file=sys.stderr,
+    )
 
 
 def _run(args: argparse.Namespace) -> int:
@@ -414,11 +441,14 @@ def _done(res, say) -> int:
     s = res.summary
     if res.out is not None:
         say(f"wrote {res.out}")
-    for f in s.get("fence_failures", []):
-        # shown even with --quiet: the run is incomplete there
+    failed = s.get("fence_failures", [])
+    if failed:
+        # shown even with --quiet, on one line: the run is incomplete there
+        f = failed[0]
+        more = f"; and {len(failed) - 1} more (see summary.json)" if len(failed) > 1 else ""
         print(
-            f"zonedesign: fence {f['fence']} of tier {f['tier']} failed: {f['error']} (its units "
-            "form one zone per connected piece; every other fence is written)",
+            f"zonedesign: fence {f['fence']} of tier {f['tier']} failed: {_one_line(str(f['error']))} (its units "
+            f"form one zone per connected piece; every other fence is written){more}",
             file=sys.stderr,
         )
     violations = [v for v in s.get("audit", {}).get("violations", []) if isinstance(v, dict)]

@@ -20,12 +20,3 @@ class InputError(ValueError):
 class RulesError(InputError):
     """A rules file that cannot be used (syntax, unknown key, wrong type, range)."""
 
-
-class FenceFailure(RuntimeError):
-    """One fence's sub-problem raised; other fences still finish."""
-
-    def __init__(self, fence: str, tier: str, error: str):
-        self.fence = fence
-        self.tier = tier
-        self.error = error
-        super().__init__(f"fence {fence!r}, tier {tier!r}: {error}")

@@ -12,9 +12,11 @@ from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor
 from typing import Any
 
+from zonedesign import interrupts
 from zonedesign.errors import InputError
 
 EXECUTORS = ("local", "dask")
+SCHEDULER_TIMEOUT = 10  # seconds to wait for a --scheduler address to answer
 
 
 def _largest_first(tasks: list[Any]) -> list[int]:
@@ -32,7 +34,12 @@ def make_executor(
     scheduler: str | None = None,
     on_done: Callable[[Any], None] | None = None,
 ) -> Callable[[list[Any]], list[Any]]:
-    """An executor: a function from a task list to the result list, in task order."""
+    """An executor: `run(tasks, fn)` gives `[fn(t) for t in tasks]`, in task order.
+
+    The caller passes its task function (design, redraw, a sweep variant). Between tasks
+    the run-wide stop flag is checked; on an interrupt the worker processes are ended at
+    once, not waited for.
+    """
     if kind not in EXECUTORS:
         raise InputError(f"--executor must be one of {', '.join(EXECUTORS)}, not {kind!r}")
     if workers < 1:
@@ -43,12 +50,11 @@ def make_executor(
 
 
 def _local_executor(workers: int, on_done: Callable[[Any], None] | None):
-    from zonedesign.hierarchy import run_task
-
-    def run(tasks: list[Any], fn: Callable[[Any], Any] = run_task) -> list[Any]:
+    def run(tasks: list[Any], fn: Callable[[Any], Any]) -> list[Any]:
         if workers == 1 or len(tasks) <= 1:
             out = []
             for t in tasks:
+                interrupts.check()
                 r = fn(t)
                 if on_done:
                     on_done(r)
@@ -57,16 +63,35 @@ def _local_executor(workers: int, on_done: Callable[[Any], None] | None):
         order = _largest_first(tasks)
         results: list[Any] = [None] * len(tasks)
         n = min(workers, len(tasks), os.cpu_count() or 1)
-        with ProcessPoolExecutor(max_workers=n) as pool:
+        # workers ignore SIGINT: the parent takes the signal and ends them
+        pool = ProcessPoolExecutor(max_workers=n, initializer=interrupts.quiet_worker)
+        try:
             futures = {pool.submit(fn, tasks[i]): i for i in order}
             for fut in _as_completed(futures):
+                interrupts.check()
                 r = fut.result()
                 results[futures[fut]] = r
                 if on_done:
                     on_done(r)
+        except BaseException:
+            _end_pool(pool)
+            raise
+        pool.shutdown(wait=True)
+        interrupts.check()
         return results
 
     return run
+
+
+def _end_pool(pool: ProcessPoolExecutor) -> None:
+    """Stop a pool without waiting for its running tasks (an interrupt, or a failed task)."""
+    processes = list(getattr(pool, "_processes", {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in processes:
+        if proc.is_alive():
+            proc.terminate()
+    for proc in processes:
+        proc.join(timeout=5)
 
 
 def _as_completed(futures):
@@ -80,7 +105,6 @@ def _dask_executor(workers: int, scheduler: str | None, on_done: Callable[[Any],
         from dask.distributed import Client, LocalCluster, as_completed
     except ImportError as exc:  # pragma: no cover - depends on the install
         raise InputError("--executor dask needs the dask extra: pip install 'zonedesign[dask]'") from exc
-    from zonedesign.hierarchy import run_task
 
     state: dict[str, Any] = {}
 
@@ -88,7 +112,13 @@ def _dask_executor(workers: int, scheduler: str | None, on_done: Callable[[Any],
         # one cluster for the whole run: starting one per tier costs seconds each time
         if "client" not in state:
             if scheduler:
-                state["client"] = Client(scheduler)
+                try:
+                    state["client"] = Client(scheduler, timeout=SCHEDULER_TIMEOUT)
+                except (OSError, TimeoutError, ValueError) as exc:
+                    raise InputError(
+                        f"--scheduler {scheduler}: no dask scheduler answered within "
+                        f"{SCHEDULER_TIMEOUT} s ({type(exc).__name__})"
+                    ) from None
             else:
                 state["cluster"] = LocalCluster(
                     n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
@@ -103,18 +133,25 @@ def _dask_executor(workers: int, scheduler: str | None, on_done: Callable[[Any],
         if "cluster" in state:
             state.pop("cluster").close()
 
-    def run(tasks: list[Any], fn: Callable[[Any], Any] = run_task) -> list[Any]:
+    def run(tasks: list[Any], fn: Callable[[Any], Any]) -> list[Any]:
+        interrupts.check()
         c = client()
         order = _largest_first(tasks)
         # each task is submitted on its own: a worker receives one fence's arrays only
         futures = [c.submit(fn, tasks[i], pure=False) for i in order]
         where = {f.key: i for f, i in zip(futures, order)}
         results: list[Any] = [None] * len(tasks)
-        for fut in as_completed(futures):
-            r = fut.result()
-            results[where[fut.key]] = r
-            if on_done:
-                on_done(r)
+        try:
+            for fut in as_completed(futures):
+                interrupts.check()
+                r = fut.result()
+                results[where[fut.key]] = r
+                if on_done:
+                    on_done(r)
+        except BaseException:
+            c.cancel(futures, force=True)
+            raise
+        interrupts.check()
         return results
 
     run.close = close  # type: ignore[attr-defined]

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from zonedesign import interrupts
 from zonedesign.graph.collapse import collapse
 from zonedesign.locks import Locks, cut_graph, unit_codes, upper_key
 from zonedesign.measures import (
@@ -212,6 +213,7 @@ def run_task(task: FenceTask) -> FenceResult:
             info=_plain(sol.info),
         )
     except Exception as exc:  # noqa: BLE001 - one fence's failure must not lose the others
+        interrupts.raise_if_fatal(exc)
         return scored_result(
             task, fallback_labels(task.problem), t0, {"traceback": traceback.format_exc(limit=5)},
             error=f"{type(exc).__name__}: {exc}",
@@ -266,7 +268,11 @@ Executor = Callable[..., list[FenceResult]]
 def serial_executor(tasks: list[FenceTask], fn: Callable[[FenceTask], FenceResult] | None = None) -> list[FenceResult]:
     """Run tasks one after another in this process (fn defaults to `run_task`)."""
     fn = fn or run_task
-    return [fn(t) for t in tasks]
+    out = []
+    for t in tasks:
+        interrupts.check()
+        out.append(fn(t))
+    return out
 
 
 # ---------------------------------------------------------------- tiers
@@ -360,7 +366,7 @@ def build_hierarchy(
                     seed=task_seed(rules.search.seed, fence, t),
                 )
             )
-        results = with_locked_fences(run(tasks), fences, spans, tier.name)
+        results = with_locked_fences(run(tasks, run_task), fences, spans, tier.name)
         result = assemble_tier(tier, units, fences, results, time.perf_counter() - t0, spans, locked)
         seconds[f"tier {tier.name}"] = result.seconds
         tiers.append(result)

@@ -22,9 +22,10 @@ import threading
 from collections.abc import Iterator
 from pathlib import Path
 
+from zonedesign import interrupts
 from zonedesign.errors import InputError
 
-_UNITS = {"": 1, "B": 1, "K": 1024, "KB": 1024, "M": 1024**2, "MB": 1024**2, "G": 1024**3, "GB": 1024**3}
+_UNITS = {"": 1, "B": 1, "K": 1024, "KB": 1024, "M": 1024**2, "MB": 1024**2, "G": 1024**3, "GB": 1024**3, "T": 1024**4, "TB": 1024**4}
 # numba/LLVM, thread stacks and allocator arenas reserve far more address space than they
 # touch: the backstop cap sits this far above the resident limit
 ADDRESS_MARGIN = 2 * 1024**3
@@ -42,14 +43,14 @@ def parse_size(text: str | int) -> int:
             raise InputError(f"--max-memory: must be positive, not {text}")
         return text
     t = str(text).strip().upper().replace("IB", "B")
-    num = t.rstrip("KMGB")
+    num = t.rstrip("KMGTB")
     unit = t[len(num):]
     try:
         value = float(num)
     except ValueError:
-        raise InputError(f"--max-memory: not a size: {text!r} (use e.g. 4GB or 512MB)") from None
+        raise InputError(f"--max-memory: not a size: {text!r} (use e.g. 4GB, 512MB or 1TB)") from None
     if unit not in _UNITS or not value > 0 or value == float("inf"):
-        raise InputError(f"--max-memory: not a size: {text!r} (use e.g. 4GB or 512MB)")
+        raise InputError(f"--max-memory: not a size: {text!r} (use e.g. 4GB, 512MB or 1TB)")
     return int(value * _UNITS[unit])
 
 
@@ -133,6 +134,8 @@ class _Watchdog(threading.Thread):
             size = resident_bytes()
             if size > self.limit:
                 self.seen = size
+                # a memory stop, not a user's interrupt: CP-SAT solves end, exit stays 2
+                interrupts.internal_stop()
                 if self.interrupt and not self.stop.is_set():
                     # runs Python's SIGINT handler in the main thread even where a library
                     # has reset the system-level SIGINT action (a real signal would kill)

@@ -35,6 +35,7 @@ import pandas as pd
 from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import connected_components
 
+from zonedesign import interrupts
 from zonedesign.hierarchy import (
     Executor,
     FenceResult,
@@ -372,7 +373,8 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
         rep = minimal_repair(
             fence_areas, p.graph, {task.tier: start}, [tier], time_limit=REPAIR_CAP, deterministic_time=REPAIR_WORK
         )
-    except Exception:  # noqa: BLE001 - the search's mend stands when the model cannot be built
+    except Exception as exc:  # noqa: BLE001 - the search's mend stands when the model cannot be built
+        interrupts.raise_if_fatal(exc)
         return searched
     info["repair_status"] = rep.status
     if not rep.ok or rep.remaining or not rep.labels:
@@ -430,6 +432,7 @@ def run_redraw_task(task: FenceTask) -> FenceResult:
     except Exception as exc:  # noqa: BLE001 - a failed fence keeps its start labelling
         import traceback
 
+        interrupts.raise_if_fatal(exc)
         return scored_result(
             task, task.start, time.perf_counter(), {"traceback": traceback.format_exc(limit=5)},
             error=f"{type(exc).__name__}: {exc}",

@@ -14,13 +14,15 @@ import os
 import re
 import secrets
 import shutil
-from collections.abc import Iterator, Mapping, Sequence
+import signal
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
 
+from zonedesign import interrupts
 from zonedesign.errors import InputError
 
 if TYPE_CHECKING:
@@ -29,49 +31,136 @@ if TYPE_CHECKING:
 _SIDE = re.compile(r"^\.(?P<name>.+)\.(?P<kind>tmp|old)-(?P<pid>\d+)-[0-9a-f]+$")
 
 
-@contextmanager
-def atomic_output(target: str | Path, *, overwrite: bool, inputs: Sequence[str | Path] = ()) -> Iterator[Path]:
-    """Yield an empty temporary folder; on success it becomes `target`, on error it vanishes.
+MARK = "summary.json"  # every zonedesign output folder holds one; nothing else is replaced
 
-    Refuses (InputError) an existing target unless `overwrite`, and any target that is an
-    input's folder or holds an input. When overwriting, the old folder is moved aside,
-    the new one renamed into place, then the old one deleted: at every moment one complete
-    folder exists. Leftovers of killed runs are cleared first (an old folder whose
-    replacement never arrived is put back).
+
+def check_target(target: str | Path, *, overwrite: bool, inputs: Sequence[str | Path] = ()) -> Path:
+    """The absolute output folder, or InputError when writing there could wipe the wrong place.
+
+    Refused: an empty path, the current folder or one above it, a file-system root, the
+    home folder, a folder that holds an input or is an input's own folder; an existing
+    folder unless `overwrite` is given and the folder is a zonedesign output (it holds
+    summary.json) or empty.
     """
-    target = Path(target).absolute()
+    if str(target) in ("", "."):
+        raise InputError("--out: the output folder is the current folder; name a new folder for the output")
+    given = str(target)
+    target = Path(target).expanduser().absolute()
     real = Path(os.path.realpath(target))
+    here = Path(os.path.realpath(Path.cwd()))
+    if real == here or real in here.parents:
+        raise InputError(f"--out {given}: the current folder or one above it; name a new folder for the output")
+    if real.parent == real:
+        raise InputError(f"--out {given}: the root of a file system; name a new folder for the output")
+    if real == Path(os.path.realpath(Path.home())):
+        raise InputError(f"--out {given}: the home folder; name a new folder for the output")
     for item in inputs:
         path = Path(os.path.realpath(Path(item).absolute()))
         if path.parent == real:
-            raise InputError(f"output folder {target} is the folder of the input {item}; writing it would replace the input")
+            raise InputError(f"--out {given}: the folder of the input {item}; writing it would replace the input")
         if path == real or real in path.parents:
-            raise InputError(f"output folder {target} holds the input {item}; writing it would replace the input")
-    if target.exists() and not target.is_dir():
-        raise InputError(f"output {target} exists and is not a folder")
-    target.parent.mkdir(parents=True, exist_ok=True)
-    sweep_leftovers(target)
-    if target.exists() and not overwrite:
-        raise InputError(f"output folder exists: {target} (use --overwrite)")
-    token = f"{os.getpid()}-{secrets.token_hex(4)}"
-    tmp = target.parent / f".{target.name}.tmp-{token}"
-    tmp.mkdir()
-    try:
-        yield tmp
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
-    if target.exists():
+            raise InputError(f"--out {given}: holds the input {item}; writing it would replace the input")
+    if target.exists() or target.is_symlink():
+        if not target.is_dir():
+            raise InputError(f"--out {given}: a file of that name exists; name a folder for the output")
+        entries = [e.name for e in target.iterdir()]
+        if entries and MARK not in entries:
+            raise InputError(
+                f"--out {given}: the folder exists and is not a zonedesign output (no {MARK}); "
+                "it is never replaced: name a new folder"
+            )
         if not overwrite:
+            raise InputError(f"--out {given}: the output folder exists (add --overwrite to replace it)")
+    parent = target.parent
+    probe = parent
+    while not probe.exists() and probe.parent != probe:
+        probe = probe.parent
+    if not probe.is_dir():
+        raise InputError(f"--out {given}: {probe} is a file, so the output folder cannot be made there")
+    if not os.access(probe, os.W_OK | os.X_OK):
+        raise InputError(f"--out {given}: the folder {probe} is not writable")
+    return target
+
+
+@contextmanager
+def atomic_output(target: str | Path, *, overwrite: bool, inputs: Sequence[str | Path] = ()) -> Iterator[Path]:
+    """Yield an empty temporary folder; on success it becomes `target`, on any error it vanishes.
+
+    The target is checked first (`check_target`). When overwriting, the old folder is
+    moved aside, the new one renamed into place, then the old one deleted: at every moment
+    one complete folder exists. The final move happens inside the cleanup: a run asked to
+    stop (the stop flag) never moves its output into place, and a move that fails removes
+    the temporary folder and names the folder the user gave. Leftovers of killed runs are
+    cleared first (an old folder whose replacement never arrived is put back).
+    """
+    target = check_target(target, overwrite=overwrite, inputs=inputs)
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        sweep_leftovers(target)
+        token = f"{os.getpid()}-{secrets.token_hex(4)}"
+        tmp = target.parent / f".{target.name}.tmp-{token}"
+        tmp.mkdir()
+    except OSError as exc:
+        raise InputError(f"cannot make the output folder {target}: {exc.strerror or exc}") from None
+    try:
+        try:
+            yield tmp
+        except OSError as exc:
+            if exc.filename is None or not str(exc.filename).startswith(str(tmp)):
+                raise
+            raise InputError(
+                f"cannot write the output folder {target}: {exc.strerror or exc} "
+                "(nothing was written; a previous output is unchanged)"
+            ) from None
+        with _signals_held() as pending:
+            interrupts.check()
+            if pending():
+                raise interrupts.Interrupted(min(pending()))
+            _move_into_place(tmp, target, overwrite, token)
+    except BaseException:
+        with _signals_held():
             shutil.rmtree(tmp, ignore_errors=True)
-            raise InputError(f"output folder exists: {target} (use --overwrite)")
-        aside = target.parent / f".{target.name}.old-{token}"
-        os.replace(target, aside)
-        os.replace(tmp, target)
-        shutil.rmtree(aside, ignore_errors=True)
-    else:
-        os.replace(tmp, target)
+        raise
     _sync_folder(target.parent)
+
+
+def _move_into_place(tmp: Path, target: Path, overwrite: bool, token: str) -> None:
+    """Rename the finished folder to `target`; an error names `target`, never the temporary path."""
+    aside = target.parent / f".{target.name}.old-{token}"
+    moved_aside = False
+    try:
+        if target.exists():
+            if not overwrite:
+                raise InputError(f"--out {target}: the output folder appeared during the run (add --overwrite to replace it)")
+            os.replace(target, aside)
+            moved_aside = True
+        os.replace(tmp, target)
+    except OSError as exc:
+        if moved_aside and not target.exists():
+            os.replace(aside, target)
+        raise InputError(
+            f"cannot put the output in place at {target}: {exc.strerror or exc} "
+            "(another run may have written it at the same moment; a previous output is unchanged)"
+        ) from None
+    if moved_aside:
+        shutil.rmtree(aside, ignore_errors=True)
+
+
+@contextmanager
+def _signals_held() -> Iterator[Callable[[], set]]:
+    """SIGINT and SIGTERM wait (in the main thread) until the renames or the cleanup are done."""
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield set
+        return
+    held = {signal.SIGINT, signal.SIGTERM}
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
+    try:
+        # a signal sent while held is pending: the caller can still refuse to commit
+        yield lambda: signal.sigpending() & held
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
 def sweep_leftovers(target: Path) -> None:

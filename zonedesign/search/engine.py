@@ -47,7 +47,7 @@ import numpy as np
 from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import connected_components
 
-from zonedesign import measures
+from zonedesign import interrupts, measures
 from zonedesign.errors import InputError
 from zonedesign.measures import Score
 from zonedesign.records import Problem
@@ -130,6 +130,8 @@ class _Run:
         return int(self.rng.integers(0, 2**31 - 1))
 
     def out_of_time(self) -> bool:
+        # the search's loops ask this between compiled blocks: the stop flag is checked here
+        interrupts.check()
         if time.perf_counter() > self.deadline:
             self.info["stopped_by_time"] = True
             return True

@@ -1,8 +1,10 @@
-"""Running a CP-SAT solve without losing the process's interrupt handler.
+"""The one wrapper around a CP-SAT solve: it honours the run-wide stop flag.
 
-OR-Tools resets SIGINT to the system default during a solve and does not put the
-process's own handler back, so Ctrl-C after any solve would kill the run before it can
-remove its temporary output folder.
+OR-Tools, left to itself, takes SIGINT during a solve, ends the search early and returns
+as if its time were up: the run would go on and write an output after a Ctrl-C. Here
+CP-SAT keeps its hands off the signals; the stop flag's watcher ends the search with
+`StopSearch`, and a solve ended that way raises `Interrupted` instead of returning a
+truncated status.
 """
 
 from __future__ import annotations
@@ -12,12 +14,22 @@ import threading
 
 from ortools.sat.python import cp_model
 
+from zonedesign import interrupts
+
 
 def solve_model(solver: cp_model.CpSolver, model: cp_model.CpModel) -> int:
-    """solver.Solve(model), then the SIGINT handler that was in place is restored."""
-    handler = signal.getsignal(signal.SIGINT)
+    """solver.Solve(model); raises `interrupts.Interrupted` when the run was asked to stop."""
+    interrupts.check()
+    solver.parameters.catch_sigint_signal = False
+    handlers = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
     try:
-        return solver.Solve(model)
+        with interrupts.stopper(solver.StopSearch):
+            status = solver.Solve(model)
     finally:
-        if handler is not None and threading.current_thread() is threading.main_thread():
-            signal.signal(signal.SIGINT, handler)
+        # older OR-Tools reset SIGINT to the system default during a solve
+        if threading.current_thread() is threading.main_thread():
+            for s, h in handlers.items():
+                if h is not None and signal.getsignal(s) is not h:
+                    signal.signal(s, h)
+    interrupts.check()
+    return status
