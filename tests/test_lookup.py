@@ -91,9 +91,21 @@ def test_missing_and_empty_files(tmp_path: Path) -> None:
 def test_header_must_name_exactly_the_tiers(tmp_path: Path) -> None:
     text = "code,block,tract\nA1,b1,t1\nA2,b1,t1\nA3,b2,t1\nA4,b3,t2\n"
     assert problems(csv_file(tmp_path, text)) == [
-        "lookup.csv: header row: no column for tier(s) 'quarter' (columns: 'code', 'block', 'tract')",
-        "lookup.csv: header row: column(s) 'tract' are not tiers (tiers: 'block', 'quarter')",
+        "lookup.csv: header row: no column for tier(s) 'quarter'; column(s) 'tract' are not tiers "
+        "(header: 'code', 'block', 'tract'; expected the area id column, then 'block', 'quarter')",
     ]
+    # the same clear line for a strict read (redraw) and a lenient one (audit, repair)
+    for body, says in [
+        ("code,Block,quarter\nA1,b1,q1\n", "no column for tier(s) 'block'; column(s) 'Block' are not tiers"),
+        ("code;block;quarter\nA1;b1;q1\n", "header row has 1 column(s); need the area id column, then one per tier "
+                                          "(the header holds ';': a lookup is comma-separated)"),
+        ("code,block,quarter\n", "no rows below the header row"),
+        ("code,block,block\nA1,b1,b1\n", "header row: column(s) 'block' appear more than once"),
+    ]:
+        for strict in (True, False):
+            with pytest.raises(InputError) as info:
+                read_lookup(csv_file(tmp_path, body), IDS, TIERS, strict=strict)
+            assert says in str(info.value), (body, strict, str(info.value))
 
 
 def test_duplicate_area_ids_are_named_with_their_lines(tmp_path: Path) -> None:
@@ -134,16 +146,14 @@ def test_ragged_rows_and_bad_bytes_are_located(tmp_path: Path) -> None:
 
 
 def test_lenient_read_returns_aligned_frame_and_problems(tmp_path: Path) -> None:
-    text = "code,block,tract\nA1,b1,t1\nA1,b5,t5\nX7,b2,t1\nA3,,t2\n"
+    text = "code,block,quarter\nA1,b1,t1\nA1,b5,t5\nX7,b2,t1\nA3,,t2\n"
     frame, found = read_lookup(csv_file(tmp_path, text), IDS, TIERS, strict=False)
     assert frame.index.tolist() == IDS.tolist()
     assert frame.columns.tolist() == TIERS
-    # the first row of a duplicated id is kept; missing areas and tiers are None
+    # the first row of a duplicated id is kept; missing areas are None
     assert frame["block"].tolist() == ["b1", None, None, None]
-    assert frame["quarter"].tolist() == [None, None, None, None]
+    assert frame["quarter"].tolist() == ["t1", None, "t2", None]
     assert found == [
-        "lookup.csv: header row: no column for tier(s) 'quarter' (columns: 'code', 'block', 'tract')",
-        "lookup.csv: header row: column(s) 'tract' are not tiers (tiers: 'block', 'quarter')",
         "lookup.csv: column 'code': 1 area id(s) on more than one row: 'A1' (lines 2, 3)",
         "lookup.csv: column 'block', row 'A3': no zone id",
         "lookup.csv: column 'code': 1 area id(s) not in the areas file: 'X7'",

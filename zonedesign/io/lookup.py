@@ -53,41 +53,22 @@ def read_lookup(
     """The lookup indexed by area id (index named after the id column), one str column per tier.
 
     With `tier_names` the columns must be exactly those tiers (returned in that order);
-    with `area_ids` the rows must be exactly those areas (returned in that order). Strict:
-    any problem raises one InputError listing them all. Not strict: returns (frame,
-    problems); extra columns and rows are dropped, missing ones filled with None, the first
-    of duplicated ids kept.
+    with `area_ids` the rows must be exactly those areas (returned in that order). A header that does not
+    match the tiers, or no rows at all, always raises (see `check_header`). Strict: any
+    problem raises one InputError listing them all. Not strict: returns (frame, problems);
+    extra rows are dropped, missing ones filled with None, the first of duplicated ids kept.
     """
     path = Path(path)
     where = path.name
     try:
         header, rows, lines, unit = _read_cells(path)
+        id_name, body, tiers = check_header(header, tier_names, where)
+        if rows.shape[0] == 0:
+            raise InputError(f"{where}: no rows below the header row; a lookup needs one row per area")
     except InputError as exc:
         exc.problems = exc.problems or [str(exc)]
         raise
     problems: list[str] = []
-    if len(header) < 2 and tier_names is None:
-        problems.append(
-            f"{where}: header row has {len(header)} column(s); need the area id column and one per tier"
-        )
-    id_name = header[0]
-    body = header[1:]
-    for h in sorted({h for h in body if body.count(h) > 1 or h == id_name}):
-        problems.append(f"{where}: header row: column {h!r} appears more than once")
-    tiers = list(dict.fromkeys(body)) if tier_names is None else list(tier_names)
-    if tier_names is not None:
-        missing = [t for t in tiers if t not in body]
-        extra = [h for h in body if h not in tiers]
-        if missing:
-            problems.append(
-                f"{where}: header row: no column for tier(s) {', '.join(map(repr, missing))} "
-                f"(columns: {', '.join(map(repr, header))})"
-            )
-        if extra:
-            problems.append(
-                f"{where}: header row: column(s) {', '.join(map(repr, extra))} are not tiers "
-                f"(tiers: {', '.join(map(repr, tiers))})"
-            )
 
     ids = rows[:, 0]
     no_id = np.asarray(pd.isna(ids), dtype=bool)
@@ -128,6 +109,43 @@ def read_lookup(
         v.raise_problems(problems, where=where)
         return frame
     return frame, problems
+
+
+def check_header(
+    header: Sequence[str], tier_names: Sequence[str] | None, where: str
+) -> tuple[str, list[str], list[str]]:
+    """(id column, tier columns as found, tiers to read) or one InputError naming the header fault.
+
+    The one reader of a lookup's header for audit, redraw and repair, strict or not: a
+    header that does not match the tiers is never a violation to report, it is bad input.
+    """
+    header = list(header)
+    sep = next((c for c in (";", "\t", "|") if len(header) == 1 and c in header[0]), None)
+    hint = f" (the header holds {sep!r}: a lookup is comma-separated)" if sep else ""
+    if len(header) < 2:
+        raise InputError(
+            f"{where}: header row has {len(header)} column(s); need the area id column, then one per tier{hint}"
+        )
+    id_name, body = header[0], header[1:]
+    doubled = sorted({h for h in body if body.count(h) > 1 or h == id_name})
+    if doubled:
+        raise InputError(f"{where}: header row: column(s) {', '.join(map(repr, doubled))} appear more than once")
+    if tier_names is None:
+        return id_name, body, list(body)
+    tiers = list(tier_names)
+    missing = [t for t in tiers if t not in body]
+    extra = [h for h in body if h not in tiers]
+    if missing or extra:
+        parts = []
+        if missing:
+            parts.append(f"no column for tier(s) {', '.join(map(repr, missing))}")
+        if extra:
+            parts.append(f"column(s) {', '.join(map(repr, extra))} are not tiers")
+        raise InputError(
+            f"{where}: header row: {'; '.join(parts)} (header: {', '.join(map(repr, header))}; "
+            f"expected the area id column, then {', '.join(map(repr, tiers))}){hint}"
+        )
+    return id_name, body, tiers
 
 
 def _quoted(values: pd.Index) -> str:
