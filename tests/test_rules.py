@@ -24,6 +24,7 @@ from zonedesign.rules import (
     load_rules,
     parse_rules,
     rules_to_toml,
+    tier_name_problem,
 )
 
 VALID = """\
@@ -258,7 +259,11 @@ def rules_objects(draw: st.DrawFn) -> Rules:
         crs=draw(st.none() | st.just("EPSG:32633")),
     )
     tiers = []
-    tier_names = draw(st.lists(names.filter(lambda s: not s.isdigit() and s != areas.id), min_size=1, max_size=3, unique=True))
+    # a tier name must also be a lookup column and a GeoPackage layer (tier_name_problem)
+    tier_names = draw(st.lists(
+        names.filter(lambda s: not s.isdigit() and tier_name_problem(s, areas) is None),
+        min_size=1, max_size=3, unique_by=str.casefold,
+    ))
     for name in tier_names:
         lo, hi, target = {}, {}, {}
         for c in counts:

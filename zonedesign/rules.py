@@ -291,7 +291,8 @@ def load_rules(path: str | Path) -> Rules:
     if not path.is_file():
         raise InputError(f"{path}: rules file not found")
     try:
-        text = path.read_text(encoding="utf-8")
+        # utf-8-sig: editors on some systems start a file with a byte-order mark
+        text = path.read_text(encoding="utf-8-sig")
     except UnicodeDecodeError as exc:
         raise RulesError(f"{path}: not UTF-8 text (byte {exc.start})") from exc
     except OSError as exc:
@@ -719,12 +720,33 @@ def _tiers(value: object, check: _Check, areas: AreasRules) -> tuple[TierRules, 
     names: dict[str, int] = {}
     for k, raw in enumerate(value):
         tier = _tier(raw, k, check, areas)
-        if tier.name in names:
-            check.fail(("tier", k, "name"), f"{tier.name!r} is already the name of tier {names[tier.name] + 1}")
+        # case-blind: GeoPackage layer names and many file systems do not tell case apart
+        if tier.name.casefold() in names:
+            check.fail(("tier", k, "name"), f"{tier.name!r} is already the name of tier {names[tier.name.casefold()] + 1}"
+                       " (tier names must differ in more than case)")
         elif tier.name:
-            names[tier.name] = k
+            names[tier.name.casefold()] = k
         tiers.append(tier)
     return tuple(tiers)
+
+
+# a tier name becomes a lookup column and a GeoPackage layer: letters, digits, _ . - and
+# inner spaces only; no prefix that SQLite or GeoPackage reserve for their own tables
+TIER_NAME = re.compile(r"^[^\W][\w .-]{0,62}$")
+RESERVED_PREFIXES = ("gpkg_", "rtree_", "sqlite_")
+LOOKUP_ID = "area"  # the id column of every lookup zonedesign writes
+
+
+def tier_name_problem(name: str, areas: AreasRules) -> str | None:
+    """Why `name` cannot be a tier's name (a lookup column and a layer name), or None."""
+    if not TIER_NAME.match(name) or name != name.strip():
+        return (f"{name!r}: a tier name may hold letters, digits, '_', '.', '-' and inner spaces "
+                "(at most 63 characters), as a GeoPackage layer and a CSV header need")
+    if name.lower().startswith(RESERVED_PREFIXES):
+        return f"{name!r}: names starting with {', '.join(RESERVED_PREFIXES)} are reserved by GeoPackage"
+    if name.casefold() in {(areas.id or "").casefold(), LOOKUP_ID}:
+        return f"{name!r} is also the id column of the lookup; its columns would clash"
+    return None
 
 
 def _tier(raw: dict, k: int, check: _Check, areas: AreasRules) -> TierRules:
@@ -733,8 +755,8 @@ def _tier(raw: dict, k: int, check: _Check, areas: AreasRules) -> TierRules:
     name = check.text(t, "name", path, required=True) or ""
     if name.isdigit():
         check.fail((*path, "name"), f"{name!r}: a tier name cannot be a number (sweep keys count tiers as tier.1, tier.2)")
-    elif name and name == areas.id:
-        check.fail((*path, "name"), f"{name!r} is also the id column; lookup columns would clash")
+    elif name and tier_name_problem(name, areas):
+        check.fail((*path, "name"), tier_name_problem(name, areas))
     lo, hi, target, weights = _bound_tables(t, path, check, areas)
     _check_bounds(lo, hi, target, path, check)
     weights = {**TierRules(name="").weights, **weights}
