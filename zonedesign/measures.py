@@ -65,7 +65,20 @@ def standardise(attrs: np.ndarray, weight: np.ndarray | None = None) -> np.ndarr
     if attrs.size == 0:
         return attrs.reshape(attrs.shape[0], 0)
     w = np.ones(attrs.shape[0]) if weight is None else np.asarray(weight, dtype=np.float64)
-    if w.sum() <= 0:
+    with np.errstate(over="ignore", invalid="ignore"):
+        z = _zscores(attrs, w)
+    if np.isfinite(z).all() or not np.isfinite(attrs).all():
+        return z
+    # values near the float limit overflow the squares: z-scores do not change when a
+    # column or the weights are scaled, so scale both to at most 1 and start again
+    top = float(np.max(np.abs(w)))
+    scale = np.max(np.abs(attrs), axis=0)
+    scale[~(np.isfinite(scale) & (scale > 0))] = 1.0
+    return _zscores(attrs / scale, w / top if np.isfinite(top) and top > 0 else w)
+
+
+def _zscores(attrs: np.ndarray, w: np.ndarray) -> np.ndarray:
+    if not w.sum() > 0:
         w = np.ones(attrs.shape[0])
     mean = (w[:, None] * attrs).sum(0) / w.sum()
     var = (w[:, None] * (attrs - mean) ** 2).sum(0) / w.sum()
