@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import os
 import random
+import re
 import signal
 import subprocess
 import sys
@@ -222,3 +223,103 @@ def test_resident_size_follows_an_allocation_and_counts_child_processes() -> Non
     finally:
         child.kill()
         child.wait()
+
+
+# ---------------------------------------------------------------- an interrupt in each phase
+
+STAGE = re.compile(r"^\[\s*(?P<t>[0-9.]+)s\] (?P<text>.*)$")
+
+
+def stage_times(err: str) -> list[tuple[float, str]]:
+    """(seconds since start, text) of every progress line of a run."""
+    return [(float(m["t"]), m["text"]) for m in map(STAGE.match, err.splitlines()) if m]
+
+
+def phase_middle(times: list[tuple[float, str]], marker: str) -> float:
+    """Half the measured length of the phase whose line starts with `marker`."""
+    for k, (t, text) in enumerate(times):
+        if text.startswith(marker):
+            end = times[k + 1][0] if k + 1 < len(times) else t
+            return max(end - t, 0.0) / 2
+    raise AssertionError(f"no progress line starts with {marker!r}: {[x[1] for x in times]}")
+
+
+def interrupt_in(args: tuple, marker: str, wait: float, sig: int, cwd: Path) -> tuple[int, str, bool]:
+    """Run `args`, send `sig` `wait` seconds after the line starting with `marker`.
+
+    Returns (exit code, stderr, whether the signal was sent while the run was still going).
+    """
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "zonedesign.cli", *map(str, args)],
+        cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+        env={**os.environ, "PYTHONUNBUFFERED": "1"},
+    )
+    lines = []
+    sent = False
+    for line in proc.stderr:
+        lines.append(line)
+        m = STAGE.match(line)
+        if m and m["text"].startswith(marker):
+            time.sleep(wait)
+            sent = proc.poll() is None
+            proc.send_signal(sig)
+            break
+    lines.append(proc.stderr.read())
+    return proc.wait(timeout=120), "".join(lines), sent
+
+
+PHASES = [
+    # (command, progress line that starts the phase, signal)
+    ("design", "tier 1/", signal.SIGINT),  # between tiers: the search of the next one starts
+    ("design", "designing ", signal.SIGTERM),  # inside the search of the first tier
+    ("design", "building the CP-SAT certificate", signal.SIGINT),
+    ("proofs", "seeking proofs", signal.SIGTERM),
+    ("repair", "searching for the fewest area moves", signal.SIGINT),
+    ("design", "writing ", signal.SIGTERM),
+]
+
+
+def test_an_interrupt_in_any_phase_exits_130_or_143_and_keeps_the_previous_output(tmp_path: Path) -> None:
+    """The README's promise (exit codes): 130 for SIGINT, 143 for SIGTERM (128 + the signal,
+    common practice of shells), no temporary folder left, the previous output byte for byte."""
+    areas, rules = write_inputs(tmp_path / "in")
+    # ward floors above every quadrant's households: bound breaks, so proofs are sought
+    tight = tmp_path / "in" / "tight.toml"
+    tight.write_text(RULES.replace("min = { households = 300 }\nmax = { households = 1200 }",
+                                   "min = { households = 2000 }\nmax = { households = 3000 }")
+                     .replace("target = { households = 600 }", "target = { households = 2500 }"))
+    lookup = tmp_path / "in" / "broken.csv"
+    runs = {
+        "design": ("design", areas, "--rules", rules, "--no-report"),
+        "proofs": ("design", areas, "--rules", tight, "--no-report"),
+        "repair": ("audit", areas, "--rules", rules, "--lookup", lookup, "--repair", "--no-report",
+                   "--no-certificate"),
+    }
+    targets, previous, times = {}, {}, {}
+    for kind, args in runs.items():
+        if kind == "repair":  # one area put in a ward of its own: something to repair
+            frame = pd.read_csv(targets["design"] / "lookup.csv", dtype=str)
+            frame.loc[frame["area"] == "G000001", "ward"] = "F1-ward-0099"
+            frame.to_csv(lookup, index=False)
+        targets[kind] = tmp_path / f"out-{kind}"
+        done = subprocess.run([sys.executable, "-m", "zonedesign.cli", *map(str, args), "--out", targets[kind]],
+                              cwd=tmp_path, capture_output=True, text=True, timeout=300)
+        assert done.returncode in (0, 1), done.stderr
+        times[kind] = stage_times(done.stderr)
+        previous[kind] = checksums(targets[kind])
+    inputs = checksums(tmp_path / "in")
+    stopped = 0
+    for kind, marker, sig in PHASES:
+        wait = phase_middle(times[kind], marker)
+        code, err, sent = interrupt_in((*runs[kind], "--out", targets[kind], "--overwrite"), marker, wait, sig, tmp_path)
+        target = targets[kind]
+        assert beside(target) == [], f"{marker!r}: a temporary folder was left"
+        if not sent:
+            continue  # finished before the signal: nothing to check but the folder above
+        stopped += 1
+        assert code == 128 + sig, (marker, code, err)
+        assert checksums(target) == previous[kind], f"{marker!r}: the previous output changed"
+        last = [line for line in err.splitlines() if line.startswith("zonedesign:")]
+        assert len(last) == 1 and "previous output is unchanged" in last[0], err
+    assert checksums(tmp_path / "in") == inputs
+    assert stopped >= len(PHASES) - 1, "the phases ended before their measured middle"

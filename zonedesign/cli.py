@@ -86,6 +86,26 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _share(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a number: {text!r}") from None
+    if not 0.0 <= value < 1.0:  # also refuses nan and infinities
+        raise argparse.ArgumentTypeError(f"must be a share from 0 up to (not including) 1, not {text}")
+    return value
+
+
+def _seed(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a whole number: {text!r}") from None
+    if not 0 <= value < 2**32:
+        raise argparse.ArgumentTypeError(f"must be from 0 to {2**32 - 1}, not {value}")
+    return value
+
+
 def _out_folder(text: str) -> Path:
     # an unset shell variable gives "": never read as the current folder
     if not text.strip():
@@ -185,7 +205,7 @@ def _parser() -> argparse.ArgumentParser:
     src = a.add_mutually_exclusive_group(required=True)
     src.add_argument("--lookup", type=Path, help="lookup CSV: area id, then one column per tier")
     src.add_argument("--tiers-from", type=Path, help="GeoPackage with one polygon layer per tier")
-    a.add_argument("--tolerance", type=float, default=0.01, help="share of an area allowed in another zone (--tiers-from)")
+    a.add_argument("--tolerance", type=_share, default=0.01, help="share of an area allowed in another zone (--tiers-from)")
     a.add_argument("--repair", action="store_true", help="find the fewest area moves that mend every break")
     a.add_argument("--no-certificate", action="store_true", help="skip the CP-SAT certificate")
     a.add_argument("--max-memory", help="stop cleanly (exit 2, nothing written) past this resident size, e.g. 4GB")
@@ -208,7 +228,7 @@ def _parser() -> argparse.ArgumentParser:
         help="base: design the region; later: design it, redraw it on counts ten years on, audit the redraw",
     )
     m.add_argument(
-        "--seed", type=int, default=7,
+        "--seed", type=_seed, default=7,
         help="seed of the invented region (its map and counts); the search seed is in OUT/input/rules.toml",
     )
     m.add_argument(
