@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import shapely
-from cli_support import RULES, Ran, region, run_cli, write_areas, write_inputs
+from cli_support import RULES, Ran, checksums, region, run_cli, write_areas, write_inputs
 
 QUICK = ("--quiet", "--no-report", "--no-certificate")
 
@@ -333,13 +333,25 @@ def test_mend_repairs_a_previous_lookup_first_and_records_what_it_mended(capsys,
 
 def test_an_existing_output_folder_is_refused_without_overwrite(capsys, tmp_path: Path, designed) -> None:
     out = tmp_path / "out"
+    ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out", out, *QUICK)
+    assert ran.code == 0
+    before = checksums(out)
+    ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out", out, *QUICK)
+    refused(ran, rf"--out {re.escape(str(out))}: the output folder exists \(add --overwrite to replace it\)")
+    assert checksums(out) == before
+    ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out", out, "--overwrite", *QUICK)
+    assert ran.code == 0
+
+
+def test_a_folder_that_is_not_an_output_is_never_replaced(capsys, tmp_path: Path, designed) -> None:
+    out = tmp_path / "mine"
     out.mkdir()
     (out / "keep.txt").write_text("mine")
-    ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out", out, *QUICK)
-    refused(ran, rf"output folder exists: {re.escape(str(out))} \(use --overwrite")
+    for extra in ((), ("--overwrite",)):
+        ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out", out, *extra, *QUICK)
+        refused(ran, rf"--out {re.escape(str(out))}: the folder exists and is not a zonedesign output")
+        assert "add --overwrite" not in ran.err
     assert (out / "keep.txt").read_text() == "mine"
-    ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out", out, "--overwrite", *QUICK)
-    assert ran.code == 0 and not (out / "keep.txt").exists()
 
 
 def test_an_output_folder_holding_the_inputs_is_refused(capsys, designed) -> None:
@@ -348,7 +360,9 @@ def test_an_output_folder_holding_the_inputs_is_refused(capsys, designed) -> Non
     for out in (folder, folder.parent):
         ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out", out,
                       "--overwrite", *QUICK)
-        refused(ran, rf"output folder {re.escape(str(out))} holds the input .*areas\.gpkg; choose another --out")
+        # refused before any work: as a holder of the inputs, or as a folder that is no output
+        refused(ran, rf"--out {re.escape(str(out))}: ((holds|the folder of) the input .*areas\.gpkg"
+                     r"|the folder exists and is not a zonedesign output)")
     assert sorted(p.name for p in folder.iterdir()) == before
 
 
@@ -356,14 +370,14 @@ def test_the_areas_file_itself_as_output_is_refused(capsys, designed) -> None:
     area_bytes = designed["areas"].read_bytes()
     ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out", designed["areas"],
                   "--overwrite", *QUICK)
-    refused(ran, r"holds the input .*areas\.gpkg")
+    refused(ran, r"(holds the input .*areas\.gpkg|areas\.gpkg: a file of that name exists; name a folder)")
     assert designed["areas"].read_bytes() == area_bytes
 
 
 def test_an_output_folder_below_a_file_is_refused(capsys, designed, tmp_path: Path) -> None:
     ran = run_cli(capsys, "design", designed["areas"], "--rules", designed["rules"], "--out",
                   designed["lookup"] / "sub", *QUICK)
-    refused(ran, r"output folder .*lookup\.csv/sub cannot be made: .*lookup\.csv is a file")
+    refused(ran, r"--out .*lookup\.csv/sub: .*lookup\.csv is a file, so the output folder cannot be made there")
 
 
 # ---------------------------------------------------------------- usage
@@ -388,4 +402,4 @@ def test_bad_sweep_keys_and_sizes_are_named(capsys, designed, tmp_path: Path) ->
     refused(run_cli(capsys, "sweep", designed["areas"], "--vary", "nonsense", *base),
             r"--vary 'nonsense': expected KEY=V1,V2,\.\.\.")
     refused(run_cli(capsys, "design", designed["areas"], "--max-memory", "lots", *base),
-            r"--max-memory: not a size: 'lots' \(use e\.g\. 4GB or 512MB\)")
+            r"--max-memory: not a size: 'lots' \(use e\.g\. 4GB, 512MB or 1TB\)")

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -29,10 +30,15 @@ def hidden_beside(path: Path) -> list[str]:
     return sorted(p.name for p in path.parent.iterdir() if p.name.startswith(f".{path.name}."))
 
 
+def made(content: str, n: int = 3) -> dict[str, str]:
+    """What `make_output` leaves: n parts and the summary.json that marks an output folder."""
+    return {**{f"part{k}.txt": content for k in range(n)}, "summary.json": content}
+
+
 def make_output(target: Path, content: str, n: int = 3) -> None:
     with atomic_output(target, overwrite=True) as tmp:
-        for k in range(n):
-            (tmp / f"part{k}.txt").write_text(content)
+        for name, text in made(content, n).items():
+            (tmp / name).write_text(text)
 
 
 def test_a_finished_block_becomes_the_target(tmp_path: Path) -> None:
@@ -52,7 +58,7 @@ def test_a_failing_block_leaves_the_old_folder_untouched(tmp_path: Path) -> None
         with atomic_output(target, overwrite=True) as tmp:
             (tmp / "part0.txt").write_text("new")
             raise RuntimeError("search failed")
-    assert folder_state(target) == {f"part{k}.txt": "old" for k in range(3)}
+    assert folder_state(target) == made("old")
     assert hidden_beside(target) == []
 
 
@@ -60,17 +66,17 @@ def test_overwriting_replaces_the_whole_folder(tmp_path: Path) -> None:
     target = tmp_path / "out"
     make_output(target, "old", n=3)
     make_output(target, "new", n=1)
-    assert folder_state(target) == {"part0.txt": "new"}
+    assert folder_state(target) == made("new", n=1)
     assert hidden_beside(target) == []
 
 
 def test_an_existing_folder_is_refused_without_overwrite(tmp_path: Path) -> None:
     target = tmp_path / "out"
     make_output(target, "old")
-    with pytest.raises(InputError, match=r"^output folder exists: .*out \(use --overwrite\)$"):
+    with pytest.raises(InputError, match=r"^--out .*out: the output folder exists \(add --overwrite to replace it\)$"):
         with atomic_output(target, overwrite=False):
             pytest.fail("the block must not run")
-    assert folder_state(target) == {f"part{k}.txt": "old" for k in range(3)}
+    assert folder_state(target) == made("old")
 
 
 def test_outputs_that_would_overwrite_an_input_are_refused(tmp_path: Path) -> None:
@@ -78,7 +84,7 @@ def test_outputs_that_would_overwrite_an_input_are_refused(tmp_path: Path) -> No
     data.mkdir()
     areas = data / "areas.gpkg"
     areas.write_bytes(b"input")
-    with pytest.raises(InputError, match="is the folder of the input"):
+    with pytest.raises(InputError, match="the folder of the input"):
         with atomic_output(data, overwrite=True, inputs=[areas]):
             pytest.fail("the block must not run")
     with pytest.raises(InputError, match="holds the input"):
@@ -144,6 +150,107 @@ def test_a_run_killed_while_writing_leaves_nothing_or_the_previous_folder(tmp_pa
     else:
         assert not target.exists()  # nothing, never half a folder
     sweep_leftovers(target)
+    assert hidden_beside(target) == []
+
+
+# ---------------------------------------------------------------- places never written
+
+
+def test_no_option_value_can_empty_a_folder_the_user_did_not_name(tmp_path: Path, monkeypatch) -> None:
+    """--out must name a new folder or a zonedesign output (issue: `--out ""` once emptied the
+    current folder); the refused folders keep every file."""
+    here = tmp_path / "work"
+    here.mkdir()
+    (here / "notes.txt").write_text("keep")
+    monkeypatch.chdir(here)
+    kept = tmp_path / "kept"
+    kept.mkdir()
+    (kept / "notes.txt").write_text("keep")
+    refused = {
+        "": "the current folder",
+        ".": "the current folder",
+        str(here): "the current folder or one above it",
+        "..": "the current folder or one above it",
+        "/": "the current folder or one above it",  # also a root: refused either way
+        str(Path.home()): "home folder" if not str(here).startswith(str(Path.home())) else "one above it",
+        str(kept): "is not a zonedesign output (no summary.json)",
+        str(kept / "notes.txt"): "a file of that name exists; name a folder",
+    }
+    for value, says in refused.items():
+        for overwrite in (False, True):
+            with pytest.raises(InputError, match=re.escape(says)):
+                with atomic_output(value, overwrite=overwrite):
+                    pytest.fail("the block must not run")
+    assert (here / "notes.txt").read_text() == "keep" and (kept / "notes.txt").read_text() == "keep"
+    # the refusal for a file does not suggest --overwrite, which could not help
+    with pytest.raises(InputError) as info:
+        with atomic_output(kept / "notes.txt", overwrite=False):
+            pass
+    assert "--overwrite" not in str(info.value)
+    # an empty folder may be filled with --overwrite
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    with atomic_output(empty, overwrite=True) as tmp:
+        (tmp / "summary.json").write_text("{}")
+    assert folder_state(empty) == {"summary.json": "{}"}
+
+
+def test_a_parent_that_cannot_hold_the_folder_is_named_not_the_temporary_path(tmp_path: Path) -> None:
+    blocker = tmp_path / "report.txt"
+    blocker.write_text("a file where a folder would go")
+    with pytest.raises(InputError, match=f"{re.escape(str(blocker))} is a file, so the output folder cannot be made"):
+        with atomic_output(blocker / "sub" / "out", overwrite=False):
+            pytest.fail("the block must not run")
+    assert blocker.read_text() == "a file where a folder would go"
+
+
+def test_a_failed_final_move_removes_the_temporary_folder_and_names_the_target(tmp_path: Path, monkeypatch) -> None:
+    import zonedesign.io.output as output
+
+    target = tmp_path / "out"
+    make_output(target, "old")
+    real_replace = os.replace
+
+    def refuse(src, dst):
+        if Path(src).name.startswith(".out.tmp-"):
+            raise PermissionError(13, "Permission denied", str(dst))
+        return real_replace(src, dst)
+
+    monkeypatch.setattr(output.os, "replace", refuse)
+    with pytest.raises(InputError) as info:
+        with atomic_output(target, overwrite=True) as tmp:
+            (tmp / "summary.json").write_text("new")
+    text = str(info.value)
+    assert text.startswith(f"cannot put the output in place at {target}: Permission denied")
+    assert ".tmp-" not in text
+    assert folder_state(target) == made("old")  # the old folder was put back
+    assert hidden_beside(target) == []
+
+
+def test_a_write_that_fails_for_lack_of_space_is_a_located_input_error(tmp_path: Path) -> None:
+    import errno
+
+    target = tmp_path / "out"
+    with pytest.raises(InputError, match=f"cannot write the output folder {re.escape(str(target))}: No space left"):
+        with atomic_output(target, overwrite=False) as tmp:
+            raise OSError(errno.ENOSPC, "No space left on device", str(tmp / "zones.gpkg"))
+    assert not target.exists() and hidden_beside(target) == []
+
+
+def test_a_stopped_run_never_moves_its_output_into_place(tmp_path: Path) -> None:
+    from zonedesign import interrupts
+
+    target = tmp_path / "out"
+    make_output(target, "old")
+    try:
+        with pytest.raises(interrupts.Interrupted):
+            with atomic_output(target, overwrite=True) as tmp:
+                (tmp / "summary.json").write_text("new")
+                # a library swallowed the signal: only the flag is left to tell
+                interrupts.request(signal.SIGTERM)
+    finally:
+        interrupts.reset()
+    assert folder_state(target) == made("old")
     assert hidden_beside(target) == []
 
 

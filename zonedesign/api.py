@@ -460,18 +460,10 @@ def _jsonable(obj: Any) -> Any:
 
 
 def _check_out(out: Path, overwrite: bool, inputs: list[Path] | None = None) -> None:
-    out = out.resolve()
-    for parent in out.parents:
-        if parent.exists():
-            if not parent.is_dir():
-                raise InputError(f"output folder {out} cannot be made: {parent} is a file")
-            break
-    if out.exists() and not overwrite:
-        raise InputError(f"output folder exists: {out} (use --overwrite to replace it)")
-    for p in inputs or []:
-        p = Path(p).resolve()
-        if p == out or out in p.parents:
-            raise InputError(f"output folder {out} holds the input {p}; choose another --out")
+    """Refuse, before any work, an --out that could wipe the wrong place (io.output.check_target)."""
+    from zonedesign.io.output import check_target
+
+    check_target(out, overwrite=overwrite, inputs=inputs or [])
 
 
 def write_outputs(
