@@ -142,6 +142,8 @@ def read_areas(
     polygonal = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & np.isin(
         shapely.get_type_id(geoms), v.POLYGONAL
     )
+    with np.errstate(invalid="ignore"):
+        polygonal &= np.isfinite(shapely.bounds(geoms)).all(axis=1)  # check_polygons names the rest
     series = gpd.GeoSeries(geoms, crs=source_crs, index=pd.RangeIndex(n))
     crs_note = ""
     if source_crs is not None:

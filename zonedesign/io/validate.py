@@ -277,6 +277,15 @@ def check_polygons(
             f"{where}: geometry, {rows_text(labels, rows)}: not a polygon ({', '.join(found)})"
         )
     polygonal = ~empty & ~other
+    # GEOS cannot work with NaN or infinite coordinates: a located error, not a crash later
+    counts = shapely.get_num_coordinates(geoms)
+    xy = shapely.get_coordinates(geoms)
+    bad_xy = ~np.isfinite(xy).all(axis=1)
+    if bad_xy.any():
+        owner = np.repeat(np.arange(geoms.shape[0]), counts)
+        rows = np.unique(owner[bad_xy])
+        problems.append(f"{where}: geometry, {rows_text(labels, rows)}: coordinates that are not finite (NaN or infinite)")
+        polygonal[rows] = False
     invalid = np.zeros(geoms.shape[0], dtype=bool)
     invalid[polygonal] = ~shapely.is_valid(geoms[polygonal])
     repaired = np.flatnonzero(invalid)
