@@ -39,15 +39,15 @@ contiguity = "queen"
 links = "ferries.csv"
 
 [[tier]]
-name = "block"
-min = { households = 40, persons = 100 }
-max = { households = 250, persons = 625 }
-target = { households = 125 }
+name = "tier1"
+min = { households = 50, persons = 120 }
+max = { households = 280, persons = 700 }
+target = { households = 140 }
 weights = { size = 1.0, homogeneity = 2.0 }
 
 [[tier]]
-name = "quarter"
-min = { persons = 1000 }
+name = "tier2"
+min = { persons = 1100 }
 homogeneity = "pairwise"
 compactness = "cut"
 
@@ -76,12 +76,12 @@ def test_valid_file_gives_the_stated_records(tmp_path: Path) -> None:
     r = parse_rules(VALID, "rules.toml", base_dir=tmp_path)
     assert r.areas == AreasRules(id="code", counts=("persons", "households"), attributes=("owners",), fence="district")
     assert r.graph == GraphRules(contiguity="queen", links=tmp_path / "ferries.csv")
-    block, quarter = r.tiers
-    assert block.min == {"households": 40.0, "persons": 100.0}
-    assert block.target == {"households": 125.0}
+    first, second = r.tiers
+    assert first.min == {"households": 50.0, "persons": 120.0}
+    assert first.target == {"households": 140.0}
     # weights not given keep their defaults
-    assert block.weights == {"size": 1.0, "homogeneity": 2.0, "compactness": 1.0, "stability": STABILITY_DEFAULT}
-    assert quarter.max == {} and quarter.homogeneity == "pairwise" and quarter.compactness == "cut"
+    assert first.weights == {"size": 1.0, "homogeneity": 2.0, "compactness": 1.0, "stability": STABILITY_DEFAULT}
+    assert second.max == {} and second.homogeneity == "pairwise" and second.compactness == "cut"
     assert r.search == SearchRules(method="tabu", seed=7, cooling=0.8, time_limit_fence=5.0)
     assert r.text == VALID and r.source == Path("rules.toml")
 
@@ -109,10 +109,10 @@ def test_a_tier_without_any_bound_is_allowed() -> None:
 def test_bound_sub_tables_and_dotted_keys_read_like_inline_tables() -> None:
     text = (
         '[areas]\nid = "code"\ncounts = ["persons", "households"]\n'
-        '[[tier]]\nname = "block"\nmin.persons = 100\n[tier.max]\npersons = 625\n'
+        '[[tier]]\nname = "tier1"\nmin.persons = 120\n[tier.max]\npersons = 700\n'
     )
     (tier,) = parse_rules(text).tiers
-    assert tier.min == {"persons": 100.0} and tier.max == {"persons": 625.0}
+    assert tier.min == {"persons": 120.0} and tier.max == {"persons": 700.0}
 
 
 # ---------------------------------------------------------------- located errors
@@ -133,20 +133,20 @@ CASES = [
     # unknown keys at every level
     ('fence = "district"', 'fences = "district"', "areas.fences: unknown key in [areas]", 'fence = "district"', 0),
     ('contiguity = "queen"', 'adjacency = "queen"', "graph.adjacency: unknown key in [graph]", 'contiguity = "queen"', 0),
-    ('name = "quarter"', 'name = "quarter"\ncolour = "red"', "tier.2.colour: unknown key in [[tier]]", 'name = "quarter"', 1),
+    ('name = "tier2"', 'name = "tier2"\ncolour = "red"', "tier.2.colour: unknown key in [[tier]]", 'name = "tier2"', 1),
     ("seed = 7", "seed = 7\nretries = 3", "search.retries: unknown key in [search]", "seed = 7", 1),
     ("[search]", "[searching]", "searching: unknown key in the rules file", "[search]", 0),
-    ("min = { persons = 1000 }", "min = { persons = 1000, persns = 5 }",
+    ("min = { persons = 1100 }", "min = { persons = 1100, persns = 5 }",
      "tier.2.min.persns: unknown key in min (keys are [areas].counts) (allowed: persons, households); did you mean 'persons'?",
-     "min = { persons = 1000 }", 0),
+     "min = { persons = 1100 }", 0),
     # wrong types and ranges
-    ("min = { persons = 1000 }", 'min = { persons = "forty" }', "tier.2.min.persons: expected a number, got 'forty'", "min = { persons = 1000 }", 0),
-    ("min = { persons = 1000 }", "min = { persons = -5 }", "tier.2.min.persons: must be at least 0, got -5", "min = { persons = 1000 }", 0),
-    ("min = { persons = 1000 }", "min = 1000", "tier.2.min: expected a table", "min = { persons = 1000 }", 0),
-    ("max = { households = 250, persons = 625 }", "max = { households = 30, persons = 625 }",
-     "tier.1.min.households: min 40 is above max 30", "min = { households = 40, persons = 100 }", 0),
-    ("target = { households = 125 }", "target = { households = 300 }",
-     "tier.1.target.households: target 300 is outside [min 40, max 250]", "target = { households = 125 }", 0),
+    ("min = { persons = 1100 }", 'min = { persons = "forty" }', "tier.2.min.persons: expected a number, got 'forty'", "min = { persons = 1100 }", 0),
+    ("min = { persons = 1100 }", "min = { persons = -5 }", "tier.2.min.persons: must be at least 0, got -5", "min = { persons = 1100 }", 0),
+    ("min = { persons = 1100 }", "min = 1100", "tier.2.min: expected a table", "min = { persons = 1100 }", 0),
+    ("max = { households = 280, persons = 700 }", "max = { households = 30, persons = 700 }",
+     "tier.1.min.households: min 50 is above max 30", "min = { households = 50, persons = 120 }", 0),
+    ("target = { households = 140 }", "target = { households = 300 }",
+     "tier.1.target.households: target 300 is outside [min 50, max 280]", "target = { households = 140 }", 0),
     ('method = "tabu"', 'method = "genetic"', "search.method: 'genetic' is not one of 'descent', 'annealing', 'tabu'", 'method = "tabu"', 0),
     ('homogeneity = "pairwise"', 'homogeneity = "variance"', "tier.2.homogeneity: 'variance' is not one of 'ssd', 'pairwise'", 'homogeneity = "pairwise"', 0),
     ('compactness = "cut"', 'compactness = "round"', "tier.2.compactness: 'round' is not one of 'polsby', 'cut'", 'compactness = "cut"', 0),
@@ -155,7 +155,7 @@ CASES = [
      "weights = { size = 1.0, homogeneity = 2.0 }", 0),
     ("weights = { size = 1.0, homogeneity = 2.0 }", "weights = { size = -1.0 }", "tier.1.weights.size: must be at least 0, got -1",
      "weights = { size = 1.0, homogeneity = 2.0 }", 0),
-    ('name = "quarter"', 'name = "block"', "tier.2.name: 'block' is already the name of tier 1", 'name = "quarter"', 0),
+    ('name = "tier2"', 'name = "tier1"', "tier.2.name: 'tier1' is already the name of tier 1", 'name = "tier2"', 0),
     ("seed = 7", "seed = 7.5", "search.seed: expected a whole number, got 7.5", "seed = 7", 0),
     ("seed = 7", 'seed = "7"', "search.seed: expected a whole number, got '7'", "seed = 7", 0),
     ("time_limit_fence = 5", "time_limit_fence = 0", "search.time_limit_fence: must be above 0, got 0", "time_limit_fence = 5", 0),
@@ -176,7 +176,7 @@ def test_each_error_names_its_key_and_line(old: str, new: str, expected: str, at
 
 def test_a_valid_change_is_not_an_error() -> None:
     # guards the table above: changing a bound within range parses
-    parse_rules(VALID.replace("min = { persons = 1000 }", "min = { persons = 700 }"))
+    parse_rules(VALID.replace("min = { persons = 1100 }", "min = { persons = 700 }"))
 
 
 def test_syntax_errors_give_line_and_column() -> None:
@@ -190,9 +190,9 @@ def test_no_tiers_and_no_areas_are_errors() -> None:
     with pytest.raises(RulesError, match=r"^<rules>: tier: no \[\[tier\]\] tables"):
         parse_rules('[areas]\nid = "code"\ncounts = ["persons"]\n')
     with pytest.raises(RulesError, match=r"^<rules>: areas: missing \[areas\] table"):
-        parse_rules('[[tier]]\nname = "block"\n')
+        parse_rules('[[tier]]\nname = "tier1"\n')
     with pytest.raises(RulesError, match=r"^<rules>:4: tier: write each tier as a \[\[tier\]\] table"):
-        parse_rules('[areas]\nid = "code"\ncounts = ["persons"]\n[tier]\nname = "block"\n')
+        parse_rules('[areas]\nid = "code"\ncounts = ["persons"]\n[tier]\nname = "tier1"\n')
 
 
 def test_every_problem_is_listed_in_file_order() -> None:
@@ -320,11 +320,11 @@ def test_rules_to_toml_round_trips_any_valid_rules(r: Rules) -> None:
 def test_overrides_change_one_value_and_keep_the_rest() -> None:
     r = parse_rules(VALID, "rules.toml")
     r1 = apply_override(r, "tier.1.min.households", "30")
-    assert r1.tiers[0].min == {"households": 30.0, "persons": 100.0}
+    assert r1.tiers[0].min == {"households": 30.0, "persons": 120.0}
     assert r1.tiers[1] == r.tiers[1] and r1.search == r.search and r1.source == r.source
-    assert apply_override(r, "tier.quarter.max.persons", "5000").tiers[1].max == {"persons": 5000.0}
-    assert apply_override(r, "tier.block.max.persons", "none").tiers[0].max == {"households": 250.0}
-    assert apply_override(r, "tier.1.target.persons", "300").tiers[0].target == {"households": 125.0, "persons": 300.0}
+    assert apply_override(r, "tier.tier2.max.persons", "5000").tiers[1].max == {"persons": 5000.0}
+    assert apply_override(r, "tier.tier1.max.persons", "none").tiers[0].max == {"households": 280.0}
+    assert apply_override(r, "tier.1.target.persons", "300").tiers[0].target == {"households": 140.0, "persons": 300.0}
     assert apply_override(r, "tier.2.weights.stability", "0.5").tiers[1].weights["stability"] == 0.5
     assert apply_override(r, "tier.2.homogeneity", "ssd").tiers[1].homogeneity == "ssd"
     assert apply_override(r, "search.method", "annealing").search.method == "annealing"
@@ -336,14 +336,14 @@ def test_overrides_change_one_value_and_keep_the_rest() -> None:
 @pytest.mark.parametrize(
     ("key", "value", "expected"),
     [
-        ("tier.3.min.persons", "5", "override key 'tier.3.min.persons': no tier 3 (tiers: 1 'block', 2 'quarter')"),
+        ("tier.3.min.persons", "5", "override key 'tier.3.min.persons': no tier 3 (tiers: 1 'tier1', 2 'tier2')"),
         ("tier.town.min.persons", "5", "override key 'tier.town.min.persons': no tier named 'town'"),
         ("tier.1.size.persons", "5", "override key 'tier.1.size.persons': tier field 'size'"),
         ("tier.1.min", "5", "override key 'tier.1.min': tier field 'min'"),
         ("search.speed", "5", "override key 'search.speed': no field 'speed' in [search]; allowed: tier.<N or name>"),
         ("rules.seed", "5", "override key 'rules.seed': not a sweep key; allowed: "),
         ("tier.1.min.persons", "-5", "override tier.1.min.persons=-5: tier.1.min.persons: must be at least 0, got -5"),
-        ("tier.1.min.persons", "700", "override tier.1.min.persons=700: tier.1.min.persons: min 700 is above max 625"),
+        ("tier.1.min.persons", "800", "override tier.1.min.persons=800: tier.1.min.persons: min 800 is above max 700"),
         ("tier.1.min.people", "5", "override tier.1.min.people=5: tier.1.min.people: unknown key in min"),
         ("search.cooling", "2", "override search.cooling=2: search.cooling: must be below 1, got 2"),
         ("search.method", "random", "override search.method=random: search.method: 'random' is not one of"),
@@ -405,7 +405,7 @@ def test_mutations_of_a_valid_file_are_parsed_or_rejected_with_a_location(data: 
 
 @settings(max_examples=200, deadline=None)
 @given(
-    st.lists(st.sampled_from(["tier", "1", "2", "3", "block", "min", "max", "target", "weights", "size", "persons", "households", "search", "graph", "seed", "cooling", "links", "homogeneity", "x", ""]), min_size=1, max_size=5),
+    st.lists(st.sampled_from(["tier", "1", "2", "3", "tier1", "min", "max", "target", "weights", "size", "persons", "households", "search", "graph", "seed", "cooling", "links", "homogeneity", "x", ""]), min_size=1, max_size=5),
     st.sampled_from(["1", "0", "-3", "0.5", "none", "tabu", "rook", "ssd", "x", "", "1e400", "[1]"]),
 )
 def test_any_override_key_is_applied_or_rejected_by_name(parts: list[str], value: str) -> None:
