@@ -323,3 +323,35 @@ def test_an_interrupt_in_any_phase_exits_130_or_143_and_keeps_the_previous_outpu
         assert len(last) == 1 and "previous output is unchanged" in last[0], err
     assert checksums(tmp_path / "in") == inputs
     assert stopped >= len(PHASES) - 1, "the phases ended before their measured middle"
+
+
+def test_a_signal_during_a_cp_sat_solve_stops_it_and_is_never_read_as_its_result() -> None:
+    """SIGTERM during a long solve: the solve ends within seconds and raises, instead of
+    running to its time limit or returning UNKNOWN as if time were up (CP-SAT's own
+    `catch_sigint_signal` parameter, OR-Tools sat_parameters.proto, would do the latter)."""
+    import threading
+
+    from ortools.sat.python import cp_model
+
+    from zonedesign import interrupts
+    from zonedesign.verify.solving import solve_model
+
+    rng = random.Random(3)
+    m = cp_model.CpModel()
+    x = [m.NewBoolVar(f"x{i}") for i in range(300)]
+    for _ in range(150):  # random multi-dimensional knapsack: far from proven in a minute
+        m.Add(sum(rng.randint(1, 60) * v for v in rng.sample(x, 40)) <= 400)
+    m.Maximize(sum(rng.randint(1, 100) * v for v in x))
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = 60.0
+    solver.parameters.num_workers = 1
+    timer = threading.Timer(1.0, os.kill, (os.getpid(), signal.SIGTERM))
+    t0 = time.perf_counter()
+    with interrupts.handling_signals():
+        timer.start()
+        with pytest.raises(interrupts.Interrupted) as info:
+            solve_model(solver, m)
+    took = time.perf_counter() - t0
+    assert info.value.signum == signal.SIGTERM and info.value.exit_code == 143
+    assert took < 10, f"the solve ran on for {took:.1f}s after the signal"
+    assert signal.getsignal(signal.SIGTERM) is not interrupts._on_signal  # handlers put back

@@ -165,7 +165,14 @@ def handling_signals() -> Iterator[None]:
 
 
 def quiet_worker() -> None:
-    """Initializer of worker processes: the parent alone handles signals and stops them."""
+    """Initializer of worker processes: the parent alone handles signals and stops them.
+
+    Numeric warnings are not printed raw from a worker either (stderr keeps one line); the
+    parent's independent audit re-derives every figure a warning could concern.
+    """
+    import warnings
+
+    warnings.simplefilter("ignore")
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     try:
