@@ -1,6 +1,6 @@
 """Interrupts at random moments: a demo design, an audit with --repair and a redraw.
 
-    python -m benchmarks.interrupts [--runs 30] [--seed 11] [--areas 500] [--out FOLDER]
+    python -m benchmarks.interrupts [--runs 30] [--seed 11] [--areas 1500] [--out FOLDER]
 
 Each command first runs once to the end into its own folder (its length is measured
 then); each interrupted run replaces that folder with --overwrite and gets SIGINT or
@@ -68,7 +68,7 @@ def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--runs", type=int, default=30)
     p.add_argument("--seed", type=int, default=11)
-    p.add_argument("--areas", type=int, default=500)
+    p.add_argument("--areas", type=int, default=1500)
     p.add_argument("--out", type=Path, default=HERE / "results")
     a = p.parse_args(argv)
     work = Path(tempfile.mkdtemp(prefix="zonedesign-interrupts-"))

@@ -282,3 +282,12 @@ def test_layers_are_written_one_per_tier_in_order(tmp_path: Path) -> None:
     assert back["zone"].tolist() == ["b1", "b2"] and back["persons"].tolist() == [120.0, 130.0]
     assert shapely.equals(back.geometry.to_numpy(), block.geometry.to_numpy()).all()
     assert back.crs.to_epsg() == 32633
+
+
+def test_a_full_disk_reported_by_gdal_without_an_errno_is_still_a_located_input_error(tmp_path: Path) -> None:
+    target = tmp_path / "out"
+    with pytest.raises(InputError, match="cannot write the output folder .*out: sqlite3_step.*disk is full"):
+        with atomic_output(target, overwrite=False):
+            # the form of GDAL's GeoPackage driver message (from memory)
+            raise RuntimeError("sqlite3_step() failed: database or disk is full")
+    assert not target.exists() and hidden_beside(target) == []

@@ -8,6 +8,7 @@ of one, and never touches the inputs.
 from __future__ import annotations
 
 import dataclasses
+import errno
 import json
 import math
 import os
@@ -105,11 +106,14 @@ def atomic_output(target: str | Path, *, overwrite: bool, inputs: Sequence[str |
     try:
         try:
             yield tmp
-        except OSError as exc:
-            if exc.filename is None or not str(exc.filename).startswith(str(tmp)):
+        except InputError:
+            raise
+        except Exception as exc:
+            if not _writing_failed(exc, tmp):
                 raise
+            reason = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc).splitlines()[0]
             raise InputError(
-                f"cannot write the output folder {target}: {exc.strerror or exc} "
+                f"cannot write the output folder {target}: {reason} "
                 "(nothing was written; a previous output is unchanged)"
             ) from None
         with _signals_held() as pending:
@@ -122,6 +126,19 @@ def atomic_output(target: str | Path, *, overwrite: bool, inputs: Sequence[str |
             shutil.rmtree(tmp, ignore_errors=True)
         raise
     _sync_folder(target.parent)
+
+
+# the messages GDAL and SQLite give for a full disk or quota, whose errors carry no errno
+_FULL = ("no space left", "disk is full", "quota exceeded", "file too large")
+
+
+def _writing_failed(exc: Exception, tmp: Path) -> bool:
+    """Whether `exc` is the machine refusing a write into `tmp` (not a bug of the run)."""
+    if isinstance(exc, OSError) and exc.filename is not None and str(exc.filename).startswith(str(tmp)):
+        return True
+    if getattr(exc, "errno", None) in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+        return True
+    return any(w in str(exc).lower() for w in _FULL)
 
 
 def _move_into_place(tmp: Path, target: Path, overwrite: bool, token: str) -> None:
