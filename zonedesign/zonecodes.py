@@ -113,9 +113,14 @@ def assign_codes(
         codes[z] = q
     taken = set(known or ()) | set(old[old != ""].tolist())
     fence_of_area = np.asarray(zone_fence, dtype=object)[zone]
+    patterns: dict[str, tuple[str, int] | None] = {}
+    last: dict[str, int] = {}  # the number given last in each fence: the next search starts after it
     for z in range(k):
         if codes[z] == "":
-            codes[z] = next_code(str(zone_fence[z]), tier, old[fence_of_area == zone_fence[z]], taken)
+            f = str(zone_fence[z])
+            if f not in patterns:
+                patterns[f] = code_pattern(old[(fence_of_area == zone_fence[z]) & (old != "")])
+            codes[z], last[f] = next_code(f, tier, patterns[f], taken, after=last.get(f))
             taken.add(codes[z])
     retired: dict[str, list[str]] = {}
     ov = overlaps(old, zone, weight)
@@ -127,20 +132,33 @@ def assign_codes(
     return Succession(codes=codes, heir=heir, retired=retired)
 
 
-def next_code(fence: str, tier: str, fence_codes: np.ndarray, taken: set[str]) -> str:
-    """A readable new code: the pattern of the fence's old codes with the next free number
-    (after the highest any code of that pattern holds), else fence-tier-0001 onwards."""
+def code_pattern(fence_codes: np.ndarray) -> tuple[str, int] | None:
+    """The readable pattern of a fence's old codes: (prefix, digits) of the most common
+    prefix followed by a number, or None when no code ends in a number."""
+    vals, counts = np.unique(np.asarray(fence_codes, dtype=object).astype(str), return_counts=True)
+    per_prefix: dict[str, list[int]] = {}
+    for c, n in zip(vals.tolist(), counts.tolist()):
+        m = _NUMBERED.match(c)
+        if m:
+            entry = per_prefix.setdefault(m.group(1), [0, 0])
+            entry[0] += n
+            entry[1] = max(entry[1], len(m.group(2)))
+    if not per_prefix:
+        return None
+    prefix = max(sorted(per_prefix), key=lambda q: per_prefix[q][0])
+    return prefix, per_prefix[prefix][1]
+
+
+def next_code(
+    fence: str, tier: str, pattern: tuple[str, int] | None, taken: set[str], *, after: int | None = None
+) -> tuple[str, int]:
+    """A readable new code and its number: the fence's pattern (`code_pattern`) with the
+    next free number after the highest any taken code of that pattern holds (or after
+    `after`, the number this fence was given last), else fence-tier-0001 onwards."""
     from zonedesign.hierarchy import zone_id
 
-    pattern: dict[str, int] = {}
-    for c in set(np.asarray(fence_codes, dtype=object).tolist()) - {""}:
-        m = _NUMBERED.match(str(c))
-        if m:
-            pattern[m.group(1)] = max(pattern.get(m.group(1), 0), len(m.group(2)))
-    if pattern:
-        counts = pd.Series([_NUMBERED.match(str(c)).group(1) for c in fence_codes if _NUMBERED.match(str(c))])
-        prefix = str(counts.value_counts().sort_index().idxmax())
-        width = pattern[prefix]
+    if pattern is not None:
+        prefix, width = pattern
 
         def make(n: int) -> str:
             return f"{prefix}{n:0{width}d}"
@@ -149,14 +167,15 @@ def next_code(fence: str, tier: str, fence_codes: np.ndarray, taken: set[str]) -
 
         def make(n: int) -> str:
             return zone_id(fence, tier, n)
-    top = 0
-    for c in taken:
-        if c.startswith(prefix) and c[len(prefix):].isdigit():
-            top = max(top, int(c[len(prefix):]))
-    n = top + 1
+    if after is None:
+        after = 0
+        for c in taken:
+            if c.startswith(prefix) and c[len(prefix):].isdigit():
+                after = max(after, int(c[len(prefix):]))
+    n = after + 1
     while make(n) in taken:
         n += 1
-    return make(n)
+    return make(n), n
 
 
 def moved_areas(old: np.ndarray, new: np.ndarray) -> np.ndarray:
