@@ -323,6 +323,22 @@ def base_summary(prep: Prepared, command: str) -> dict:
     }
 
 
+def run_certificate(prep: Prepared, labels: Mapping[str, np.ndarray], tiers: list, summary: dict,
+                    progress: Progress | None) -> list:
+    """The CP-SAT certificate into summary["certificate"], with a fence-tier counter; every
+    undecided fence and tier is named on the progress line (it makes the exit code 1)."""
+    from zonedesign.progress import bar, say
+    from zonedesign.verify.certificate import certify, fence_tiers
+
+    with bar(progress, fence_tiers(prep.areas, tiers), "certificate (fence-tiers)") as b:
+        certs = certify(prep.areas, prep.graph, labels, tiers, on_done=lambda _done, _total: b.update())
+    summary["certificate"] = [_jsonable(c) for c in certs]
+    for c in certs:
+        if c.undecided:
+            say(progress, f"certificate undecided for tier {c.tier} fence {c.fence}: CP-SAT stopped at its time limit")
+    return certs
+
+
 def finish(
     prep: Prepared,
     lookup: dict[str, np.ndarray],
@@ -353,12 +369,10 @@ def finish(
         "violations": [_jsonable(v) for v in _violations(checked)],
     }
     add_lock_checks(prep, lookup, summary)
+    uncertified = False
     if certify:
-        from zonedesign.verify.certificate import certify as run_certify
-
         stage("building the CP-SAT certificate per fence and tier")
-        certs = run_certify(prep.areas, prep.graph, lookup, tiers)
-        summary["certificate"] = [_jsonable(c) for c in certs]
+        uncertified = not all(c.ok for c in run_certificate(prep, lookup, tiers, summary, progress))
     seconds["audit"] = time.perf_counter() - t0
 
     stage("measuring every zone")
@@ -377,7 +391,7 @@ def finish(
     summary["proofs"] = explain_breaks(prep, lookup, breaks)
     stage.close()
     summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
-    rc = 1 if (breaks or not summary["audit"]["ok"] or failed) else 0
+    rc = 1 if (breaks or not summary["audit"]["ok"] or failed or uncertified) else 0
     summary["exit_code"] = rc
     if out is not None:
         write_outputs(
@@ -821,11 +835,8 @@ def audit(
         summary["audit"]["overlay"] = {"tolerance_share": tolerance, "flags": _jsonable(overlay_flags)}
     certs = []
     if certify:
-        from zonedesign.verify.certificate import certify as run_certify
-
         stage("building the CP-SAT certificate per fence and tier")
-        certs = run_certify(prep.areas, prep.graph, labels, tiers)
-        summary["certificate"] = [_jsonable(c) for c in certs]
+        certs = run_certificate(prep, labels, tiers, summary, progress)
     seconds["audit"] = time.perf_counter() - t0
     repaired = None
     moves = None
@@ -887,7 +898,7 @@ def audit(
         from zonedesign.zonetables import all_tables
 
         tables = all_tables(prep.areas, prep.graph, labels, tiers)
-    rc = 0 if summary["audit"]["ok"] and not overlay_flags else 1
+    rc = 0 if summary["audit"]["ok"] and not overlay_flags and all(c.ok for c in certs) else 1
     summary["exit_code"] = rc
     if out is not None:
         from zonedesign.io.output import atomic_output, write_json
@@ -1020,6 +1031,7 @@ def later_scenario(
     executor: str = "local",
     workers: int = 1,
     scheduler: str | None = None,
+    certify: bool = True,
     report: bool = True,
     progress: Progress | None = None,
     extra_files: Mapping[str, Path] | None = None,
@@ -1040,14 +1052,14 @@ def later_scenario(
     try:
         _say(progress, "designing the first hierarchy")
         first = design(areas, rules, work / "design", executor=executor, workers=workers,
-                       scheduler=scheduler, report=report, progress=progress)
+                       scheduler=scheduler, report=report, certify=certify, progress=progress)
         files = dict(extra_files or {})
         for p in sorted((work / "design").rglob("*")):
             if p.is_file():
                 files[f"design/{p.relative_to(work / 'design')}"] = p
         _say(progress, "redrawing on the later counts")
         res = redraw(later, rules, work / "design" / "lookup.csv", out, overwrite=overwrite,
-                     executor=executor, workers=workers, scheduler=scheduler, report=report,
+                     executor=executor, workers=workers, scheduler=scheduler, report=report, certify=certify,
                      progress=progress, extra_files=files)
         res.summary["first_design_exit_code"] = first.exit_code
         return res

@@ -235,6 +235,7 @@ def _parser() -> argparse.ArgumentParser:
         "--areas", type=_demo_areas, default=5000,
         help=f"number of base areas (at least {DEMO_MIN_AREAS}; default 5000)",
     )
+    m.add_argument("--no-certificate", action="store_true", help="skip the CP-SAT certificate")
     common(m)
     executor(m)
 
@@ -393,6 +394,7 @@ def _run(args: argparse.Namespace) -> int:
             args.out, scenario=args.scenario, seed=args.seed, n=args.areas,
             overwrite=args.overwrite, executor=args.executor, workers=args.workers,
             scheduler=args.scheduler, report=not args.no_report, progress=say,
+            certify=not args.no_certificate,
         )
         return _done(res, say)
     if cmd == "audit":

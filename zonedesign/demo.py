@@ -31,6 +31,7 @@ def run_demo(
     scheduler: str | None = None,
     report: bool = True,
     progress: api.Progress | None = None,
+    certify: bool = True,
 ) -> api.RunResult:
     """Write the demo input, then design it (scenario "base") or design, redraw and audit it
     ten years on (scenario "later"). The input used lands in OUT/input/, and every output
@@ -60,7 +61,7 @@ def run_demo(
             said(f"the demo region holds {made} areas; its input is kept in {shown}/")
         files = {f"input/{p.name}": p for p in sorted((staging / "input").iterdir())}
         common = dict(overwrite=overwrite, executor=executor, workers=workers, scheduler=scheduler,
-                      report=report, progress=said, extra_files=files)
+                      report=report, certify=certify, progress=said, extra_files=files)
         if scenario == "base":
             res = api.design(staging / "input" / "areas.gpkg", staging / "input" / "rules.toml", out, **common)
         else:

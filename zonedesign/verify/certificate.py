@@ -1,57 +1,80 @@
 """CP-SAT certificate: the lookup, fixed, must satisfy a model of every rule.
 
-For each fence and tier one CP-SAT model states the rules as constraints over assignment
-variables x[u, z] (unit u in zone z) that are fixed to the lookup. The solver then has to
-find roots and flows that prove every zone connected (single-commodity flow from one root
-per zone, Shirabe 2005) while coverage, fence, nesting and bound constraints hold.
-FEASIBLE (or OPTIMAL) is the certificate; INFEASIBLE means a rule is broken in that fence
-and tier. It is a second, independent statement of the rules: the plain checks in
-`checks.py` and this model must agree.
+For each fence and tier one CP-SAT model states the rules over the lookup's assignment,
+which is fixed: coverage (every unit has a zone), bounds (each zone's total is a variable
+within the tier's floor and ceiling), fence (each zone's fence is one variable equal to the
+fence of every member), nesting (each zone's parent is one variable equal to the upper
+zone of every member) and contiguity (single-commodity flow from a fixed root per zone
+reaches every member along the zone's own edges, Shirabe 2005). With the assignment fixed
+a zone's contiguity does not depend on any other zone, so the flow part is one small flow
+model per zone, all built in bulk into the fence's model.
 
-A fence's model holds the fence's areas and every area of any zone that reaches into the
-fence, so a zone crossing a fence is caught from both sides. Only edges inside the model
-carry flow, and only between units of one zone, so the models stay small.
+The solver's answer is the certificate: a solution `confirmed`s that every rule holds in
+that fence and tier, infeasibility `refuted`s it, and a solve stopped by its time limit
+is `undecided` (never shown as a pass). It is a second, independent statement of the
+rules: the plain checks in `checks.py` and this model must agree.
+
+A fence's model holds every unit of any zone that reaches into the fence, so a zone
+crossing a fence is refuted from both sides. The units of tier 1 are the areas; the units
+of a higher tier are the lower tier's zones, each cut where the tier's own zone, the tier
+above or the fence changes inside it (connected pieces), so an upper tier's model is as
+small as its lower tier's zone count and still equivalent to one over the areas: a piece
+is connected by construction, and a zone is connected over the areas exactly when it is
+connected over its pieces.
 """
 
 from __future__ import annotations
 
-import math
 import time
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 from ortools.sat.python import cp_model
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import breadth_first_order, connected_components
 
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import TierRules, tier_in_fence
 from zonedesign.verify.checks import encode_labels, tier_bounds
+from zonedesign.verify.cpsat import (
+    add_flow,
+    bound_limits,
+    integer_scale,
+    scaled_counts,
+    solver,
+    verdict,
+)
 from zonedesign.verify.solving import solve_model
 
-STATUS = {
-    cp_model.OPTIMAL: "OPTIMAL",
-    cp_model.FEASIBLE: "FEASIBLE",
-    cp_model.INFEASIBLE: "INFEASIBLE",
-    cp_model.MODEL_INVALID: "MODEL_INVALID",
-    cp_model.UNKNOWN: "UNKNOWN",
-}
+__all__ = ["Certificate", "certify", "integer_scale"]
+
+# seconds per fence-tier model; the audit and design runs use this default
+TIME_LIMIT = 10.0
+
+_WORDS = {"optimal": "confirmed", "feasible": "confirmed", "infeasible": "refuted"}
 
 
 @dataclass(frozen=True)
 class Certificate:
-    """The solver's verdict on one fence and tier."""
+    """The solver's verdict on one fence and tier: confirmed, refuted or undecided."""
 
     fence: str
     tier: str
-    status: str  # OPTIMAL / FEASIBLE (rules hold), INFEASIBLE (a rule is broken), UNKNOWN
+    status: str
     seconds: float
     n_zones: int
     n_units: int
     n_arcs: int
+    n_areas: int = 0  # areas the model's units hold
 
     @property
     def ok(self) -> bool:
-        return self.status in ("OPTIMAL", "FEASIBLE")
+        return self.status == "confirmed"
+
+    @property
+    def undecided(self) -> bool:
+        return self.status == "undecided"
 
     def to_dict(self) -> dict:
         return {
@@ -62,14 +85,21 @@ class Certificate:
             "zones": self.n_zones,
             "units": self.n_units,
             "arcs": self.n_arcs,
+            "areas": self.n_areas,
         }
 
 
-def integer_scale(values: np.ndarray) -> int:
-    """1 when every count is a whole number, else 1000 (CP-SAT works on integers)."""
-    v = np.asarray(values, dtype=np.float64)
-    v = v[np.isfinite(v)]
-    return 1 if np.all(v == np.round(v)) else 1000
+@dataclass
+class _TierUnits:
+    """The units one tier's models are stated over (see the module notes)."""
+
+    members: list[np.ndarray] | None  # areas per unit; None: the units are the areas
+    zone: np.ndarray  # zone code per unit (-1: none)
+    parent: np.ndarray | None  # zone code of the tier above per unit
+    fence: np.ndarray  # fence index per unit
+    counts: np.ndarray  # (units, counts) integers at the run's scale
+    indptr: np.ndarray  # CSR over units, edges between units of one zone only
+    indices: np.ndarray
 
 
 def certify(
@@ -78,193 +108,202 @@ def certify(
     labels: Mapping[str, Sequence | np.ndarray],
     tiers: Sequence[TierRules],
     *,
-    time_limit: float = 10.0,
+    time_limit: float | None = None,
     workers: int = 1,
+    on_done: Callable[[int, int], None] | None = None,
 ) -> list[Certificate]:
     """One certificate per fence and tier, bottom tier first, fences in sorted order.
 
-    time_limit is per model (seconds); workers is CP-SAT's num_workers. Counts that are not
-    whole numbers are scaled by 1000 and bounds rounded inwards at that scale.
+    time_limit is per model (seconds, default TIME_LIMIT); workers is CP-SAT's num_workers; on_done(done,
+    total) is called after each fence and tier (a progress counter).
     """
+    time_limit = TIME_LIMIT if time_limit is None else float(time_limit)
     tiers = list(tiers)
     scale = integer_scale(areas.counts)
+    counts = scaled_counts(areas.counts, scale)
+    codes = [encode_labels(labels[t.name]).codes for t in tiers]
+    ei, ej, _ = graph.edges()
+    fences = [_tier_fence(areas, t) for t in tiers]
+    total = sum(len(names) for names, _ in fences)
     out: list[Certificate] = []
     for k, t in enumerate(tiers):
-        tl = encode_labels(labels[t.name])
-        upper = encode_labels(labels[tiers[k + 1].name]).codes if k + 1 < len(tiers) else None
-        fence = np.asarray(areas.in_tier(t.name).fence).astype(str)  # the tier's own fence
-        for f in sorted(set(fence.tolist())):
-            bounds = tier_bounds(tier_in_fence(t, f), areas.count_names)  # an override's bounds in this fence
-            out.append(
-                _certify_fence(areas, graph, fence, f, t.name, tl.codes, upper, bounds, scale, time_limit, workers)
-            )
+        start = time.perf_counter()
+        fence_names, fence_idx = fences[k]
+        tu = _tier_units(areas.n, ei, ej, codes, k, fence_idx, counts)
+        prepared = time.perf_counter() - start
+        for fi, f in enumerate(fence_names):
+            bounds = tier_bounds(tier_in_fence(t, str(f)), areas.count_names)  # an override's bounds in this fence
+            cert = _certify_fence(tu, fi, str(f), t.name, bounds, scale, time_limit, workers)
+            # the shared preparation of the tier is charged to its fences in equal parts
+            out.append(_with_seconds(cert, cert.seconds + prepared / len(fence_names)))
+            if on_done is not None:
+                on_done(len(out), total)
     return out
 
 
+def _tier_fence(areas: Areas, tier: TierRules) -> tuple[np.ndarray, np.ndarray]:
+    """The fence codes tier `tier` keeps to (sorted) and each area's index among them."""
+    names, idx = np.unique(np.asarray(areas.in_tier(tier.name).fence).astype(str), return_inverse=True)
+    return names, idx.reshape(-1)
+
+
+def fence_tiers(areas: Areas, tiers: Sequence[TierRules]) -> int:
+    """How many fence-tier models `certify` states (the progress counter's total)."""
+    return sum(len(_tier_fence(areas, t)[0]) for t in tiers)
+
+
+def _with_seconds(c: Certificate, seconds: float) -> Certificate:
+    return Certificate(c.fence, c.tier, c.status, seconds, c.n_zones, c.n_units, c.n_arcs, c.n_areas)
+
+
+def _tier_units(
+    n: int, ei: np.ndarray, ej: np.ndarray, codes: list[np.ndarray], k: int, fence: np.ndarray, counts: np.ndarray
+) -> _TierUnits:
+    """Tier k's units: the areas (k = 0), else connected pieces of the lower tier's zones."""
+    zone = codes[k]
+    parent = codes[k + 1] if k + 1 < len(codes) else None
+    if k == 0:
+        members, unit_of = None, np.arange(n)
+        u_zone, u_parent, u_fence, u_counts = zone, parent, fence, counts
+    else:
+        keep = (codes[k - 1][ei] == codes[k - 1][ej]) & (zone[ei] == zone[ej]) & (fence[ei] == fence[ej])
+        if parent is not None:
+            keep &= parent[ei] == parent[ej]
+        adj = coo_matrix((np.ones(int(keep.sum())), (ei[keep], ej[keep])), shape=(n, n))
+        n_units, unit_of = connected_components(adj, directed=False)
+        order = np.argsort(unit_of, kind="stable")
+        members = np.split(order, np.cumsum(np.bincount(unit_of, minlength=n_units))[:-1])
+        first = order[np.searchsorted(unit_of[order], np.arange(n_units))]
+        u_zone, u_fence = zone[first], fence[first]
+        u_parent = parent[first] if parent is not None else None
+        u_counts = np.zeros((n_units, counts.shape[1]), dtype=np.int64)
+        np.add.at(u_counts, unit_of, counts)
+    # edges between distinct units of one zone: the only ones flow may use
+    a, b = unit_of[ei], unit_of[ej]
+    inside = (a != b) & (u_zone[a] == u_zone[b]) & (u_zone[a] >= 0)
+    m = u_zone.shape[0]
+    pairs = np.unique(np.stack([np.minimum(a[inside], b[inside]), np.maximum(a[inside], b[inside])], axis=1), axis=0)
+    both = np.concatenate([pairs, pairs[:, ::-1]]) if pairs.size else np.zeros((0, 2), dtype=np.int64)
+    order = np.lexsort((both[:, 1], both[:, 0]))
+    both = both[order]
+    indptr = np.concatenate([[0], np.cumsum(np.bincount(both[:, 0], minlength=m))]).astype(np.int64)
+    return _TierUnits(members, u_zone, u_parent, u_fence, u_counts, indptr, both[:, 1].astype(np.int64))
+
+
 def _certify_fence(
-    areas: Areas,
-    graph: Graph,
-    fence: np.ndarray,
-    f: str,
-    tier: str,
-    codes: np.ndarray,
-    upper: np.ndarray | None,
-    bounds,
-    scale: int,
-    time_limit: float,
-    workers: int,
+    tu: _TierUnits, fi: int, f: str, tier: str, bounds, scale: int, time_limit: float, workers: int
 ) -> Certificate:
     start = time.perf_counter()
-    in_fence = np.flatnonzero(fence == f)
-    zones = np.unique(codes[in_fence][codes[in_fence] >= 0])
-    # the model's units: the fence's areas plus every area of a zone reaching into it
-    units = np.union1d(in_fence, np.flatnonzero(np.isin(codes, zones)))
-    pos = np.full(areas.n, -1, dtype=np.int64)
+    zone = tu.zone
+    in_fence = tu.fence == fi
+    zones = np.unique(zone[in_fence & (zone >= 0)])
+    # the model's units: the fence's units plus every unit of a zone reaching into it
+    units = np.flatnonzero(in_fence | np.isin(zone, zones))
+    pos = np.full(zone.shape[0], -1, dtype=np.int64)
     pos[units] = np.arange(units.size)
-    lab = codes[units]
-    size = {int(z): int((lab == z).sum()) for z in zones}
-
-    # candidate zones per unit: its own and those of its neighbours inside the model
-    cand: list[list[int]] = []
-    edges: list[tuple[int, int]] = []
-    for a, u in enumerate(units):
-        nb = graph.neighbours(u)
-        nb = pos[nb[pos[nb] >= 0]]
-        zs = set(lab[nb][lab[nb] >= 0].tolist())
-        if lab[a] >= 0:
-            zs.add(int(lab[a]))
-        cand.append(sorted(zs))
-        edges.extend((a, int(b)) for b in nb if b > a)
+    lab = zone[units]
+    zpos = np.searchsorted(zones, lab)  # zone position per model unit (valid where lab >= 0)
+    size = np.bincount(zpos[lab >= 0], minlength=zones.size)
 
     m = cp_model.CpModel()
-    x = {(a, z): m.NewBoolVar(f"x_{a}_{z}") for a in range(units.size) for z in cand[a]}
+    # coverage: a unit without a zone lies in none of them
+    for _ in range(int((lab < 0).sum())):
+        m.AddExactlyOne([])
 
-    # the assignment is the lookup's: x[u, z] is 1 exactly when the lookup puts u in z
-    for (a, z), var in x.items():
-        m.Add(var == int(lab[a] == z))
-
-    # coverage: every unit lies in exactly one zone
-    for a in range(units.size):
-        m.AddExactlyOne([x[a, z] for z in cand[a]])
-
-    # fence: a zone reaching into this fence holds no unit of another fence
-    for (a, _z), var in x.items():
-        if fence[units[a]] != f:
-            m.Add(var == 0)
-
-    # bounds: each zone's counts lie within the tier's min and max
-    members: dict[int, list[int]] = {int(z): [] for z in zones}
-    for (a, z), _ in x.items():
-        members.setdefault(z, []).append(a)
-    counts = np.round(areas.counts[units] * scale).astype(np.int64)
+    # bounds: each zone's total is a variable within the tier's floor and ceiling
+    totals = np.zeros((zones.size, tu.counts.shape[1]), dtype=np.int64)
+    np.add.at(totals, zpos[lab >= 0], tu.counts[units[lab >= 0]])
     for c in range(len(bounds.count_names)):
-        lo, hi = bounds.lo[c], bounds.hi[c]
-        for z, ms in members.items():
-            total = sum(int(counts[a, c]) * x[a, z] for a in ms)
-            if np.isfinite(lo):
-                m.Add(total >= math.ceil(lo * scale - 1e-9))
-            if np.isfinite(hi):
-                m.Add(total <= math.floor(hi * scale + 1e-9))
-
-    # nesting: each zone lies in one zone of the tier above (p[z, P]: z lies in P)
-    if upper is not None:
-        parent = upper[units]
-        p: dict[tuple[int, int], cp_model.IntVar] = {}
-        for (a, z), var in x.items():
-            if parent[a] < 0:
+        lo, hi = bound_limits(bounds, c, scale)
+        if lo is None and hi is None:
+            continue
+        for z, value in enumerate(totals[:, c].tolist()):
+            low, high = (value if lo is None else lo), (value if hi is None else hi)
+            if low > high:
+                m.AddBoolOr([])  # a floor above the ceiling: no total fits
                 continue
-            key = (z, int(parent[a]))
-            if key not in p:
-                p[key] = m.NewBoolVar(f"p_{z}_{parent[a]}")
-            m.AddImplication(var, p[key])
-        for z in members:
-            m.Add(sum(v for (zz, _), v in p.items() if zz == z) <= 1)
+            m.Add(m.NewIntVar(low, high, f"t{c}_{z}") == value)
 
-    # contiguity, roots: exactly one root per zone, and a root lies in its zone
-    r = {(a, z): m.NewBoolVar(f"r_{a}_{z}") for (a, z) in x}
-    for (a, z), var in r.items():
-        m.AddImplication(var, x[a, z])
-    for z, ms in members.items():
-        m.AddExactlyOne([r[a, z] for a in ms])
+    # fence and nesting: one fence and one parent per zone, equal to every member's
+    for values, name in ((tu.fence, "fence"), (tu.parent, "parent")):
+        if values is None:
+            continue
+        v = values[units]
+        ok = lab >= 0
+        if name == "parent":
+            ok &= v >= 0  # a unit without a parent is the tier above's coverage break
+        distinct = np.unique(np.stack([zpos[ok], v[ok]], axis=1), axis=0)
+        var = [m.NewIntVar(0, max(int(values.max()), 0), f"{name}_{z}") for z in range(zones.size)]
+        for z, value in distinct.tolist():
+            m.Add(var[z] == value)
 
-    # contiguity, same-zone indicator per edge: y[e] = 1 only when both ends share a zone
-    y = []
-    for e, (a, b) in enumerate(edges):
-        ye = m.NewBoolVar(f"y_{e}")
-        cb = set(cand[b])
-        for z in cand[a]:
-            if z in cb:
-                m.AddBoolOr([ye.Not(), x[a, z].Not(), x[b, z]])
-            else:
-                m.AddBoolOr([ye.Not(), x[a, z].Not()])
-        y.append(ye)
+    # contiguity: flow from each zone's first unit reaches every member along its edges
+    edges, cap = _zone_edges(tu, units, pos, zpos, size)
+    roots = _first_of_zone(zpos, lab, zones.size)
+    is_root = np.zeros(units.size, dtype=np.int64)
+    is_root[roots] = 1
+    arcs = add_flow(m, units.size, edges, cap, is_root.tolist())
+    for key, value in _tree_hint(units.size, edges, roots).items():
+        m.AddHint(arcs[key], value)
 
-    # contiguity, flow capacity: (zone size - 1) on an arc whose ends share a zone, else 0
-    inflow: list[list] = [[] for _ in range(units.size)]
-    outflow: list[list] = [[] for _ in range(units.size)]
-    flow: dict[tuple[int, int], cp_model.IntVar] = {}
-    for e, (a, b) in enumerate(edges):
-        cap = max(size.get(int(lab[a]), 1), size.get(int(lab[b]), 1)) - 1
-        for s, t in ((a, b), (b, a)):
-            fl = m.NewIntVar(0, max(cap, 0), f"f_{s}_{t}")
-            m.Add(fl <= cap * y[e])
-            outflow[s].append(fl)
-            inflow[t].append(fl)
-            flow[s, t] = fl
-    n_arcs = len(flow)
-
-    # contiguity, conservation: a non-root consumes one unit; a root sends out size - 1
-    for a in range(units.size):
-        supply = sum(size.get(z, 1) * r[a, z] for z in cand[a])
-        m.Add(sum(inflow[a]) - sum(outflow[a]) == 1 - supply)
-
-    _hint_tree(m, lab, edges, r, flow)
-
-    solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = float(time_limit)
-    solver.parameters.num_workers = int(workers)
-    # the model is a plain flow check once x is fixed: symmetry detection and repeated
-    # presolve cost far more than the search (0.6 s of 0.65 s in trial runs)
-    solver.parameters.symmetry_level = 0
-    solver.parameters.max_presolve_iterations = 1
-    status = STATUS.get(solve_model(solver, m), "UNKNOWN")
+    s = solver(time_limit, workers)
+    # the model is a plain flow check once the assignment is fixed: symmetry detection
+    # and repeated presolve cost far more than the search
+    s.parameters.symmetry_level = 0
+    s.parameters.max_presolve_iterations = 1
+    status = _WORDS.get(verdict(solve_model(s, m)), "undecided")
     return Certificate(
-        fence=f,
-        tier=tier,
-        status=status,
-        seconds=time.perf_counter() - start,
-        n_zones=int(zones.size),
-        n_units=int(units.size),
-        n_arcs=n_arcs,
+        fence=f, tier=tier, status=status, seconds=time.perf_counter() - start,
+        n_zones=int(zones.size), n_units=int(units.size), n_arcs=len(arcs),
+        n_areas=int(units.size if tu.members is None else sum(tu.members[u].size for u in units)),
     )
 
 
-def _hint_tree(m: cp_model.CpModel, lab: np.ndarray, edges: list[tuple[int, int]], r: dict, flow: dict) -> None:
-    """Suggest a search start: each zone rooted at its first unit, flow along a
-    breadth-first tree of its edges. Only a hint: a zone in pieces leaves units the tree
-    never reaches, and the solver still has to prove the model infeasible on its own."""
-    nb: dict[int, list[int]] = {}
-    for a, b in edges:
-        if lab[a] == lab[b] and lab[a] >= 0:
-            nb.setdefault(a, []).append(b)
-            nb.setdefault(b, []).append(a)
-    seen = np.zeros(lab.shape[0], dtype=bool)
-    hinted_root = set()
-    for a in range(lab.shape[0]):
-        if lab[a] < 0 or seen[a] or int(lab[a]) in hinted_root:
-            continue
-        z = int(lab[a])
-        hinted_root.add(z)
-        m.AddHint(r[a, z], 1)
-        order, parent = [a], {a: -1}
-        seen[a] = True
-        for u in order:
-            for v in nb.get(u, []):
-                if not seen[v]:
-                    seen[v] = True
-                    parent[v] = u
-                    order.append(v)
-        below = {u: 1 for u in order}
-        for u in reversed(order[1:]):
-            below[parent[u]] += below[u]
-            m.AddHint(flow[parent[u], u], below[u])
+def _zone_edges(
+    tu: _TierUnits, units: np.ndarray, pos: np.ndarray, zpos: np.ndarray, size: np.ndarray
+) -> tuple[list[tuple[int, int]], list[int]]:
+    """Edges between model units of one zone (each once) and their capacity: zone size - 1."""
+    deg = np.diff(tu.indptr)[units]
+    rows = np.repeat(np.arange(units.size), deg)
+    at = np.arange(rows.size) - np.repeat(np.cumsum(deg) - deg, deg) + np.repeat(tu.indptr[units], deg)
+    cols = pos[tu.indices[at]]
+    keep = cols > rows
+    a, b = rows[keep], cols[keep]
+    cap = size[zpos[a]] - 1
+    return list(zip(a.tolist(), b.tolist())), cap.tolist()
+
+
+def _first_of_zone(zpos: np.ndarray, lab: np.ndarray, n_zones: int) -> np.ndarray:
+    """The first model unit of every zone: its fixed root."""
+    idx = np.flatnonzero(lab >= 0)
+    _, first = np.unique(zpos[idx], return_index=True)
+    return idx[first]
+
+
+def _tree_hint(n: int, edges: list[tuple[int, int]], roots: np.ndarray) -> dict[tuple[int, int], int]:
+    """A search start: flow along a breadth-first tree of each zone from its root.
+
+    Only a hint: a zone in pieces leaves units the tree never reaches, and the solver
+    still has to prove the model infeasible on its own. One search over all zones at
+    once, from a virtual node joined to every root.
+    """
+    if not edges:
+        return {}
+    e = np.asarray(edges, dtype=np.int64)
+    hub = n
+    i = np.concatenate([e[:, 0], np.full(roots.size, hub)])
+    j = np.concatenate([e[:, 1], roots])
+    adj = coo_matrix((np.ones(i.size), (i, j)), shape=(n + 1, n + 1)).tocsr()
+    order, pred = breadth_first_order(adj, hub, directed=False, return_predecessors=True)
+    below = np.ones(n + 1, dtype=np.int64)
+    for u in order[:0:-1].tolist():
+        p = pred[u]
+        if p != hub:
+            below[p] += below[u]
+    hint = {(a, b): 0 for a, b in edges}
+    hint.update({(b, a): 0 for a, b in edges})
+    for u in order[1:].tolist():
+        p = int(pred[u])
+        if p != hub:
+            hint[p, u] = int(below[u])
+    return hint

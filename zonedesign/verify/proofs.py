@@ -29,7 +29,16 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from zonedesign.records import Problem
-from zonedesign.verify.certificate import STATUS, integer_scale
+from zonedesign.verify.cpsat import (
+    add_bounds,
+    add_coverage,
+    add_flow_contiguity,
+    holders_of,
+    integer_scale,
+    scaled_counts,
+    solver,
+    verdict,
+)
 from zonedesign.verify.solving import solve_model
 
 
@@ -195,7 +204,7 @@ def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, wo
     b = problem.bounds
     counts_f = np.asarray(problem.counts, dtype=np.float64).reshape(n, -1)
     scale = integer_scale(counts_f)
-    counts = np.round(counts_f * scale).astype(np.int64)
+    counts = scaled_counts(counts_f, scale)
     totals = counts_f.sum(axis=0)
     kmin, kmax = 1, n
     for c in range(len(b.count_names)):
@@ -212,8 +221,7 @@ def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, wo
     cand = [list(range(min(i, K - 1) + 1)) for i in range(n)]
 
     # coverage: every unit lies in exactly one zone
-    for i in range(n):
-        m.AddExactlyOne([x[i, z] for z in cand[i]])
+    add_coverage(m, cand, x)
 
     # opened[i, z]: zone z has a unit among 0..i
     opened: dict[tuple[int, int], cp_model.IntVar] = {}
@@ -246,63 +254,25 @@ def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, wo
     used = [opened[n - 1, z] for z in range(K)]
 
     # bounds: a used zone's counts lie within [min, max]; an unused zone is empty
-    for c in range(len(b.count_names)):
-        lo = math.ceil(b.lo[c] * scale - 1e-9) if np.isfinite(b.lo[c]) else None
-        hi = math.floor(b.hi[c] * scale + 1e-9) if np.isfinite(b.hi[c]) else None
-        for z in range(K):
-            total = sum(int(counts[i, c]) * x[i, z] for i in range(z, n))
-            if lo is not None:
-                m.Add(total >= lo * used[z])
-            if hi is not None:
-                m.Add(total <= hi * used[z])
+    add_bounds(m, counts, b, scale, x, holders_of(x), dict(enumerate(used)))
 
     # zone count: arithmetic already bounds it from below
     m.Add(sum(used) >= kmin)
 
-    # contiguity, same-zone indicator per edge: flow may run only inside one zone
-    y = []
-    for e, (a, c) in enumerate(edges):
-        ye = m.NewBoolVar(f"y_{e}")
-        cc = set(cand[c])
-        for z in cand[a]:
-            if z in cc:
-                m.AddBoolOr([ye.Not(), x[a, z].Not(), x[c, z]])
-            else:
-                m.AddBoolOr([ye.Not(), x[a, z].Not()])
-        ca = set(cand[a])
-        for z in cand[c]:
-            if z not in ca:
-                m.AddBoolOr([ye.Not(), x[c, z].Not()])
-        y.append(ye)
+    # contiguity: flow from each zone's root reaches every unit of the zone
+    add_flow_contiguity(m, edges, cand, x, root)
 
-    # contiguity, flow: every non-root unit takes in at least one unit of flow from its zone
-    cap = n - 1
-    inflow: list[list] = [[] for _ in range(n)]
-    outflow: list[list] = [[] for _ in range(n)]
-    for e, (a, c) in enumerate(edges):
-        for s, t in ((a, c), (c, a)):
-            fl = m.NewIntVar(0, cap, f"f_{s}_{t}")
-            m.Add(fl <= cap * y[e])
-            outflow[s].append(fl)
-            inflow[t].append(fl)
-    for i in range(n):
-        is_root = sum(root[i, z] for z in cand[i])
-        m.Add(sum(inflow[i]) - sum(outflow[i]) >= 1 - (cap + 1) * is_root)
-
-    solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = float(time_limit)
-    solver.parameters.num_workers = int(workers)
-    status = STATUS.get(solve_model(solver, m), "UNKNOWN")
+    status = verdict(solve_model(solver(time_limit, workers), m))
     seconds = time.perf_counter() - start
     figures = {"units": n, "max_zones": K, "min_zones": kmin, "time_limit": time_limit}
     zones = f"{kmin} zones" if kmin == K else f"{kmin} to {K} zones"
-    if status == "INFEASIBLE":
+    if status == "infeasible":
         text = (
             f"{label} cannot be divided into contiguous zones that meet the tier's bounds: CP-SAT "
             f"proved that no division of its {n} units into {zones} works"
         )
         return Proof(fence, tier, "cp-sat", text, figures, "INFEASIBLE", seconds)
-    if status in ("OPTIMAL", "FEASIBLE"):
+    if status in ("optimal", "feasible"):
         return None
     text = (
         f"{label} is too large to prove within {time_limit:g} s: CP-SAT neither found a valid "

@@ -48,8 +48,18 @@ from scipy.sparse.csgraph import connected_components
 
 from zonedesign.records import Areas, Bounds, Graph, Problem
 from zonedesign.rules import TierRules
-from zonedesign.verify.certificate import integer_scale
 from zonedesign.verify.checks import audit, encode_labels, tier_bounds, zone_members
+from zonedesign.verify.cpsat import (
+    add_bounds,
+    add_coverage,
+    add_flow_contiguity,
+    add_one_fence,
+    add_roots,
+    add_used,
+    holders_of,
+    integer_scale,
+    scaled_counts,
+)
 from zonedesign.verify.proofs import arithmetic_proof
 from zonedesign.verify.solving import solve_model
 
@@ -162,7 +172,7 @@ def minimal_repair(
         workers=workers,
         max_candidates=max_candidates,
     )
-    ctx.counts = np.round(areas.counts * ctx.scale).astype(np.int64)
+    ctx.counts = scaled_counts(areas.counts, ctx.scale)
     ctx.broken, ctx.hot = _faults(ctx, report, names)
     ctx.fence_broken = [set() for _ in tiers]
     ctx.nest_broken = [set() for _ in tiers]
@@ -520,51 +530,26 @@ class _ClusterModel:
             x.append(xt)
 
             # coverage: every unit lies in exactly one zone of the tier; fixed pieces keep theirs
-            for u, zs in enumerate(ct):
-                m.AddExactlyOne([xt[u, z] for z in zs])
+            add_coverage(m, ct, xt)
 
             # used zones: a zone is used when it holds a unit; new zones open in order
-            holders: dict[int, list[int]] = {}
-            for (u, z) in xt:
-                holders.setdefault(z, []).append(u)
-            used = {}
-            for z, us in holders.items():
-                used[z] = m.NewBoolVar(f"u{t}_{z}")
-                for u in us:
-                    m.AddImplication(xt[u, z], used[z])
-                m.AddBoolOr([xt[u, z] for u in us]).OnlyEnforceIf(used[z])
+            holders = holders_of(xt)
+            used = add_used(m, xt, holders, tag=str(t))
             for s0, s1 in zip(spare_codes, spare_codes[1:]):
                 if s0 in used and s1 in used:
                     m.AddImplication(used[s1], used[s0])
 
             # bounds: every zone that can change meets the tier's min and max when used
-            b = ctx.bounds[t]
-            unit_counts = np.zeros((len(tu.members), ctx.counts.shape[1]), dtype=np.int64)
-            for u, ms in enumerate(tu.members):
-                unit_counts[u] = ctx.counts[ms].sum(axis=0)
-            for c in range(len(b.count_names)):
-                lo = math.ceil(b.lo[c] * ctx.scale - 1e-9) if np.isfinite(b.lo[c]) else None
-                hi = math.floor(b.hi[c] * ctx.scale + 1e-9) if np.isfinite(b.hi[c]) else None
-                for z, us in holders.items():
-                    total = sum(int(unit_counts[u, c]) * xt[u, z] for u in us)
-                    if lo is not None:
-                        m.Add(total >= lo * used[z])
-                    if hi is not None:
-                        m.Add(total <= hi * used[z])
+            unit_counts = np.stack([ctx.counts[ms].sum(axis=0) for ms in tu.members]) if tu.members else \
+                np.zeros((0, ctx.counts.shape[1]), dtype=np.int64)
+            add_bounds(m, unit_counts, ctx.bounds[t], ctx.scale, xt, holders, used)
 
             # fences: a zone holds units of one fence only
-            for z, us in holders.items():
-                codes_f = sorted({f for u in us for f in tu.fences[u]})
-                if len(codes_f) < 2:
-                    continue
-                q = {f: m.NewBoolVar(f"q{t}_{z}_{f}") for f in codes_f}
-                for u in us:
-                    for f in tu.fences[u]:
-                        m.AddImplication(xt[u, z], q[f])
-                m.AddAtMostOne(list(q.values()))
+            add_one_fence(m, tu.fences, xt, holders, tag=str(t))
 
             # contiguity: flow inside each zone from its root reaches every other member
-            _add_flow_contiguity(m, t, tu.edges, ct, xt, used, holders)
+            root = add_roots(m, xt, holders, used, tag=str(t))
+            add_flow_contiguity(m, tu.edges, ct, xt, root, tag=str(t))
 
         # nesting: each zone's areas share one zone of the tier above
         for t in range(T - 1):
@@ -862,46 +847,3 @@ def _nearby_zones(graph: Graph, codes: np.ndarray, mov: np.ndarray, zones: set[i
         near = {int(codes[v]) for v in seen if codes[v] >= 0 and int(codes[v]) in zones}
         out[int(a)] = near
     return out
-
-
-def _add_flow_contiguity(
-    m: cp_model.CpModel,
-    t: int,
-    edges: list[tuple[int, int]],
-    cand: list[list[int]],
-    x: dict[tuple[int, int], cp_model.IntVar],
-    used: dict[int, cp_model.IntVar],
-    holders: dict[int, list[int]],
-) -> None:
-    """Single-commodity flow contiguity over the movable units of one tier (Shirabe 2005)."""
-    n = len(cand)
-    cap = max(n - 1, 0)
-    # roots: one per used zone, inside the zone
-    root = {key: m.NewBoolVar(f"r{t}_{key[0]}_{key[1]}") for key in x}
-    for key, r in root.items():
-        m.AddImplication(r, x[key])
-    for z, us in holders.items():
-        m.Add(sum(root[u, z] for u in us) == used[z])
-    inflow: list[list] = [[] for _ in range(n)]
-    outflow: list[list] = [[] for _ in range(n)]
-    for a, b in edges:
-        # same-zone indicator: flow may cross this edge only inside one zone
-        y = m.NewBoolVar(f"y{t}_{a}_{b}")
-        ca, cb = set(cand[a]), set(cand[b])
-        for z in ca | cb:
-            if z in ca and z in cb:
-                m.AddBoolOr([y.Not(), x[a, z].Not(), x[b, z]])
-                m.AddBoolOr([y.Not(), x[b, z].Not(), x[a, z]])
-            elif z in ca:
-                m.AddBoolOr([y.Not(), x[a, z].Not()])
-            else:
-                m.AddBoolOr([y.Not(), x[b, z].Not()])
-        for s, d in ((a, b), (b, a)):
-            f = m.NewIntVar(0, cap, f"f{t}_{s}_{d}")
-            m.Add(f <= cap * y)
-            outflow[s].append(f)
-            inflow[d].append(f)
-    # conservation: every non-root unit takes in at least one unit of flow
-    for a in range(n):
-        is_root = sum(root[a, z] for z in cand[a])
-        m.Add(sum(inflow[a]) - sum(outflow[a]) >= 1 - (cap + 1) * is_root)
