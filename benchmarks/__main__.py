@@ -11,7 +11,7 @@ import sys
 import time
 from pathlib import Path
 
-NAMES = ("quality", "speed", "scale", "baseline", "redraw")
+NAMES = ("quality", "speed", "scale", "baseline", "redraw", "certificate")
 
 
 def main(argv: list[str] | None = None) -> int:

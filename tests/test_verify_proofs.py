@@ -60,8 +60,11 @@ def brute_force_feasible(p: Problem) -> bool:
 def test_fence_total_below_the_floor():
     proof = prove_infeasible(problem(grid_graph(1, 3), [50, 60, 61], [400], [1000]), "D1", "block")
     assert proof is not None and proof.proven and proof.kind == "arithmetic"
-    assert proof.text == "fence D1 has 171 households; the tier floor is 400, so no valid zone exists"
+    # one zone of all three units is the largest any zone can be (common practice)
+    assert proof.text == ("fence D1 has 171 households; the tier floor is 400, so no valid zone exists; "
+                          "the highest floor that could be met in fence D1 is at most 171 households")
     assert proof.figures["total"] == 171 and proof.figures["floor"] == 400
+    assert proof.figures["highest_floor"] == 171
 
 
 def test_island_below_the_floor():
@@ -72,6 +75,8 @@ def test_island_below_the_floor():
     assert proof.text.startswith("the island of 2 units in fence D2 (first: c, d) has 30 households; "
                                  "the tier floor is 50")
     assert proof.figures["island"] == ["c", "d"]
+    # a zone cannot leave its island, so the island of 30 caps every floor (common practice)
+    assert proof.figures["highest_floor"] == 30 and proof.text.endswith("is at most 30 households")
 
 
 def test_total_between_one_ceiling_and_two_floors():
@@ -79,8 +84,11 @@ def test_total_between_one_ceiling_and_two_floors():
     assert proof.kind == "arithmetic"
     assert proof.text == (
         "fence D3 has 520 households: too many for one zone (the ceiling is 500) and too few for "
-        "two (two floors of 400 make 800), so no valid zoning exists"
+        "two (two floors of 400 make 800), so no valid zoning exists; the highest floor that "
+        "could be met in fence D3 is at most 260 households"
     )
+    # 520 needs two zones under a ceiling of 500, and the smaller of two holds at most 260 (common practice)
+    assert proof.figures["highest_floor"] == 260
 
 
 def test_total_between_k_ceilings_and_k_plus_one_floors():
@@ -157,3 +165,28 @@ def test_cp_sat_proof_on_a_path_with_no_contiguous_split():
     proof = prove_infeasible(p, "P", "block")
     assert proof is not None and proof.kind == "cp-sat" and proof.proven
     assert not brute_force_feasible(p)
+
+
+def test_fence_proofs_name_area_ids_and_zone_codes():
+    from zonedesign.breakproofs import explain_breaks
+    from zonedesign.records import Areas
+    from zonedesign.rules import TierRules
+
+    graph = grid_graph(1, 4)
+    n = graph.n
+    areas = Areas(
+        ids=np.array(["36007014300", "36007014400", "36007014500", "36007014600"], dtype=object),
+        counts=np.array([[12_221.0], [300.0], [400.0], [500.0]]), count_names=("POP8",),
+        attrs=np.zeros((n, 0)), attr_names=(), weight=np.ones(n), area=np.ones(n),
+        perimeter=np.full(n, 4.0), fence=np.array(["36007"] * n, dtype=object),
+    )
+    lookup = {"tier1": np.array(["g1", "g2", "g2", "g3"], dtype=object),
+              "tier2": np.array(["c1"] * n, dtype=object)}
+    tiers = [TierRules("tier1", min={"POP8": 100}, max={"POP8": 10_000}),
+             TierRules("tier2", min={"POP8": 100}, max={"POP8": 12_000})]
+    breaks = [{"tier": "tier1", "fence": "36007"}, {"tier": "tier2", "fence": "36007"}]
+    first, second = explain_breaks(areas, graph, tiers, lookup, breaks, time_limit=5)
+    # the messages name the input's own area ids and zone codes, never positions (issue 16 item 8)
+    assert first.text == ("area 36007014300 alone has 12,221 POP8, above the tier ceiling of 10,000; "
+                          "no zone can hold it")
+    assert second.text == "zone g1 alone has 12,221 POP8, above the tier ceiling of 12,000; no zone can hold it"

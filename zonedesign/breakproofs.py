@@ -58,6 +58,20 @@ def units_problem(
     )
 
 
+def unit_names(
+    areas: Areas, tiers: Sequence[TierRules], lookup: Mapping[str, np.ndarray], tier_name: str, fence: str
+) -> list[str]:
+    """What a proof calls the units of `units_problem`: "area <id>" or "zone <code>" of the tier below."""
+    t = [x.name for x in tiers].index(tier_name)
+    idx = np.flatnonzero(areas.fence == fence)
+    if t == 0:
+        return [f"area {a}" for a in areas.ids[idx]]
+    lower = np.asarray(lookup[tiers[t - 1].name], dtype=object)[idx]
+    codes, _ = compact_labels(lower)
+    _, first = np.unique(codes, return_index=True)  # the first member of each unit
+    return [f"zone {z}" for z in lower[first]]
+
+
 def explain_breaks(
     areas: Areas,
     graph: Graph,
@@ -79,7 +93,8 @@ def explain_breaks(
             continue
         seen.add(key)
         problem = units_problem(areas, graph, tiers, lookup, b["tier"], b["fence"])
-        proof = prove_infeasible(problem, b["fence"], b["tier"], time_limit=time_limit)
+        ids = unit_names(areas, tiers, lookup, b["tier"], b["fence"])
+        proof = prove_infeasible(problem, b["fence"], b["tier"], time_limit=time_limit, unit_ids=ids)
         if proof is None:
             out.append({"tier": b["tier"], "fence": b["fence"], "status": "feasible", "text": NO_PROOF})
         else:

@@ -105,6 +105,24 @@ def _why_no_count(where: str, total: float, name: str, lo: float, hi: float) -> 
     )
 
 
+def highest_floor(totals: Sequence[float], hi: float, whole: bool = True) -> float:
+    """The highest floor any zoning of these islands could meet, by arithmetic alone.
+
+    An island of total T needs at least ceil(T / ceiling) zones, so its smallest zone holds
+    at most T / ceil(T / ceiling); the fence's floor can be no higher than the least of
+    these over its islands (rounded down when counts are whole numbers).
+    """
+    best = math.inf
+    for total in totals:
+        k = 1 if not np.isfinite(hi) or hi <= 0 else max(1, math.ceil(total / hi - 1e-9))
+        best = min(best, total / k)
+    return float(math.floor(best + 1e-9)) if whole and np.isfinite(best) else float(best)
+
+
+def _floor_note(label: str, name: str, value: float) -> str:
+    return f"; the highest floor that could be met in {label} is at most {_fmt(value)} {name}"
+
+
 def arithmetic_proof(
     problem: Problem, fence: str = "", tier: str = "", *, unit_ids: Sequence[str] | None = None
 ) -> Proof | None:
@@ -119,11 +137,24 @@ def arithmetic_proof(
     def found(text: str, figures: dict) -> Proof:
         return Proof(fence, tier, "arithmetic", text, figures, "INFEASIBLE", time.perf_counter() - start)
 
+    i, j, _ = problem.graph.edges()
+    adj = coo_matrix((np.ones(i.size), (i, j)), shape=(problem.n, problem.n))
+    n_comp, comp = connected_components(adj, directed=False)
+    whole = bool(np.all(counts == np.round(counts)))
+
+    def floor_found(text: str, figures: dict, c: int) -> Proof:
+        if figures.get("total", math.inf) >= figures.get("floor", -math.inf) and "zones_too_few" not in figures:
+            return found(text, figures)  # not a floor that fails
+        island_totals = np.bincount(comp, weights=counts[:, c], minlength=n_comp)
+        top = highest_floor(island_totals.tolist(), b.hi[c], whole)
+        figures["highest_floor"] = top
+        return found(text + _floor_note(label, names[c], top), figures)
+
     totals = counts.sum(axis=0)
     for c, name in enumerate(names):
         why = _why_no_count(label, totals[c], name, b.lo[c], b.hi[c])
         if why:
-            return found(*why)
+            return floor_found(*why, c)
     for c, name in enumerate(names):
         if np.isfinite(b.hi[c]):
             big = np.flatnonzero(counts[:, c] > b.hi[c])
@@ -136,9 +167,6 @@ def arithmetic_proof(
                 return found(
                     text, {"count": name, "unit": ids[i], "value": float(counts[i, c]), "ceiling": float(b.hi[c])}
                 )
-    i, j, _ = problem.graph.edges()
-    adj = coo_matrix((np.ones(i.size), (i, j)), shape=(problem.n, problem.n))
-    n_comp, comp = connected_components(adj, directed=False)
     if n_comp > 1:
         for p in range(n_comp):
             members = np.flatnonzero(comp == p)
@@ -151,7 +179,7 @@ def arithmetic_proof(
                 if why:
                     text, figures = why
                     figures.update(island_units=len(members), island=[ids[m] for m in members[:10]])
-                    return found(text + "; zones cannot leave the island", figures)
+                    return floor_found(text + "; zones cannot leave the island", figures, c)
     groups = [np.arange(problem.n)] if n_comp == 1 else [np.flatnonzero(comp == p) for p in range(n_comp)]
     for members in groups:
         ranges = {
