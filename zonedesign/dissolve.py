@@ -40,11 +40,35 @@ def dissolve(geometry: gpd.GeoSeries, labels: np.ndarray) -> gpd.GeoDataFrame:
 def zone_layers(
     geometry: gpd.GeoSeries, lookup: Mapping[str, np.ndarray], tables: Mapping[str, pd.DataFrame]
 ) -> dict[str, gpd.GeoDataFrame]:
-    """One layer per tier: dissolved polygon plus the zone table's figures."""
+    """One layer per tier: dissolved polygon plus the zone table's figures.
+
+    Tiers come bottom first; a nested tier is dissolved from the tier below's polygons
+    (far fewer pieces than its areas), a tier whose lower zones straddle two of its zones
+    from the areas again.
+    """
     layers = {}
+    below: tuple[np.ndarray, gpd.GeoDataFrame] | None = None
     for name, labels in lookup.items():
-        shapes = dissolve(geometry, labels)
+        labels = np.asarray(labels, dtype=object)
+        parents = None if below is None else parent_of_zones(below[0], labels)
+        if parents is None:
+            shapes = dissolve(geometry, labels)
+        else:
+            shapes = dissolve(below[1].geometry, parents)
+        below = (labels, shapes)
         table = tables[name]
         merged = shapes.merge(table, on="zone", how="left", validate="one_to_one")
         layers[name] = gpd.GeoDataFrame(merged, geometry="geometry", crs=geometry.crs)
     return layers
+
+
+def parent_of_zones(lower: np.ndarray, upper: np.ndarray) -> np.ndarray | None:
+    """The upper zone id of every lower zone, in the lower zones' order of first appearance,
+    or None when some lower zone lies in two upper zones (then nothing can be built on it)."""
+    codes, _ = pd.factorize(np.asarray(lower, dtype=object), sort=False)
+    pairs = pd.DataFrame({"z": codes, "p": pd.factorize(np.asarray(upper, dtype=object), sort=False)[0]})
+    pairs = pairs.drop_duplicates()
+    if pairs["z"].duplicated().any() or (pairs["z"] < 0).any():
+        return None
+    _, first = np.unique(codes, return_index=True)
+    return np.asarray(upper, dtype=object)[first]

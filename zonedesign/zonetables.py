@@ -69,7 +69,11 @@ def zone_table(
     df["n_areas"] = np.bincount(codes, minlength=k)
     df["n_units"] = df["n_areas"] if units_per_zone is None else units_per_zone
     df["area_km2"] = area / 1e6
-    breaks = np.array([bound_breaks(sums[z : z + 1], zone_bounds[z])[0] for z in range(k)]) if k else np.zeros(0)
+    # zones of one fence share its bounds: one call per fence, not per zone
+    breaks = np.zeros(k)
+    for f, b in in_fence.items():
+        at = zone_fence == f
+        breaks[at] = bound_breaks(sums[at], b)
     df["bound_break"] = breaks > 0
     df["breaks"] = [describe_breaks(sums[z], zone_bounds[z]) if breaks[z] > 0 else "" for z in range(k)]
     if parent is not None:

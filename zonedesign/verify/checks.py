@@ -28,13 +28,20 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
 from zonedesign import measures
 from zonedesign.errors import InputError
 from zonedesign.records import Areas, Bounds, Graph
 from zonedesign.rules import TierRules, fence_groups
+from zonedesign.verify.labels import (
+    TierLabels,
+    encode_labels,
+    is_null,
+    tier_bounds,
+    zone_members,
+    zone_parts,
+)
+from zonedesign.verify.zonefigures import attribute_kind, tier_summary, zone_measures, zone_outliers
 
 KINDS = ("coverage", "nesting", "contiguity", "fence", "bounds")
 # the rules the CP-SAT certificate encodes, per fence and tier
@@ -135,85 +142,6 @@ class AuditResult:
         }
 
 
-# ---------------------------------------------------------------- label helpers
-
-
-@dataclass(frozen=True)
-class TierLabels:
-    """One tier's zone ids as integer codes: codes[i] in 0..k-1, -1 where the area has none."""
-
-    codes: np.ndarray
-    names: np.ndarray  # zone id per code (str)
-
-    @property
-    def k(self) -> int:
-        return int(self.names.shape[0])
-
-
-def is_null(value: object) -> bool:
-    if value is None:
-        return True
-    if isinstance(value, float) and math.isnan(value):
-        return True
-    if value is pd.NA or value is pd.NaT:
-        return True
-    return isinstance(value, str) and value.strip() == ""
-
-
-def encode_labels(values: Sequence | np.ndarray) -> TierLabels:
-    """Zone ids (any hashable, nulls allowed) to codes ordered by first appearance."""
-    values = np.asarray(values, dtype=object)
-    null = np.fromiter((is_null(v) for v in values), dtype=bool, count=values.shape[0])
-    text = np.array([str(v) for v in values], dtype=object)
-    codes = np.full(values.shape[0], -1, dtype=np.int64)
-    if (~null).any():
-        uniq, first, inv = np.unique(text[~null].astype(str), return_index=True, return_inverse=True)
-        rank = np.empty(uniq.shape[0], dtype=np.int64)
-        order = np.argsort(first, kind="stable")
-        rank[order] = np.arange(uniq.shape[0])
-        codes[~null] = rank[inv.reshape(-1)]
-        names = np.array(uniq[order], dtype=object)
-    else:
-        names = np.zeros(0, dtype=object)
-    return TierLabels(codes=codes, names=names)
-
-
-def tier_bounds(tier: TierRules, count_names: Sequence[str]) -> Bounds:
-    """The tier's min/max/target as a Bounds record aligned to `count_names`."""
-    count_names = tuple(count_names)
-    c = len(count_names)
-    lo, hi, target = np.full(c, -np.inf), np.full(c, np.inf), np.full(c, np.nan)
-    for key, table, out in (("min", tier.min, lo), ("max", tier.max, hi), ("target", tier.target, target)):
-        for name, value in table.items():
-            if name not in count_names:
-                raise InputError(
-                    f"{key}.{name} names no count column (counts are {', '.join(count_names) or 'none'})",
-                    where=f"tier {tier.name!r}",
-                )
-            out[count_names.index(name)] = float(value)
-    return Bounds(count_names=count_names, lo=lo, hi=hi, target=target)
-
-
-def zone_members(codes: np.ndarray, k: int) -> list[np.ndarray]:
-    """Area positions of every zone 0..k-1 (ascending)."""
-    valid = np.flatnonzero(codes >= 0)
-    order = valid[np.argsort(codes[valid], kind="stable")]
-    cuts = np.searchsorted(codes[order], np.arange(k + 1))
-    return [order[cuts[z] : cuts[z + 1]] for z in range(k)]
-
-
-def zone_parts(graph: Graph, codes: np.ndarray) -> np.ndarray:
-    """Component id per area on the graph keeping only edges inside one zone (-1: no zone)."""
-    i, j, _ = graph.edges()
-    keep = (codes[i] == codes[j]) & (codes[i] >= 0)
-    n = codes.shape[0]
-    adj = coo_matrix((np.ones(int(keep.sum())), (i[keep], j[keep])), shape=(n, n))
-    _, comp = connected_components(adj, directed=False)
-    comp = comp.astype(np.int64)
-    comp[codes < 0] = -1
-    return comp
-
-
 def _fence_set(codes: np.ndarray) -> tuple[str, ...]:
     return tuple(sorted({str(c) for c in codes}))
 
@@ -312,10 +240,10 @@ def audit(
     zones, summaries, outliers = {}, {}, []
     for k, t in enumerate(tiers):
         upper = encoded[tiers[k + 1].name] if k + 1 < len(tiers) else None
-        frame = _zone_measures(areas.in_tier(t.name), graph, t, encoded[t.name], upper, parts[t.name], kinds)
+        frame = zone_measures(areas.in_tier(t.name), graph, t, encoded[t.name], upper, parts[t.name], kinds)
         zones[t.name] = frame
-        summaries[t.name] = _tier_summary(areas, t, encoded[t.name], kinds, frame)
-        outliers += _outliers(t, frame, areas.count_names)
+        summaries[t.name] = tier_summary(areas, t, encoded[t.name], kinds, frame)
+        outliers += zone_outliers(t, frame, areas.count_names)
     notes = []
     if any(v == "share" for v in kinds.values()):
         notes.append(SHARE_NOTE)
@@ -592,158 +520,5 @@ def _bounds(
                         f"{_fmt(bound)} by {_fmt(abs(excess))}",
                         fences=_fence_set(fence[m]),
                     )
-                )
-    return out
-
-
-# ---------------------------------------------------------------- measures
-
-
-def attribute_kind(areas: Areas, name: str, given: Mapping[str, str] | None = None) -> str:
-    """How an attribute's homogeneity is measured: "count", "share" or "value".
-
-    count: whole numbers between 0 and the area's weight (people with a trait out of the
-           weight's total) -> intra-area correlation;
-    share: values in [0, 1] with weights above 1 -> intra-area correlation of share*weight
-           trait counts out of weight totals;
-    value: anything else -> weighted within-zone variance.
-    """
-    if given and name in given:
-        kind = given[name]
-        if kind not in ("count", "share", "value"):
-            raise InputError(f"attribute kind {kind!r} is not one of count, share, value", where=f"attribute {name!r}")
-        return kind
-    x = areas.attrs[:, areas.attr_names.index(name)]
-    w = areas.weight
-    finite = np.isfinite(x)
-    if not finite.all() or x.size == 0 or not (w > 1).any():
-        return "value"
-    if np.all(x == np.round(x)) and np.all(x >= 0) and np.all(x <= w) and x.max() > 1:
-        return "count"
-    if np.all((x >= 0) & (x <= 1)):
-        return "share"
-    return "value"
-
-
-def _traits(areas: Areas, name: str, kind: str) -> tuple[np.ndarray, np.ndarray]:
-    x = areas.attrs[:, areas.attr_names.index(name)].astype(np.float64)
-    w = areas.weight.astype(np.float64)
-    return (x * w, w) if kind == "share" else (x, w)
-
-
-def _zone_measures(
-    areas: Areas,
-    graph: Graph,
-    tier: TierRules,
-    tl: TierLabels,
-    upper: TierLabels | None,
-    comp: np.ndarray,
-    kinds: dict[str, str],
-) -> pd.DataFrame:
-    k = tl.k
-    # areas without a zone go to a dummy zone k so the per-zone sums stay aligned
-    lab = np.where(tl.codes >= 0, tl.codes, k)
-    members = zone_members(tl.codes, k)
-    bounds = tier_bounds(tier, areas.count_names)
-    frame = pd.DataFrame({"zone": tl.names.astype(str)})
-    frame["areas"] = np.bincount(lab, minlength=k + 1)[:k]
-    fence = areas.fence.astype(str)
-    frame["fences"] = [";".join(sorted(set(fence[m]))) for m in members]
-    if upper is not None:
-        frame["parent"] = [
-            ";".join(sorted({str(upper.names[p]) for p in upper.codes[m] if p >= 0})) for m in members
-        ]
-    frame["parts"] = [int(np.unique(comp[m]).size) for m in members]
-    sums = measures.zone_sums(lab, k + 1, areas.counts)[:k]
-    for c, name in enumerate(areas.count_names):
-        frame[name] = sums[:, c]
-    for c, name in enumerate(areas.count_names):
-        t = bounds.target[c]
-        if np.isfinite(t) and t != 0:
-            # (zone - target) / target, named as in the zone tables
-            frame[f"{name}_vs_target"] = (sums[:, c] - t) / t
-    area = measures.zone_sums(lab, k + 1, areas.area)[:k]
-    perimeter = measures.zone_perimeter(graph, lab, k + 1, areas.perimeter)[:k]
-    frame["area"] = area
-    frame["perimeter"] = perimeter
-    frame["polsby_popper"] = measures.polsby_popper(area, perimeter)
-    for a, name in enumerate(areas.attr_names):
-        kind = kinds[name]
-        if kind == "value":
-            x = areas.attrs[:, a].astype(np.float64)
-            w = areas.weight.astype(np.float64)
-            var = np.full(k, np.nan)
-            for z, m in enumerate(members):
-                wz, xz = w[m], x[m]
-                if wz.sum() > 0:
-                    mean = (wz * xz).sum() / wz.sum()
-                    var[z] = (wz * (xz - mean) ** 2).sum() / wz.sum()
-            frame[f"var_{name}"] = var
-        else:
-            trait, total = _traits(areas, name, kind)
-            frame[f"rho_{name}"] = [measures.intra_area_correlation(trait[m], total[m]) for m in members]
-    return frame
-
-
-def _tier_summary(
-    areas: Areas, tier: TierRules, tl: TierLabels, kinds: dict[str, str], frame: pd.DataFrame
-) -> dict:
-    """Tier figures; rho here takes the tier's zones as the groups (Tranmer & Steel 1998)."""
-    k = tl.k
-    lab = np.where(tl.codes >= 0, tl.codes, k)
-    rho = {}
-    for name in areas.attr_names:
-        if kinds[name] == "value":
-            continue
-        trait, total = _traits(areas, name, kinds[name])
-        rho[name] = measures.intra_area_correlation(
-            np.bincount(lab, weights=trait, minlength=k + 1)[:k],
-            np.bincount(lab, weights=total, minlength=k + 1)[:k],
-        )
-    pp = frame["polsby_popper"].to_numpy()
-    return {
-        "zones": k,
-        "areas": int((tl.codes >= 0).sum()),
-        "attribute_kinds": dict(kinds),
-        "rho": rho,
-        "polsby_popper_median": float(np.median(pp)) if pp.size else float("nan"),
-    }
-
-
-def _outliers(tier: TierRules, frame: pd.DataFrame, count_names: Sequence[str]) -> list[dict]:
-    out: list[dict] = []
-    if frame.empty:
-        return out
-    pp = frame["polsby_popper"].to_numpy()
-    cut = float(np.percentile(pp, 5))
-    for z, v in zip(frame["zone"], pp):
-        if v < cut:
-            out.append(
-                {
-                    "tier": tier.name,
-                    "zone": z,
-                    "measure": "polsby_popper",
-                    "value": float(v),
-                    "threshold": cut,
-                    "message": f"zone {z} of tier {tier.name} has Polsby-Popper {v:.3f}, below the tier's "
-                    f"5th percentile {cut:.3f}",
-                }
-            )
-    for name in count_names:
-        col = f"{name}_vs_target"
-        if col not in frame:
-            continue
-        for z, v in zip(frame["zone"], frame[col]):
-            if abs(v) > 0.5:
-                out.append(
-                    {
-                        "tier": tier.name,
-                        "zone": z,
-                        "measure": col,
-                        "value": float(v),
-                        "threshold": 0.5,
-                        "message": f"zone {z} of tier {tier.name} is {abs(v):.0%} "
-                        f"{'above' if v > 0 else 'below'} the {name} target",
-                    }
                 )
     return out
