@@ -7,8 +7,13 @@ separate code path so the checker can catch the optimiser's bugs.
     certificate.certify(areas, graph, labels, tiers)     -> list[Certificate]
     proofs.prove_infeasible(problem, fence, tier, ...)   -> Proof | None
     repair.minimal_repair(areas, graph, labels, tiers)   -> RepairResult
+    repair.repair_labelling(graph, counts, bounds, prev) -> LabelRepair (plain arrays)
     exact.solve_exact(problem, ...)                      -> ExactResult
     overlay.zones_from_layers(geometry, ids, layers, id) -> (labels, flags)
+
+The CP-SAT model blocks (assignment, bounds, fence, nesting, flow contiguity, scaling)
+live once, in `cpsat`; `labels` encodes zone ids, `zonefigures` measures zones for the
+audit, `repairmodel` states one repair cluster.
 
 Names are loaded on first use, so `import zonedesign.verify` stays light.
 """
@@ -29,6 +34,8 @@ _WHERE = {
     "minimal_repair": "repair",
     "repair_frame": "repair",
     "RepairResult": "repair",
+    "repair_labelling": "repair",
+    "LabelRepair": "repair",
     "Move": "repair",
     "solve_exact": "exact",
     "feasible_zones": "exact",
