@@ -19,18 +19,14 @@ import pandas as pd
 
 from zonedesign import __version__
 from zonedesign.errors import InputError
+from zonedesign.glossary import CAUTION
+from zonedesign.plain import plain
 from zonedesign.progress import Stages, TaskBars
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import Rules, load_rules
 
 AUDIT_REPAIR_WORK = 15.0  # CP-SAT deterministic time for audit --repair (about a minute on 2 cores)
 AUDIT_REPAIR_CAP = 600.0  # seconds: ends only a model far slower than expected
-
-CAUTION = (
-    "Thresholds must follow your own statistical-disclosure-control rules. These results "
-    "inform official statistics and need review by the responsible statistician before "
-    "publication."
-)
 
 Progress = Callable[[str], None]
 
@@ -332,7 +328,7 @@ def run_certificate(prep: Prepared, labels: Mapping[str, np.ndarray], tiers: lis
 
     with bar(progress, fence_tiers(prep.areas, tiers), "certificate (fence-tiers)") as b:
         certs = certify(prep.areas, prep.graph, labels, tiers, on_done=lambda _done, _total: b.update())
-    summary["certificate"] = [_jsonable(c) for c in certs]
+    summary["certificate"] = [plain(c) for c in certs]
     for c in certs:
         if c.undecided:
             say(progress, f"certificate undecided for tier {c.tier} fence {c.fence}: CP-SAT stopped at its time limit")
@@ -366,7 +362,7 @@ def finish(
     checked = run_audit(prep.areas, prep.graph, lookup, tiers)
     summary["audit"] = {
         "ok": bool(checked.ok),
-        "violations": [_jsonable(v) for v in _violations(checked)],
+        "violations": [plain(v) for v in _violations(checked)],
     }
     add_lock_checks(prep, lookup, summary)
     uncertified = False
@@ -441,7 +437,7 @@ def explain_breaks(prep: Prepared, lookup: Mapping[str, np.ndarray], breaks: lis
     """A plain-words proof for each fence whose breaks no zoning could avoid."""
     from zonedesign.breakproofs import explain_breaks as explain
 
-    return [_jsonable(p) for p in explain(prep.areas, prep.graph, prep.rules.tiers, lookup, breaks)]
+    return [plain(p) for p in explain(prep.areas, prep.graph, prep.rules.tiers, lookup, breaks)]
 
 
 def fence_units_problem(prep, lookup, tier_name, fence, bounds, tier):
@@ -453,24 +449,6 @@ def fence_units_problem(prep, lookup, tier_name, fence, bounds, tier):
 
 def _violations(checked: Any) -> list:
     return list(getattr(checked, "violations", []))
-
-
-def _jsonable(obj: Any) -> Any:
-    if hasattr(obj, "to_json"):
-        return obj.to_json()
-    if hasattr(obj, "__dataclass_fields__"):
-        return {k: _jsonable(getattr(obj, k)) for k in obj.__dataclass_fields__}
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [_jsonable(v) for v in obj.tolist()]
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, Path):
-        return str(obj)
-    return obj
 
 
 def _check_out(out: Path, overwrite: bool, inputs: list[Path] | None = None) -> None:
@@ -756,7 +734,7 @@ def sweep(
     summary = dict(head)
     summary["sweep"] = {
         "vary": [{"keys": list(a.keys), "values": [list(g) for g in a.values]} for a in axes],
-        "variants": _jsonable(table.to_dict("records")),
+        "variants": plain(table.to_dict("records")),
         "invalid": [{"variant": v.number, "name": v.name, "problem": v.error} for v in vs if v.rules is None],
     }
     summary["seconds"] = {"total": round(time.perf_counter() - t_start, 3)}
@@ -828,11 +806,11 @@ def audit(
     stage("checking coverage, nesting, contiguity, fences and bounds")
     checked = run_audit(prep.areas, prep.graph, labels, tiers, lookup_problems=problems)
     summary = base_summary(prep, "audit")
-    summary["audit"] = _jsonable(checked.to_json())
+    summary["audit"] = plain(checked.to_json())
     summary["audit"]["source"] = str(lookup or tiers_from)
     add_lock_checks(prep, labels, summary)
     if tiers_from is not None:
-        summary["audit"]["overlay"] = {"tolerance_share": tolerance, "flags": _jsonable(overlay_flags)}
+        summary["audit"]["overlay"] = {"tolerance_share": tolerance, "flags": plain(overlay_flags)}
     certs = []
     if certify:
         stage("building the CP-SAT certificate per fence and tier")

@@ -2,6 +2,13 @@
 
 from __future__ import annotations
 
+# said in every summary, report and README: zonedesign does not choose thresholds
+CAUTION = (
+    "Thresholds must follow your own statistical-disclosure-control rules. These results "
+    "inform official statistics and need review by the responsible statistician before "
+    "publication."
+)
+
 WORDS: tuple[tuple[str, str], ...] = (
     ("area", "one base polygon of the input, with its counts and attributes"),
     ("unit", "what a tier groups: areas for tier 1, zones of the tier below for the others"),

@@ -18,15 +18,17 @@ import numpy as np
 
 from zonedesign import interrupts
 from zonedesign.graph.collapse import collapse
+from zonedesign.graph.components import components
+from zonedesign.graph.links import fence_graph
 from zonedesign.locks import Locks, cut_graph, unit_codes, upper_key
 from zonedesign.measures import (
-    bound_breaks,
     compact_labels,
     score,
     standardise,
     zone_perimeter,
     zone_sums,
 )
+from zonedesign.plain import plain
 from zonedesign.records import Areas, Graph, Problem
 from zonedesign.rules import Rules, SearchRules, TierRules, tier_in_fence
 from zonedesign.zonetables import bounds_of as tier_bounds
@@ -105,13 +107,6 @@ class HierarchyResult:
 
 
 # ---------------------------------------------------------------- units
-
-
-def fence_graph(graph: Graph, fence: np.ndarray) -> Graph:
-    """Drop every edge between units of different fences."""
-    i, j, w = graph.edges()
-    keep = fence[i] == fence[j]
-    return Graph.from_edges(graph.n, i[keep], j[keep], w[keep])
 
 
 def base_units(areas: Areas, graph: Graph) -> Units:
@@ -210,7 +205,7 @@ def run_task(task: FenceTask) -> FenceResult:
             total=float(sol.score.total),
             terms=dict(sol.score.terms),
             seconds=time.perf_counter() - t0,
-            info=_plain(sol.info),
+            info=plain(sol.info),
         )
     except Exception as exc:  # noqa: BLE001 - one fence's failure must not lose the others
         interrupts.raise_if_fatal(exc)
@@ -239,27 +234,7 @@ def scored_result(task: FenceTask, labels: np.ndarray, t0: float, info: dict, er
 
 def fallback_labels(problem: Problem) -> np.ndarray:
     """One zone per connected component: keeps nesting valid when a fence fails."""
-    from scipy.sparse import csr_matrix
-    from scipy.sparse.csgraph import connected_components
-
-    g = problem.graph
-    m = csr_matrix((np.ones(g.indices.shape[0]), g.indices, g.indptr), shape=(g.n, g.n))
-    _, lab = connected_components(m, directed=False)
-    return compact_labels(lab)[0]
-
-
-def _plain(obj):
-    if isinstance(obj, dict):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, np.integer):
-        return int(obj)
-    if isinstance(obj, np.floating):
-        return float(obj)
-    if isinstance(obj, np.ndarray):
-        return obj.tolist()
-    return obj
+    return compact_labels(components(problem.graph)[1])[0]
 
 
 Executor = Callable[..., list[FenceResult]]
@@ -425,31 +400,3 @@ def with_locked_fences(
         )
         for fence, index in zip(fences, spans)
     ]
-
-
-def tier_breaks(result: TierResult, units: Units, tier: TierRules, count_names: Sequence[str]) -> list[dict]:
-    """Every zone of a tier that breaks a bound, with its figures."""
-    k = result.zone_ids.shape[0]
-    sums = zone_sums(result.zone_of_unit, k, units.counts)
-    out = []
-    for z in range(k):
-        b = tier_bounds(tier_in_fence(tier, str(result.zone_fence[z])), count_names)
-        if bound_breaks(sums[z : z + 1], b)[0] <= 0:
-            continue
-        figures = {}
-        for c, name in enumerate(count_names):
-            if sums[z, c] < b.lo[c] or sums[z, c] > b.hi[c]:
-                figures[name] = {
-                    "count": float(sums[z, c]),
-                    "min": None if not np.isfinite(b.lo[c]) else float(b.lo[c]),
-                    "max": None if not np.isfinite(b.hi[c]) else float(b.hi[c]),
-                }
-        out.append(
-            {
-                "tier": result.name,
-                "zone": str(result.zone_ids[z]),
-                "fence": str(result.zone_fence[z]),
-                "figures": figures,
-            }
-        )
-    return out

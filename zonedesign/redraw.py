@@ -28,14 +28,13 @@ step runs.
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
-from scipy.sparse import csr_matrix
-from scipy.sparse.csgraph import connected_components
 
 from zonedesign import interrupts
+from zonedesign.graph.components import components
 from zonedesign.hierarchy import (
     Executor,
     FenceResult,
@@ -83,7 +82,6 @@ class RedrawResult:
     tiers: list[RedrawTier]
     units: list[Units]
     new_areas: list[str]
-    gone_areas: list[str]
     seconds: dict[str, float]
     policy: str = "successor"
 
@@ -106,9 +104,7 @@ class RedrawTask(FenceTask):
 
 def _components(graph: Graph, members: np.ndarray) -> np.ndarray:
     """Component label of each unit in `members` on the induced subgraph."""
-    sub = graph.subgraph(members)
-    m = csr_matrix((np.ones(sub.indices.shape[0]), sub.indices, sub.indptr), shape=(sub.n, sub.n))
-    return connected_components(m, directed=False)[1]
+    return components(graph.subgraph(members))[1]
 
 
 def start_labels(
@@ -325,7 +321,6 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
     then the CP-SAT fewest-move repair of the previous zones is tried. Its budget is
     deterministic, so a redraw repeats exactly under any load.
     """
-    from zonedesign.records import Areas
     from zonedesign.verify.repair import minimal_repair
 
     p = task.problem
@@ -340,8 +335,6 @@ def _fewer_moves(task: FenceTask, searched: np.ndarray, active: np.ndarray, info
     if searched_breaks == 0 and search_moves <= bound:
         return searched
     if p.term_weights.get("stability", 0.0) < STABILITY_FIRST:
-        from dataclasses import replace
-
         first = replace(task, problem=replace(p, term_weights={**p.term_weights, "stability": STABILITY_FIRST}))
         again, breaks = _search_ring(first, active, task.seed + 100)
         again_moves = moves(again)
@@ -412,8 +405,6 @@ def _breaks(p, labels: np.ndarray) -> float:
 
 
 def _sub_problem(p, units: np.ndarray):
-    from dataclasses import replace
-
     return replace(
         p,
         graph=p.graph.subgraph(units),
@@ -457,8 +448,6 @@ def redraw_hierarchy(
     of the first count column (the share that decides a code's successor); the new
     counts when None. Codes follow `rules.redraw.codes`. Locked zones (`locks`) are kept
     exactly, code and areas, whatever the new counts."""
-    from dataclasses import replace
-
     run = executor or serial_executor
     policy = rules.redraw.codes
     weight_area = areas.counts[:, 0] if published is None else np.asarray(published, dtype=np.float64)
@@ -535,7 +524,7 @@ def redraw_hierarchy(
             units = next_units(units, zone_of_unit, zone_fence)
             units, full = refenced(units, full, zone_of_unit, areas, rules.tiers[t + 1].name)
     return RedrawResult(
-        tiers=tiers, units=all_units, new_areas=new_areas, gone_areas=[], seconds=seconds, policy=policy
+        tiers=tiers, units=all_units, new_areas=new_areas, seconds=seconds, policy=policy
     )
 
 

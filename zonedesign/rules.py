@@ -54,11 +54,11 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from zonedesign.errors import InputError, RulesError
+from zonedesign.measures import TERMS
 
 if TYPE_CHECKING:
     pass
 
-TERMS = ("size", "homogeneity", "compactness", "stability")
 METHODS = ("descent", "annealing", "tabu")
 EFFORTS = ("quick", "default", "thorough")
 

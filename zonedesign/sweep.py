@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from zonedesign.errors import InputError, RulesError
+from zonedesign.plain import plain
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import Rules, apply_overrides, override_key, rules_to_toml
 
@@ -244,7 +245,7 @@ def run_variant(task: VariantTask) -> VariantResult:
     row["fence_failures"] = len(failures)
     row["audit_ok"] = bool(checked.ok)
     row["seconds"] = round(time.perf_counter() - t0, 3)
-    violations = [_plain(x) for x in getattr(checked, "violations", [])]
+    violations = [plain(x) for x in getattr(checked, "violations", [])]
     return VariantResult(
         row=row, lookup=lookup, tables=tables, audit={"ok": bool(checked.ok), "violations": violations},
         tiers=figures, breaks=breaks, proofs=proofs, failures=failures,
@@ -275,23 +276,7 @@ def _proofs(task: VariantTask, lookup, breaks: list[dict]) -> list[dict]:
 
     found = explain_breaks(task.areas, task.graph, task.variant.rules.tiers, lookup, breaks,
                            time_limit=task.proof_seconds)
-    return [_plain(p) for p in found]
-
-
-def _plain(obj):
-    if hasattr(obj, "to_json"):
-        return obj.to_json()
-    if hasattr(obj, "__dataclass_fields__"):
-        return {k: _plain(getattr(obj, k)) for k in obj.__dataclass_fields__}
-    if isinstance(obj, dict):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [_plain(v) for v in obj.tolist()]
-    if isinstance(obj, np.generic):
-        return obj.item()
-    return obj
+    return [plain(p) for p in found]
 
 
 def _number(value: str):

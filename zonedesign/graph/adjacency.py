@@ -70,17 +70,6 @@ def polygon_parts(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return geoms[order], owner[order]
 
 
-def boundary_segments(geometry) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Every boundary segment of every polygon: (start (m, 2), end (m, 2), owner (m,)).
-
-    Exterior and interior rings of all polygon parts are included; the owner is the
-    position of the input geometry. Zero-length segments are kept here.
-    """
-    coords, ring, ring_owner = _ring_coordinates(geometry_array(geometry))
-    seg = np.flatnonzero(ring[1:] == ring[:-1])
-    return coords[seg], coords[seg + 1], ring_owner[ring[seg]]
-
-
 def _ring_coordinates(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Coordinates of all rings, the ring of each coordinate and the owner of each ring."""
     parts, owner = polygon_parts(geoms)

@@ -55,6 +55,18 @@ def components(graph: Graph) -> tuple[int, np.ndarray]:
     return int(count), labels.astype(np.int64)
 
 
+def pieces(graph: Graph, labels: np.ndarray) -> tuple[int, np.ndarray]:
+    """Connected pieces of the zones `labels` draws: components over the edges that join
+    two nodes of the same label (a contiguous zone is one piece)."""
+    n = graph.n
+    labels = np.asarray(labels)
+    rows = np.repeat(np.arange(n), np.diff(graph.indptr))
+    same = labels[rows] == labels[graph.indices]
+    matrix = csr_matrix((np.ones(int(same.sum())), (rows[same], graph.indices[same])), shape=(n, n))
+    count, piece = connected_components(matrix, directed=False)
+    return int(count), piece.astype(np.int64)
+
+
 def _fence_parts(graph: Graph, fence: np.ndarray):
     """Per fence code (sorted): its positions and their component labels."""
     fence = np.asarray(fence).astype(str)

@@ -7,10 +7,8 @@ of one, and never touches the inputs.
 
 from __future__ import annotations
 
-import dataclasses
 import errno
 import json
-import math
 import os
 import re
 import secrets
@@ -21,10 +19,9 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-import numpy as np
-
 from zonedesign import interrupts
 from zonedesign.errors import InputError
+from zonedesign.plain import plain
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -224,30 +221,8 @@ def _sync_folder(folder: Path) -> None:
 
 def write_json(path: str | Path, obj: object) -> None:
     """Deterministic JSON: sorted keys, indent 2, NaN and infinities as null, numpy as plain."""
-    text = json.dumps(_plain(obj), sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False)
+    text = json.dumps(plain(obj, finite=True, strict=True), sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False)
     Path(path).write_bytes((text + "\n").encode("utf-8"))
-
-
-def _plain(obj: object) -> object:
-    if isinstance(obj, dict):
-        return {str(_plain(k)) if not isinstance(k, str) else k: _plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, (set, frozenset)):
-        return sorted((_plain(v) for v in obj), key=repr)
-    if isinstance(obj, np.ndarray):
-        return _plain(obj.tolist())
-    if isinstance(obj, np.generic):
-        return _plain(obj.item())
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, Path):
-        return str(obj)
-    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        return _plain({f.name: getattr(obj, f.name) for f in dataclasses.fields(obj)})
-    if obj is None or isinstance(obj, (str, int, bool)):
-        return obj
-    raise TypeError(f"no JSON form for {type(obj).__name__}")
 
 
 # GDAL stamps GeoPackage metadata with the current time unless OGR_CURRENT_DATE is set;

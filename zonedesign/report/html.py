@@ -30,6 +30,7 @@ from typing import Any
 
 import pandas as pd
 
+from zonedesign.glossary import CAUTION
 from zonedesign.report.format import esc
 from zonedesign.report.plan import MAPS_BYTES, REPORT_BYTES, ReportPlan
 from zonedesign.report.sections import SECTIONS, headline
@@ -37,10 +38,7 @@ from zonedesign.report.style import SCRIPT, SCRIPT_HASH, css, defs
 
 __all__ = ["DEFAULT_CAUTION", "MAPS_BYTES", "REPORT_BYTES", "render_report", "write_report"]
 
-DEFAULT_CAUTION = (
-    "Thresholds must follow your own statistical-disclosure-control rules. These results "
-    "need review by the responsible statistician before publication."
-)
+DEFAULT_CAUTION = CAUTION  # a summary without its own caution still carries it
 
 
 def write_report(

@@ -44,11 +44,10 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.sparse import csr_matrix
-from scipy.sparse.csgraph import connected_components
 
 from zonedesign import interrupts, measures
 from zonedesign.errors import InputError
+from zonedesign.graph.components import pieces as zone_pieces
 from zonedesign.measures import Score
 from zonedesign.records import Problem
 from zonedesign.rules import METHODS, SearchRules
@@ -423,11 +422,7 @@ def _prepare_start(problem: Problem, start: np.ndarray, anchors: np.ndarray | No
         order[labels] = anchors[start]
         anchors = order
     # a zone in pieces: each connected piece becomes its own zone with the zone's anchor
-    g = problem.graph
-    rows = np.repeat(np.arange(n), np.diff(g.indptr))
-    same = labels[rows] == labels[g.indices]
-    m = csr_matrix((np.ones(int(same.sum())), (rows[same], g.indices[same])), shape=(n, n))
-    _, piece = connected_components(m, directed=False)
+    _, piece = zone_pieces(problem.graph, labels)
     if int(piece.max()) + 1 > k:
         pieces, kp = measures.compact_labels(piece)
         if anchors is not None:

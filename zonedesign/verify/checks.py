@@ -31,6 +31,7 @@ import pandas as pd
 
 from zonedesign import measures
 from zonedesign.errors import InputError
+from zonedesign.plain import plain
 from zonedesign.records import Areas, Bounds, Graph
 from zonedesign.rules import TierRules, fence_groups
 from zonedesign.verify.labels import (
@@ -74,7 +75,7 @@ class Violation:
             "areas": list(self.areas),
             "n_areas": self.n_areas,
             "fences": list(self.fences),
-            "figures": _plain(self.figures),
+            "figures": plain(self.figures, finite=True),
             "message": self.message,
         }
 
@@ -125,7 +126,7 @@ class AuditResult:
                     "tier": v.tier,
                     "zone": v.zone,
                     "areas": listed,
-                    "figures": json.dumps(_plain(v.figures), sort_keys=True),
+                    "figures": json.dumps(plain(v.figures, finite=True), sort_keys=True),
                     "message": v.message,
                 }
             )
@@ -136,8 +137,8 @@ class AuditResult:
             "ok": self.ok,
             "violations": [v.to_dict() for v in self.violations],
             "counts_by_kind": {k: len(self.of_kind(k)) for k in KINDS},
-            "tiers": _plain(self.tiers),
-            "outliers": _plain(self.outliers),
+            "tiers": plain(self.tiers, finite=True),
+            "outliers": plain(self.outliers, finite=True),
             "notes": list(self.notes),
         }
 
@@ -155,20 +156,6 @@ def _fmt(x: float) -> str:
     if math.isfinite(x) and x == round(x):
         return f"{int(round(x)):,}"
     return f"{x:,.6g}"
-
-
-def _plain(obj: object) -> object:
-    """JSON-safe copy: numpy scalars to Python, non-finite floats to None."""
-    if isinstance(obj, Mapping):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple | np.ndarray):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, np.integer | np.bool_):
-        return obj.item()
-    if isinstance(obj, float | np.floating):
-        v = float(obj)
-        return v if math.isfinite(v) else None
-    return obj
 
 
 def _plural(n: int, word: str) -> str:
