@@ -8,6 +8,7 @@ The redraw must reach that fewest, and `fewest_moves_bound` must never exceed it
 
 from __future__ import annotations
 
+import functools
 import itertools
 from dataclasses import replace
 
@@ -73,6 +74,7 @@ def _brute_fewest(g: nx.Graph, prev: np.ndarray, counts: np.ndarray, most: int =
     return None
 
 
+@functools.cache
 def _instances(wanted: int = 5):
     """3 x 4 grids of three row zones that met 40..90 persons before two areas grew or
     shrank, chosen so that mending them takes two or three moves."""
@@ -100,7 +102,11 @@ def _instances(wanted: int = 5):
     return found
 
 
-INSTANCES = _instances()
+WANTED = 5  # instances found by enumeration, computed once and only when a test asks
+
+
+def instance(k: int):
+    return _instances(WANTED)[k]
 
 
 def _redraw(graph, prev, counts, stability: float = STABILITY_DEFAULT, executor=None):
@@ -119,15 +125,17 @@ def test_matched_moves_ignore_zone_names():
     assert matched_moves(prev, np.array(["x", "y", "y", "y", "z"], dtype=object)) == 1
 
 
-@pytest.mark.parametrize("seed, graph, prev, counts, fewest", INSTANCES, ids=[f"seed{i[0]}" for i in INSTANCES])
-def test_the_bound_never_exceeds_the_fewest_moves_found_by_enumeration(seed, graph, prev, counts, fewest):
+@pytest.mark.parametrize("k", range(WANTED), ids=[f"instance{k}" for k in range(WANTED)])
+def test_the_bound_never_exceeds_the_fewest_moves_found_by_enumeration(k):
+    seed, graph, prev, counts, fewest = instance(k)
     bounds = Bounds(("persons",), np.array([LO]), np.array([HI]), np.array([np.nan]))
     assert 1 <= fewest_moves_bound(prev, counts[:, None], bounds) <= fewest
 
 
 @pytest.mark.parametrize("stability", [STABILITY_DEFAULT, 0.01], ids=["default stability", "stability weighed low"])
-@pytest.mark.parametrize("seed, graph, prev, counts, fewest", INSTANCES, ids=[f"seed{i[0]}" for i in INSTANCES])
-def test_the_redraw_moves_the_fewest_areas_that_enumeration_allows(seed, graph, prev, counts, fewest, stability):
+@pytest.mark.parametrize("k", range(WANTED), ids=[f"instance{k}" for k in range(WANTED)])
+def test_the_redraw_moves_the_fewest_areas_that_enumeration_allows(k, stability):
+    seed, graph, prev, counts, fewest = instance(k)
     # a redraw promises the fewest moves even where the rules weigh stability low
     result = _redraw(graph, prev, counts, stability)
     now = result.lookup()["block"]
@@ -139,7 +147,7 @@ def test_the_redraw_moves_the_fewest_areas_that_enumeration_allows(seed, graph, 
 def test_stability_zero_switches_it_off_and_the_redraw_then_moves_more():
     def moved(stability: float) -> tuple[int, list[dict]]:
         total, infos = 0, []
-        for _, graph, prev, counts, _ in INSTANCES:
+        for _, graph, prev, counts, _ in _instances(WANTED):
             result = _redraw(graph, prev, counts, stability)
             now = result.lookup()["block"]
             assert _valid(nx_graph(graph), compact_labels(now)[0], counts)
@@ -151,7 +159,7 @@ def test_stability_zero_switches_it_off_and_the_redraw_then_moves_more():
     off, infos = moved(0.0)
     # off: the broken zones and their neighbours are mended by the other weights alone, with
     # no fewest-move step, so more areas move than the enumerated fewest (summed in `on`)
-    assert off > on == sum(i[4] for i in INSTANCES)
+    assert off > on == sum(i[4] for i in _instances(WANTED))
     assert not any("moves_search" in info for info in infos)
 
 
@@ -176,8 +184,8 @@ def _task_and_blind_design(instance, stability: float):
 
 
 def test_a_search_that_moved_too_much_is_searched_again_with_stability_first():
-    _, graph, prev, counts, fewest = INSTANCES[0]
-    task, fresh = _task_and_blind_design(INSTANCES[0], stability=0.01)
+    _, graph, prev, counts, fewest = instance(0)
+    task, fresh = _task_and_blind_design(instance(0), stability=0.01)
     info: dict = {}
     mended = _fewer_moves(task, fresh, np.arange(int(task.anchors.shape[0])), info)
     assert matched_moves(prev, mended) == fewest
@@ -186,9 +194,9 @@ def test_a_search_that_moved_too_much_is_searched_again_with_stability_first():
 
 
 def test_where_the_search_still_moves_too_much_the_fewest_move_repair_takes_over():
-    _, graph, prev, counts, fewest = INSTANCES[0]
+    _, graph, prev, counts, fewest = instance(0)
     # stability already first in the rules: no second search, straight to CP-SAT
-    task, fresh = _task_and_blind_design(INSTANCES[0], stability=STABILITY_FIRST)
+    task, fresh = _task_and_blind_design(instance(0), stability=STABILITY_FIRST)
     info: dict = {}
     mended = _fewer_moves(task, fresh, np.arange(int(task.anchors.shape[0])), info)
     assert matched_moves(prev, mended) == fewest
@@ -200,7 +208,7 @@ def test_where_the_search_still_moves_too_much_the_fewest_move_repair_takes_over
 def test_a_redraw_mended_by_the_repair_repeats_exactly():
     # the repair's budget is counted in solver work, not seconds, so a second run (on a
     # machine as busy or idle as it likes) takes the same path to the same zones
-    runs = [(i, _redraw(*i[1:4], stability=STABILITY_FIRST)) for i in INSTANCES]
+    runs = [(i, _redraw(*i[1:4], stability=STABILITY_FIRST)) for i in _instances(WANTED)]
     mended = [i for i, r in runs if r.tiers[0].fences[0].info.get("mended_by", "").startswith("cp-sat")]
     assert mended, "no instance needed the repair"
     _, graph, prev, counts, _ = mended[0]
