@@ -15,8 +15,6 @@ import warnings
 from pathlib import Path
 from typing import NoReturn
 
-import numpy as np
-
 from zonedesign import __version__, interrupts
 from zonedesign.demo import MIN_AREAS as DEMO_MIN_AREAS
 from zonedesign.errors import InputError
@@ -315,7 +313,7 @@ def _main(argv: list[str] | None) -> int:
 
         # numeric warnings of numpy, shapely and the rest are never printed raw: the run's
         # own checks turn what matters into located errors; the rest is one note at the end
-        with warnings.catch_warnings(record=True) as caught, np.errstate(all="ignore"):
+        with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             with memory_guard(getattr(args, "max_memory", None)):
                 code = _run(args)
