@@ -57,7 +57,6 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
     from zonedesign.verify.checks import audit
     from zonedesign.verify.repair import minimal_repair
     from zonedesign.zonecodes import moved_areas
-    from zonedesign.zonetables import bounds_of
 
     files = write_demo_input(folder, later=True)
     later = files.get("later") or next(folder.glob("areas*later*.gpkg"))
@@ -102,7 +101,7 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
         matched = matched_moves(prev_f.astype(str), now_f.astype(str))
         moved_low = int(moved_areas(prev_f, now_low[name][index]).sum())
         moved_off = int(moved_areas(prev_f, now_off[name][index]).sum())
-        bound = fewest_moves_bound(previous_codes(prev_f), second.areas.counts[index], bounds_of(tier1, second.areas.count_names))
+        bound = fewest_moves_bound(previous_codes(prev_f), second.areas.counts[index], tier1.bounds(second.areas.count_names))
         t1 = time.perf_counter()
         rep = minimal_repair(
             second.areas.subset(index), second.graph.subgraph(index), {name: prev_f}, [tier1], time_limit=repair_time

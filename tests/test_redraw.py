@@ -18,7 +18,6 @@ from zonedesign.hierarchy import build_hierarchy
 from zonedesign.measures import bound_breaks
 from zonedesign.redraw import redraw_hierarchy, unchanged_share
 from zonedesign.verify.checks import audit
-from zonedesign.zonetables import bounds_of
 
 
 @pytest.fixture(scope="module")
@@ -47,7 +46,7 @@ def _changed_zones(prev, now) -> set[str]:
 
 
 def _broken(areas, labels, tier) -> set[str]:
-    b = bounds_of(tier, areas.count_names)
+    b = tier.bounds(areas.count_names)
     out = set()
     for z, m in zone_members(labels).items():
         sums = areas.counts[sorted(m)].sum(axis=0)[None, :]
@@ -190,7 +189,7 @@ seed = 2
 
     for v in result.of_kind("bounds"):
         fence = v.fences[0] if v.fences else v.zone.split("-")[0]
-        problem = fence_units_problem(prep, new, "zone", fence, bounds_of(tighter.tiers[0], ("POP8",)), tighter.tiers[0])
+        problem = fence_units_problem(prep, new, "zone", fence, tighter.tiers[0].bounds(("POP8",)), tighter.tiers[0])
         proof = prove_infeasible(problem, fence, "zone", time_limit=10)
         assert proof is not None, v.message
     share = 1.0 - unchanged_share(first["zone"], new["zone"])

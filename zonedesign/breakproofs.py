@@ -15,7 +15,6 @@ from zonedesign.measures import compact_labels, zone_perimeter, zone_sums
 from zonedesign.records import Areas, Bounds, Graph, Problem
 from zonedesign.rules import TierRules, tier_in_fence
 from zonedesign.verify.proofs import Proof, prove_infeasible
-from zonedesign.zonetables import bounds_of
 
 # the proof search found a valid zoning: the fence is feasible and the search missed it
 NO_PROOF = "the search did not meet every bound here, yet a valid zoning exists (the proof search found one)"
@@ -39,7 +38,7 @@ def units_problem(
     t = names.index(tier_name)
     tier = tier_in_fence(tiers[t], fence)  # an override's bounds and weights in this fence
     if bounds is None:
-        bounds = bounds_of(tier, areas.count_names)
+        bounds = tier.bounds(areas.count_names)
     idx = np.flatnonzero(areas.in_tier(tier_name).fence == fence)
     g = graph.subgraph(idx)
     if t == 0:

@@ -31,7 +31,6 @@ from zonedesign.measures import (
 from zonedesign.plain import plain
 from zonedesign.records import Areas, Graph, Problem
 from zonedesign.rules import Rules, SearchRules, TierRules, tier_in_fence
-from zonedesign.zonetables import bounds_of as tier_bounds
 
 
 @dataclass(frozen=True)
@@ -163,7 +162,7 @@ def fence_problem(
     return Problem(
         graph=units.graph.subgraph(index),
         counts=units.counts[index],
-        bounds=tier_bounds(tier, count_names),
+        bounds=tier.bounds(count_names),
         attrs=units.attrs[index],
         weight=units.weight[index],
         area=units.area[index],

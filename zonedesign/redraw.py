@@ -56,7 +56,6 @@ from zonedesign.measures import bound_breaks, compact_labels, zone_sums
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import STABILITY_DEFAULT, Rules, TierRules, tier_in_fence
 from zonedesign.zonecodes import Succession, assign_codes, unit_moves
-from zonedesign.zonetables import bounds_of
 
 __all__ = ["STABILITY_DEFAULT", "redraw_hierarchy", "RedrawResult", "RedrawTier"]
 
@@ -474,7 +473,7 @@ def redraw_hierarchy(
             pid = prev_unit[index]
             codes = previous_codes(pid)
             here = tier_in_fence(tier, fence)  # an override's bounds and weights in this fence
-            b = bounds_of(here, areas.count_names)
+            b = here.bounds(areas.count_names)
             sub_graph = search_units.graph.subgraph(index)
             start, anchors = start_labels(sub_graph, codes, units.counts[index], b.lo)
             # the weight actually used: the default when left out, 0 switches stability off

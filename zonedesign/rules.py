@@ -53,8 +53,11 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+import numpy as np
+
 from zonedesign.errors import InputError, RulesError
 from zonedesign.measures import TERMS
+from zonedesign.records import Bounds
 
 if TYPE_CHECKING:
     pass
@@ -128,6 +131,22 @@ class TierRules:
     compactness: str = "polsby"
     overrides: tuple[TierOverride, ...] = ()  # [[tier.override]], in file order
     fence: str | None = None  # this tier's own fence column; else [areas] fence
+
+    def bounds(self, count_names: Sequence[str]) -> Bounds:
+        """min / max / target as a Bounds record aligned to `count_names` (±inf where
+        unbounded, nan where no target); a bound on a count that is not there is an error."""
+        count_names = tuple(count_names)
+        c = len(count_names)
+        lo, hi, target = np.full(c, -np.inf), np.full(c, np.inf), np.full(c, np.nan)
+        for key, table, out in (("min", self.min, lo), ("max", self.max, hi), ("target", self.target, target)):
+            for name, value in table.items():
+                if name not in count_names:
+                    raise InputError(
+                        f"{key}.{name} names no count column (counts are {', '.join(count_names) or 'none'})",
+                        where=f"tier {self.name!r}",
+                    )
+                out[count_names.index(name)] = float(value)
+        return Bounds(count_names=count_names, lo=lo, hi=hi, target=target)
 
 
 def tier_in_fence(tier: TierRules, fence: str) -> TierRules:

@@ -24,13 +24,6 @@ from zonedesign.records import Areas, Bounds, Graph
 from zonedesign.rules import TierRules, tier_in_fence
 
 
-def bounds_of(tier: TierRules, count_names: Sequence[str]) -> Bounds:
-    lo = np.array([float(tier.min.get(c, -np.inf)) for c in count_names])
-    hi = np.array([float(tier.max.get(c, np.inf)) for c in count_names])
-    target = np.array([float(tier.target.get(c, np.nan)) for c in count_names])
-    return Bounds(count_names=tuple(count_names), lo=lo, hi=hi, target=target)
-
-
 def zone_table(
     areas: Areas,
     graph: Graph,
@@ -50,7 +43,7 @@ def zone_table(
     sums = zone_sums(codes, k, areas.counts)
     zone_fence = areas.fence[first].astype(str)
     # each zone is held to the bounds of its fence ([[tier.override]])
-    in_fence = {f: bounds_of(tier_in_fence(tier, f), areas.count_names) for f in set(zone_fence.tolist())}
+    in_fence = {f: tier_in_fence(tier, f).bounds(areas.count_names) for f in set(zone_fence.tolist())}
     zone_bounds = [in_fence[f] for f in zone_fence.tolist()]
     target = np.array([b.target for b in zone_bounds]).reshape(k, len(areas.count_names))
     area = zone_sums(codes, k, areas.area)

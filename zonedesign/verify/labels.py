@@ -11,7 +11,6 @@ import pandas as pd
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from zonedesign.errors import InputError
 from zonedesign.records import Bounds, Graph
 from zonedesign.rules import TierRules
 
@@ -58,18 +57,7 @@ def encode_labels(values: Sequence | np.ndarray) -> TierLabels:
 
 def tier_bounds(tier: TierRules, count_names: Sequence[str]) -> Bounds:
     """The tier's min/max/target as a Bounds record aligned to `count_names`."""
-    count_names = tuple(count_names)
-    c = len(count_names)
-    lo, hi, target = np.full(c, -np.inf), np.full(c, np.inf), np.full(c, np.nan)
-    for key, table, out in (("min", tier.min, lo), ("max", tier.max, hi), ("target", tier.target, target)):
-        for name, value in table.items():
-            if name not in count_names:
-                raise InputError(
-                    f"{key}.{name} names no count column (counts are {', '.join(count_names) or 'none'})",
-                    where=f"tier {tier.name!r}",
-                )
-            out[count_names.index(name)] = float(value)
-    return Bounds(count_names=count_names, lo=lo, hi=hi, target=target)
+    return tier.bounds(count_names)
 
 
 def zone_members(codes: np.ndarray, k: int) -> list[np.ndarray]:
