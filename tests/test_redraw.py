@@ -184,12 +184,12 @@ seed = 2
     structural = [v for v in result.violations if v.kind != "bounds"]
     assert not structural, [v.message for v in structural]
     # every remaining bound break sits in a county that cannot meet the tighter bounds
-    from zonedesign.api import fence_units_problem
+    from zonedesign.breakproofs import units_problem
     from zonedesign.verify.proofs import prove_infeasible
 
     for v in result.of_kind("bounds"):
         fence = v.fences[0] if v.fences else v.zone.split("-")[0]
-        problem = fence_units_problem(prep, new, "zone", fence, tighter.tiers[0].bounds(("POP8",)), tighter.tiers[0])
+        problem = units_problem(prep.areas, prep.graph, prep.rules.tiers, new, "zone", fence, tighter.tiers[0].bounds(("POP8",)))
         proof = prove_infeasible(problem, fence, "zone", time_limit=10)
         assert proof is not None, v.message
     share = 1.0 - unchanged_share(first["zone"], new["zone"])

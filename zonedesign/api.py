@@ -440,13 +440,6 @@ def explain_breaks(prep: Prepared, lookup: Mapping[str, np.ndarray], breaks: lis
     return [plain(p) for p in explain(prep.areas, prep.graph, prep.rules.tiers, lookup, breaks)]
 
 
-def fence_units_problem(prep, lookup, tier_name, fence, bounds, tier):
-    """The free problem of one fence of one tier, over that tier's units."""
-    from zonedesign.breakproofs import units_problem
-
-    return units_problem(prep.areas, prep.graph, prep.rules.tiers, lookup, tier_name, fence, bounds)
-
-
 def _violations(checked: Any) -> list:
     return list(getattr(checked, "violations", []))
 
