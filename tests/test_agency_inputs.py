@@ -735,3 +735,39 @@ def test_bad_tier_fences_are_exit_2(tmp_path, capsys, fence, message):
     rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nfence = "district"', tiers)
     err = one_line_exit_2(["rules", "check", str(rules), str(areas)], capsys)
     assert message in err
+
+
+def test_audit_repair_never_moves_a_locked_zone(tmp_path):
+    import json
+
+    areas = two_fences(tmp_path)
+    # the agreed zone holds U0..U2 (75 persons); U3 alone (25) is below the floor of 30, and
+    # every mend moves one area into or out of the agreed zone, which the lock forbids
+    (tmp_path / "locked.csv").write_text("area,tier1\nU0,AGREED-1\nU1,AGREED-1\nU2,AGREED-1\n")
+    tiers = LOCK_TIERS.replace("min = { persons = 20 }\nmax = { persons = 100 }", "min = { persons = 30 }\nmax = { persons = 100 }", 1)
+    rules = rules_file(tmp_path, AREAS, tiers + '\n[lock]\nfile = "locked.csv"\n')
+    (tmp_path / "lookup.csv").write_text(
+        "area,tier1,tier2\nU0,AGREED-1,T1\nU1,AGREED-1,T1\nU2,AGREED-1,T1\nU3,Z2,T1\nR0,Z3,T2\nR1,Z3,T2\nR2,Z3,T2\n"
+    )
+    out = tmp_path / "out"
+    code = main(["audit", str(areas), "--rules", str(rules), "--lookup", str(tmp_path / "lookup.csv"),
+                 "--repair", "--out", str(out), "--quiet", "--no-report", "--no-certificate"])
+    assert code == 1
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["repair"]["method"].startswith("redraw search")  # the CP-SAT mend moved the lock
+    repaired = pd.read_csv(out / "repaired" / "lookup.csv", dtype=str).set_index("area")
+    assert sorted(repaired.index[repaired["tier1"] == "AGREED-1"]) == ["U0", "U1", "U2"]
+
+
+def test_a_redraw_keeps_each_tier_to_its_own_fence(tmp_path):
+    areas = wards(tmp_path)
+    rules = rules_file(tmp_path, 'id = "code"\ncounts = ["persons"]\nfence = "district"', FENCE_TIERS)
+    first, second = tmp_path / "first", tmp_path / "second"
+    assert main(design_argv(areas, rules, first)) == 0
+    code = main(["redraw", str(areas), "--rules", str(rules), "--previous", str(first / "lookup.csv"),
+                 "--out", str(second), "--quiet", "--no-report", "--no-certificate"])
+    assert code == 0
+    # nothing changed, so nothing moves: the zones are still the wards and the districts
+    a = pd.read_csv(first / "lookup.csv", dtype=str)
+    b = pd.read_csv(second / "lookup.csv", dtype=str)
+    assert a.equals(b)

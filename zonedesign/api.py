@@ -823,6 +823,11 @@ def audit(
         moves = res.repair_frame()
         repaired = res.labels
         recheck = run_audit(prep.areas, prep.graph, repaired, tiers) if repaired is not None else None
+        if recheck is not None and prep.locks:
+            from zonedesign.locks import lock_breaks
+
+            if lock_breaks(prep.locks, repaired, prep.areas):
+                recheck = None  # the CP-SAT model knows no locks: a repair that moves a locked zone is none
         summary["repair"] = {
             "method": "cp-sat (fewest moves)",
             "status": res.status,
