@@ -11,7 +11,7 @@ import sys
 import time
 from pathlib import Path
 
-NAMES = ("quality", "speed", "scale", "baseline", "redraw", "certificate")
+NAMES = ("quality", "quality-scale", "speed", "scale", "baseline", "redraw", "certificate")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -24,7 +24,7 @@ def main(argv: list[str] | None = None) -> int:
     for name in names:
         t0 = time.perf_counter()
         print(f"{name}{' (quick)' if args.quick else ''}:", flush=True)
-        module = importlib.import_module(f"benchmarks.{name}")
+        module = importlib.import_module(f"benchmarks.{name.replace('-', '_')}")
         module.main(quick=args.quick, folder=args.out, log=lambda s: print(s, flush=True))
         print(f"{name}: done in {time.perf_counter() - t0:.0f} s", flush=True)
     if not args.quick and args.out is None:
