@@ -81,3 +81,12 @@ def test_a_schedule_cools_over_its_whole_range() -> None:
 
 def test_stated_restarts_win_over_the_budget() -> None:
     assert fence_schedule(SearchRules(restarts=3), 5000).runs == 3
+
+
+def test_the_benchmarks_previous_default_is_the_schedule_the_engine_ran_before() -> None:
+    # from memory of the engine before effort was a setting: one run of 600 n trial moves
+    # in blocks of 8 n at cooling 0.97 for a fence of 1,500 units or more
+    from benchmarks.quality_scale import previous_default
+
+    s = fence_schedule(previous_default(2000), 2000)
+    assert (s.runs, s.moves, s.per_temperature, s.cooling) == (1, 1_200_000, 16_000, 0.97)
