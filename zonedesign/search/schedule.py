@@ -33,7 +33,7 @@ PRESETS: dict[str, tuple[int, float]] = {
     "default": (1200, 0.985),
     "thorough": (24_000, 0.995),
 }
-FLOOR_UNITS = 1000  # a fence smaller than this gets the moves of one this size
+FLOOR_UNITS = 1500  # a fence smaller than this gets about the moves of one this size
 MAX_RUNS = 16
 MIN_RUN_MOVES = 20_000  # fewer moves than this make too short a schedule to be worth a run
 FINAL_TEMPERATURE = 0.02  # a schedule ends at this share of its start temperature
@@ -79,7 +79,7 @@ def fence_schedule(rules: SearchRules, n: int) -> Schedule:
         runs = int(rules.restarts)
     else:
         budget = per_unit * max(n, FLOOR_UNITS)
-        runs = int(min(MAX_RUNS, max(1, budget // run_moves)))
+        runs = int(min(MAX_RUNS, max(1, round(budget / run_moves))))
     temps = max(1, math.ceil(math.log(FINAL_TEMPERATURE) / math.log(cooling)))
     per_temp = int(rules.moves_per_temperature) or max(1, run_moves // temps)
     return Schedule(units=n, runs=runs, moves=run_moves, cooling=cooling, temperatures=temps, per_temperature=per_temp)
