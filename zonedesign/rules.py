@@ -31,7 +31,7 @@
     method = "annealing"              # "descent", "annealing" or "tabu"
     effort = "default"                # "quick", "default" or "thorough"
     moves_per_unit = 0                # annealing moves per unit (0: from effort)
-    cooling = 0.985                   # temperature factor per step (unset: from effort)
+    cooling = 0.97                    # temperature factor per step (unset: from effort)
     seed = 1
     constructions = 4
     time_limit_fence = 10.0           # seconds per fence and tier

@@ -13,9 +13,9 @@ The presets (`effort` in the rules' [search] table):
 
 | effort | moves_per_unit | cooling | moves of a 2,000-unit fence |
 |---|---|---|---|
-| quick | 300 | 0.95 | 0.6 million |
-| default | 1,200 | 0.985 | 2.4 million |
-| thorough | 24,000 | 0.995 | 48 million |
+| quick | 150 | 0.94 | 0.3 million |
+| default | 600 | 0.97 | 1.2 million |
+| thorough | 12,000 | 0.99 | 24 million |
 
 `thorough` is what the `quality-scale` benchmark runs for its best-known references.
 A stated `moves_per_unit` or `cooling` overrides the preset's value.
@@ -29,14 +29,16 @@ from dataclasses import dataclass
 from zonedesign.rules import SearchRules
 
 PRESETS: dict[str, tuple[int, float]] = {
-    "quick": (300, 0.95),
-    "default": (1200, 0.985),
-    "thorough": (24_000, 0.995),
+    "quick": (150, 0.94),
+    "default": (600, 0.97),
+    "thorough": (12_000, 0.99),
 }
 FLOOR_UNITS = 1500  # a fence smaller than this gets about the moves of one this size
 MAX_RUNS = 16
 MIN_RUN_MOVES = 20_000  # fewer moves than this make too short a schedule to be worth a run
-FINAL_TEMPERATURE = 0.02  # a schedule ends at this share of its start temperature
+# a schedule ends at this share of its start temperature; with the default's cooling it
+# is the schedule the engine ran before effort was a setting (about 75 steps of 8 x units)
+FINAL_TEMPERATURE = 0.1
 
 
 @dataclass(frozen=True)
