@@ -32,8 +32,9 @@ from dataclasses import dataclass
 import numpy as np
 from ortools.sat.python import cp_model
 from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import breadth_first_order, connected_components
+from scipy.sparse.csgraph import breadth_first_order
 
+from zonedesign.graph.components import components
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import TierRules, tier_in_fence
 from zonedesign.verify.checks import encode_labels, tier_bounds
@@ -169,8 +170,7 @@ def _tier_units(
         keep = (codes[k - 1][ei] == codes[k - 1][ej]) & (zone[ei] == zone[ej]) & (fence[ei] == fence[ej])
         if parent is not None:
             keep &= parent[ei] == parent[ej]
-        adj = coo_matrix((np.ones(int(keep.sum())), (ei[keep], ej[keep])), shape=(n, n))
-        n_units, unit_of = connected_components(adj, directed=False)
+        n_units, unit_of = components(Graph.from_edges(n, ei[keep], ej[keep]))
         order = np.argsort(unit_of, kind="stable")
         members = np.split(order, np.cumsum(np.bincount(unit_of, minlength=n_units))[:-1])
         first = order[np.searchsorted(unit_of[order], np.arange(n_units))]

@@ -8,9 +8,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
+from zonedesign.graph.components import components
 from zonedesign.records import Bounds, Graph
 from zonedesign.rules import TierRules
 
@@ -72,9 +71,6 @@ def zone_parts(graph: Graph, codes: np.ndarray) -> np.ndarray:
     """Component id per area on the graph keeping only edges inside one zone (-1: no zone)."""
     i, j, _ = graph.edges()
     keep = (codes[i] == codes[j]) & (codes[i] >= 0)
-    n = codes.shape[0]
-    adj = coo_matrix((np.ones(int(keep.sum())), (i[keep], j[keep])), shape=(n, n))
-    _, comp = connected_components(adj, directed=False)
-    comp = comp.astype(np.int64)
+    _, comp = components(Graph.from_edges(codes.shape[0], i[keep], j[keep]))
     comp[codes < 0] = -1
     return comp

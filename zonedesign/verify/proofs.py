@@ -25,9 +25,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from ortools.sat.python import cp_model
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
+from zonedesign.graph.components import components
 from zonedesign.records import Problem
 from zonedesign.verify.cpsat import (
     add_bounds,
@@ -137,9 +136,7 @@ def arithmetic_proof(
     def found(text: str, figures: dict) -> Proof:
         return Proof(fence, tier, "arithmetic", text, figures, "INFEASIBLE", time.perf_counter() - start)
 
-    i, j, _ = problem.graph.edges()
-    adj = coo_matrix((np.ones(i.size), (i, j)), shape=(problem.n, problem.n))
-    n_comp, comp = connected_components(adj, directed=False)
+    n_comp, comp = components(problem.graph)
     whole = bool(np.all(counts == np.round(counts)))
 
     def floor_found(text: str, figures: dict, c: int) -> Proof:

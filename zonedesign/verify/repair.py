@@ -42,9 +42,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
+from zonedesign.graph.components import components
 from zonedesign.records import Areas, Bounds, Graph, Problem
 from zonedesign.rules import TierRules
 from zonedesign.verify.checks import audit, encode_labels, tier_bounds, zone_members
@@ -386,11 +385,7 @@ def _faults(ctx: RepairContext, report, names: list[str]) -> tuple[list[set[int]
             # everything but the largest part
             inside = np.zeros(n, dtype=bool)
             inside[members] = True
-            sub = graph.subgraph(members)
-            i, j, _ = sub.edges()
-            _, comp = connected_components(
-                coo_matrix((np.ones(i.size), (i, j)), shape=(sub.n, sub.n)), directed=False
-            )
+            _, comp = components(graph.subgraph(members))
             big = np.argmax(np.bincount(comp))
             hot[t][members[comp != big]] = True
         elif v.kind == "fence":

@@ -14,9 +14,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from ortools.sat.python import cp_model
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
+from zonedesign.graph.components import components
 from zonedesign.records import Areas, Bounds, Graph
 from zonedesign.verify.cpsat import (
     add_bounds,
@@ -460,10 +459,7 @@ def _spare_count(
 
 
 def _n_parts(graph: Graph, members: np.ndarray) -> int:
-    sub = graph.subgraph(members)
-    i, j, _ = sub.edges()
-    adj = coo_matrix((np.ones(i.size), (i, j)), shape=(sub.n, sub.n))
-    return int(connected_components(adj, directed=False)[0])
+    return components(graph.subgraph(members))[0]
 
 
 def _nearby_zones(graph: Graph, codes: np.ndarray, mov: np.ndarray, zones: set[int]) -> dict[int, set[int]]:
