@@ -242,3 +242,36 @@ def test_ny8_a_graph_key_gives_each_variant_its_own_graph(ny8):
     # r-cran-spdata NY8: 764 rook pairs and 48 more point-only contacts under queen (design notes)
     assert edges == {"rook": 764, "queen": 764 + 48}
     assert res.exit_code == 0
+
+
+@pytest.mark.opendata
+def test_ny8_a_sweep_with_no_valid_variant_is_exit_2_naming_the_key(ny8, capsys):
+    code = main(["sweep", str(ny8 / "ny8.gpkg"), "--rules", str(ny8 / "rules.toml"),
+                 "--vary", "tier.2.min.POP8=60000", "--out", str(ny8 / "none"), "--quiet"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1
+    assert "tier.2.min.POP8" in err[0] and "target" in err[0]
+    assert not (ny8 / "none").exists()
+
+
+@pytest.mark.opendata
+def test_ny8_show_lists_each_variant_with_its_folder(tied_sweep, capsys):
+    out, _ = tied_sweep
+    assert main(["show", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "sweep: 3 variant(s) of tier.2.min.POP8, tier.2.target.POP8" in text
+    assert "(variants/tier2-min-POP8-60000_tier2-target-POP8-65000)" in text
+
+
+@pytest.mark.opendata
+def test_ny8_a_redraw_sweep_keeps_every_zone_under_the_rules_it_was_drawn_by(ny8, tied_sweep):
+    out, _ = tied_sweep
+    first = out / "variants" / "tier2-min-POP8-20000_tier2-target-POP8-30000"
+    res = api.sweep(ny8 / "ny8.gpkg", first / "rules.toml", ["tier.2.min.POP8,tier.2.target.POP8=20000/30000,40000/50000"],
+                    None, previous=first / "lookup.csv")
+    same, tighter = res.summary["sweep"]["variants"]
+    # zones that still meet the rules are kept (Cockings et al. 2011: census zone maintenance)
+    assert same["areas_changed_vs_previous.tier1"] == 0 and same["areas_changed_vs_previous.tier2"] == 0
+    # a higher tier-2 floor must regroup tier-2 zones of 20,000 to 40,000 persons
+    assert tighter["areas_changed_vs_previous.tier2"] > 0
+    assert tighter["audit_ok"]

@@ -128,13 +128,17 @@ def _sweep_lines(s: dict) -> list[str]:
     rows = sweep.get("variants") or []
     if not rows:
         return []
-    keys = list(sweep.get("vary") or {})
+    keys = [k for axis in sweep.get("vary") or [] if isinstance(axis, dict) for k in axis.get("keys", [])]
     out = [f"  sweep: {len(rows)} variant(s) of {', '.join(keys)}"]
     for r in rows[:SHOWN * 2]:
         values = ", ".join(f"{k}={r.get(k)}" for k in keys)
+        if not r.get("valid", True):
+            out.append(f"    {r.get('variant')}: {values}: not run: {r.get('problem')}")
+            continue
         zones = ", ".join(f"{n} {r[f'zones.{n}']}" for n in tier_order(s) if f"zones.{n}" in r)
         audit = "audit passed" if r.get("audit_ok") else "audit failed"
-        out.append(f"    {r.get('variant')}: {values}: zones {zones}; {r.get('bound_breaks', '?')} bound break(s), {audit}")
+        out.append(f"    {r.get('variant')}: {values}: zones {zones}; {r.get('bound_breaks', '?')} bound break(s), {audit}"
+                   f" (variants/{r.get('name')})")
     return out
 
 

@@ -86,6 +86,12 @@ def decision_measures(table: pd.DataFrame, tiers: Sequence[str]) -> list[Measure
     if finest is not None:
         out.append(Measure(f"areas_changed_vs_first.{finest}", f"areas in another tier {finest} zone than in the first variant",
                            "count", ""))
+    before = [t for t in tiers if f"areas_changed_vs_previous.{t}" in cols]
+    if before:  # a redraw sweep: how far each variant moves from the published zones
+        t = next((t for t in before if pd.to_numeric(table[f"areas_changed_vs_previous.{t}"], errors="coerce")
+                  .fillna(0).gt(0).any()), before[0])
+        out.append(Measure(f"areas_changed_vs_previous.{t}", f"areas moved from their previous tier {t} zone",
+                           "count", "min"))
     return [m for m in out if m.column in cols]
 
 
