@@ -466,3 +466,27 @@ def test_the_sweep_maps_share_one_scale_zoom_together_and_name_a_zone_on_hover(b
     zone = browser.eval(sid, f"document.elementFromPoint({x}, {y}).closest('.zone').dataset.zone")
     browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": x, "y": y}, sid)
     assert f"zone {zone}" in browser.eval(sid, "document.getElementById('tip').textContent")
+
+
+def test_the_report_of_a_200k_area_run_loads_within_its_budget_and_its_maps_zoom(browser, tmp_path):
+    from zonedesign.report.html import REPORT_BYTES
+
+    # 448 x 448 = 200,704 areas, each its own bottom-tier zone (the worst case for the page)
+    run = grid_run(448, parents=(4, 16), fence_side=64, low_zones=200)
+    path = tmp_path / "report.html"
+    write_report(path, **run)
+    assert path.stat().st_size <= REPORT_BYTES
+    url = path.resolve().as_uri()
+    sid = browser.open(url)  # waits for the load event: the page opens whole
+    assert console_errors(browser, sid) == [] and fetched(browser, sid, url) == []
+    # every tier is in the Zones section, the finest one summarised with a pointer to zones.gpkg
+    captions = browser.eval(sid, "Array.from(document.querySelectorAll('#zones caption, #zones p.note'))"
+                                 ".map(c => c.textContent)")
+    for tier in run["tables"]:
+        assert any(f"tier {tier}" in c.lower() for c in captions), tier
+    assert any("zones.gpkg" in c for c in captions)
+    svg = browser.eval(sid, "document.querySelector('svg.zonemap').id")
+    before = viewbox(browser, sid, svg)
+    x, y = centre_of(browser, sid, svg)
+    wheel(browser, sid, svg, x, y, -240)
+    assert viewbox(browser, sid, svg)[2] < before[2]
