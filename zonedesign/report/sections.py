@@ -3,15 +3,14 @@
 from __future__ import annotations
 
 from collections.abc import Callable
-from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from zonedesign.report import charts
 from zonedesign.report.changelist import change_list, policy_note, repair_section
+from zonedesign.report.checksections import certificate, violations
 from zonedesign.report.format import (
-    TABLE_ROWS,
     Raw,
     dicts,
     esc,
@@ -26,6 +25,7 @@ from zonedesign.report.format import (
     text_of,
 )
 from zonedesign.report.plan import ZONE_LIST_ROWS, ReportPlan, tier_figures
+from zonedesign.report.runsections import input_section, rules_section, run_details
 from zonedesign.report.style import CHANGE_KINDS, KIND_WORDS
 from zonedesign.report.svgmap import element_id
 
@@ -447,295 +447,6 @@ def _fences(run: ReportPlan) -> str:
     return "".join(out)
 
 
-def _violations(run: ReportPlan) -> str:
-    out = []
-    breaks = dicts(run.summary.get("bound_breaks"))
-    if breaks:
-        rows = []
-        for b in breaks:
-            rows.append(
-                [
-                    b.get("tier"),
-                    _zone_link(run, b.get("tier"), b.get("zone")),
-                    b.get("fence"),
-                    b.get("breaks"),
-                ]
-            )
-        out.append(
-            html_table(
-                "Zones outside their bounds",
-                ["tier", "zone", "fence", "what is out of bounds"],
-                rows,
-                row_class="violation",
-            )
-        )
-    audit = run.summary.get("audit")
-    viol = dicts(audit.get("violations")) if isinstance(audit, dict) else []
-    if viol:
-        rows = []
-        for v in viol:
-            areas = v.get("areas")
-            areas = (
-                ", ".join(map(str, areas[:5])) + (" …" if len(areas) > 5 else "")
-                if isinstance(areas, list)
-                else text_of(areas)
-            )
-            rows.append(
-                [
-                    v.get("kind"),
-                    v.get("tier"),
-                    _zone_link(run, v.get("tier"), v.get("zone")),
-                    ", ".join(map(str, v.get("fences") or [])),
-                    areas,
-                    v.get("message"),
-                ]
-            )
-        out.append(
-            html_table(
-                "Problems found by the independent audit",
-                ["kind", "tier", "zone", "fences", "areas", "message"],
-                rows,
-                row_class="violation",
-            )
-        )
-    elif isinstance(audit, dict):
-        out.append(
-            "<p>The independent audit found no problem.</p>"
-            if audit.get("ok")
-            else "<p>The audit did not pass.</p>"
-        )
-    if not out and "bound_breaks" in run.summary:
-        out.append("<p>Every zone is within its bounds.</p>")
-    return "".join(out)
-
-
-def _zone_link(run: ReportPlan, tier: Any, zone: Any) -> Raw:
-    label = esc(zone) if zone not in (None, "") else "(whole tier)" if tier else "(whole input)"
-    href = run.href(tier, zone)
-    hint = "" if href.startswith("#zone-") else ' title="not drawn on a map; see the note there"'
-    return Raw(f'<a href="{href}"{hint}>{label}</a>')
-
-
-_CERT_WORDS = {
-    "CONFIRMED": "confirmed: an independent CP-SAT model accepts these zones under every rule",
-    "REFUTED": "refuted: the independent CP-SAT model finds a rule these zones break",
-    "UNDECIDED": "undecided: no verdict was reached (the solver stopped, or the model could not be built)",
-    # solver words of older summaries
-    "OPTIMAL": "confirmed: an independent CP-SAT model accepts these zones under every rule",
-    "FEASIBLE": "confirmed: an independent CP-SAT model accepts these zones under every rule",
-    "INFEASIBLE": "refuted: the independent CP-SAT model finds a rule these zones break",
-    "UNKNOWN": "undecided: the solver stopped before reaching a verdict",
-    "MODEL_INVALID": "undecided: the model could not be built",
-}
-_PROOF_WORDS = {
-    "infeasible": "infeasible: proved that no zoning of this fence can meet every bound",
-    "undecided": "undecided: too large to prove within the time allowed",
-    "feasible": "feasible: a valid zoning exists; the search missed it, so no proof says the bounds cannot be met",
-    # older summaries
-    "INFEASIBLE": "infeasible: proved that no zoning of this fence can meet every bound",
-    "UNKNOWN": "undecided: too large to prove within the time allowed",
-    "no proof": "feasible: a valid zoning exists; the search missed it, so no proof says the bounds cannot be met",
-}
-
-
-def _certificate(run: ReportPlan) -> str:
-    out = []
-    certs = dicts(run.summary.get("certificate"))
-    if certs:
-        rows = []
-        for c in certs:
-            status = str(c.get("status", ""))
-            words = _CERT_WORDS.get(status.upper(), status)
-            extra = ", ".join(
-                f"{k} {text_of(v)}"
-                for k, v in c.items()
-                if k not in ("tier", "fence", "status", "seconds", "text", "message")
-            )
-            rows.append(
-                [
-                    c.get("tier"),
-                    c.get("fence"),
-                    words + (f" ({c['text']})" if c.get("text") else ""),
-                    num(c.get("seconds")),
-                    extra,
-                ]
-            )
-        out.append(
-            html_table(
-                "Certificate per fence and tier",
-                ["tier", "fence", "verdict", "seconds", "details"],
-                rows,
-            )
-        )
-    proofs = dicts(run.summary.get("proofs"))
-    if proofs:
-        rows = []
-        for p in proofs:
-            status = str(p.get("status", ""))
-            rows.append(
-                [p.get("tier"), p.get("fence"), _PROOF_WORDS.get(status, status), p.get("text", "")]
-            )
-        out.append(
-            html_table(
-                "Why some bounds could not be met",
-                ["tier", "fence", "verdict", "in plain words"],
-                rows,
-            )
-        )
-    return "".join(out)
-
-
-def _mended(areas: dict) -> list[str]:
-    """Every duplicate merged and every overlap cut under overlaps = "cut"."""
-    out = []
-    merged = areas.get("duplicates_merged") or []
-    if merged:
-        rows = "".join(
-            f"<tr><td>{esc(d.get('kept'))}</td><td>{esc(', '.join(map(str, d.get('merged', []))))}</td>"
-            f"<td>{esc(_counts_before(d.get('counts') or {}))}</td></tr>"
-            for d in merged[:TABLE_ROWS]
-        )
-        out.append(
-            '<h3 id="input-duplicates">Duplicate polygons merged</h3><table><thead><tr><th>kept id</th>'
-            f"<th>merged into it</th><th>counts before</th></tr></thead><tbody>{rows}</tbody></table>"
-        )
-    cut = areas.get("overlaps_cut") or []
-    if cut:
-        rows = "".join(
-            f"<tr><td>{esc(c.get('kept_by'))}</td><td>{esc(c.get('cut_from'))}</td>"
-            f"<td>{float(c.get('overlap_m2') or 0.0):.6g}</td></tr>"
-            for c in cut[:TABLE_ROWS]
-        )
-        out.append(
-            '<h3 id="input-overlaps">Overlaps cut</h3><table><thead><tr><th>kept by</th><th>cut from</th>'
-            f"<th>overlap (m2)</th></tr></thead><tbody>{rows}</tbody></table>"
-        )
-    return out
-
-
-def _counts_before(counts: dict) -> str:
-    return "; ".join(f"{k}: " + ", ".join(f"{c} {num(x)}" for c, x in v.items()) for k, v in counts.items())
-
-
-def _overrides(overrides: object) -> list[str]:
-    """The per-fence bounds of [[tier.override]], beside the tiers' own."""
-    if not isinstance(overrides, dict) or not overrides:
-        return []
-    rows = []
-    for tier, items in overrides.items():
-        for o in items if isinstance(items, list) else []:
-            given = "; ".join(
-                f"{key} " + ", ".join(f"{c} {num(v)}" for c, v in (o.get(key) or {}).items())
-                for key in ("min", "max", "target", "weights")
-                if o.get(key)
-            )
-            rows.append(
-                f"<tr><td>{esc(tier)}</td><td>{esc(', '.join(map(str, o.get('fences', []))))}</td>"
-                f"<td>{esc(given)}</td></tr>"
-            )
-    return [
-        '<h3 id="input-overrides">Bounds that apply in some fences only</h3><table><thead><tr><th>tier</th>'
-        f"<th>fences</th><th>in place of the tier's own</th></tr></thead><tbody>{''.join(rows)}</tbody></table>"
-    ]
-
-
-def _codes_text(codes: object) -> str | None:
-    if not isinstance(codes, list) or not codes or codes == ["all"]:
-        return None
-    shown = ", ".join(map(str, codes[:40]))
-    return shown + (f" and {len(codes) - 40:,} more" if len(codes) > 40 else "")
-
-
-def _input(run: ReportPlan) -> str:
-    s = run.summary
-    out = []
-    areas = s.get("areas") if isinstance(s.get("areas"), dict) else {}
-    graph = s.get("graph") if isinstance(s.get("graph"), dict) else {}
-    facts = []
-    for label, value in (
-        ("Input files", ", ".join(map(str, s.get("inputs") or [])) if s.get("inputs") else None),
-        ("Areas", num(areas.get("count")) if "count" in areas else None),
-        ("Coordinate reference system", areas.get("crs")),
-        ("Why this CRS", areas.get("crs_choice")),
-        ("Fences", num(areas.get("fences")) if "fences" in areas else None),
-        ("Fence codes", _codes_text(areas.get("fence_codes"))),
-        ("Contiguity", graph.get("contiguity")),
-        ("Neighbour pairs", num(graph.get("edges")) if "edges" in graph else None),
-        ("Declared links", num(graph.get("links")) if "links" in graph else None),
-    ):
-        if value not in (None, ""):
-            facts.append(f"<dt>{esc(label)}</dt><dd>{esc(value)}</dd>")
-    if facts:
-        out.append(f'<dl class="facts">{"".join(facts)}</dl>')
-    notes = areas.get("notes") or []
-    if notes:
-        out.append(
-            '<h3 id="input-notes">Notes from reading the input</h3><ul>'
-            + "".join(f"<li>{esc(n)}</li>" for n in notes[:TABLE_ROWS])
-            + "</ul>"
-        )
-    out += _mended(areas)
-    out += _overrides(s.get("overrides"))
-    repaired = areas.get("repaired_polygons")
-    if repaired:
-        shown = ", ".join(map(str, repaired[:200])) + (
-            f" and {len(repaired) - 200:,} more" if len(repaired) > 200 else ""
-        )
-        out.append(
-            f'<h3 id="input-repaired">Repaired polygons</h3><p>{len(repaired):,} invalid polygon(s) were repaired before use: {esc(shown)}.</p>'
-        )
-    islands = dicts(graph.get("islands"))
-    if islands:
-        cols = list(dict.fromkeys(k for d in islands for k in d))
-        rows = [[text_of(d.get(k)) for k in cols] for d in islands]
-        out.append(
-            '<h3 id="input-islands">Islands</h3><p>Parts of a fence with no neighbour path to the rest of it.</p>'
-        )
-        out.append(html_table("Islands found in the area graph", cols, rows))
-    elif "islands" in graph:
-        out.append("<p>No islands: every fence's areas are connected.</p>")
-    return "".join(out)
-
-
-def _rules(run: ReportPlan) -> str:
-    text = run.summary.get("rules")
-    if not text:
-        return ""
-    return f'<pre class="rules" aria-label="Rules file">{esc(text)}</pre>'
-
-
-def _run_details(run: ReportPlan) -> str:
-    s = run.summary
-    out = []
-    search = s.get("search")
-    if isinstance(search, dict) and search:
-        rows = "".join(f"<dt>{esc(k)}</dt><dd>{esc(text_of(v))}</dd>" for k, v in search.items())
-        out.append(f'<h3 id="run-search">Search</h3><dl class="facts">{rows}</dl>')
-    versions = s.get("versions")
-    if isinstance(versions, dict) and versions:
-        out.append('<h3 id="run-versions">Software</h3>')
-        out.append(
-            html_table(
-                "Software versions",
-                ["package", "version"],
-                [[k, v] for k, v in versions.items()],
-                row_headers=True,
-            )
-        )
-    seconds = s.get("seconds")
-    if isinstance(seconds, dict) and seconds:
-        out.append('<h3 id="run-times">Run times</h3>')
-        out.append(
-            html_table(
-                "Seconds per phase",
-                ["phase", "seconds"],
-                [[k, num(v)] for k, v in seconds.items()],
-                row_headers=True,
-            )
-        )
-    return "".join(out)
-
-
 # (anchor id, heading, maker) in page order
 SECTIONS: list[tuple[str, str, Callable[[ReportPlan], str]]] = [
     ("overview", "At a glance", _overview),
@@ -745,10 +456,10 @@ SECTIONS: list[tuple[str, str, Callable[[ReportPlan], str]]] = [
     ("tiers", "Tiers", _tiers),
     ("zones", "Zones", _zones),
     ("fences", "Fences", _fences),
-    ("violations", "Rule breaks", _violations),
+    ("violations", "Rule breaks", violations),
     ("repair", "Repair", repair_section),
-    ("certificate", "Certificate and proofs", _certificate),
-    ("input", "Input", _input),
-    ("rules", "Rules used", _rules),
-    ("run", "Run", _run_details),
+    ("certificate", "Certificate and proofs", certificate),
+    ("input", "Input", input_section),
+    ("rules", "Rules used", rules_section),
+    ("run", "Run", run_details),
 ]
