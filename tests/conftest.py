@@ -19,3 +19,14 @@ def spdata_dir() -> Path:
         if os.environ.get("CI", "").lower() == "true":
             pytest.fail(f"r-cran-spdata shapes are required under CI: {exc}")
         pytest.skip(f"r-cran-spdata shapes unavailable: {exc}")
+
+
+@pytest.fixture(autouse=True)
+def _stop_flag_cleared():
+    """A test that stops a run with a signal leaves the run-wide stop flag set (a run
+    clears it when it starts, and an in-process solve checks it first); the next test
+    starts with it clear."""
+    yield
+    from zonedesign import interrupts
+
+    interrupts.reset()
