@@ -62,3 +62,13 @@ def test_an_undecided_certificate_makes_the_run_exit_1(tmp_path, monkeypatch):
     assert res.summary["audit"]["ok"] and not res.summary["bound_breaks"]
     # an undecided certificate is never a pass: exit 1, "ran but a rule is undecided" (common practice)
     assert res.exit_code == 1
+
+
+def test_demo_takes_no_certificate_like_the_other_commands():
+    from zonedesign.cli import _parser
+
+    # every command that runs the certificate can skip it with one flag (common practice for a costly check)
+    for command in (["demo"], ["design", "a.gpkg", "--rules", "r.toml"], ["audit", "a.gpkg", "--rules", "r.toml", "--lookup", "l.csv"]):
+        args = _parser().parse_args([*command, "--out", "out", "--no-certificate"])
+        assert args.no_certificate is True
+        assert _parser().parse_args([*command, "--out", "out"]).no_certificate is False
