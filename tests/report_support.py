@@ -16,7 +16,8 @@ import pandas as pd
 import shapely
 
 CELL = 100.0  # metres per side of a bottom-tier zone
-TIER_NAMES = ("block", "ward", "quarter")
+TIER_NAMES = ("tier1", "tier2", "tier3")
+ZONE_PREFIXES = ("B", "W", "Q")  # zone codes B0.., W0.., Q0.. per tier, bottom first
 HOUSEHOLDS = (90, 180)  # households per bottom-tier zone, drawn uniformly
 
 
@@ -81,8 +82,7 @@ def grid_run(
     crs = "EPSG:3035"
     sides = (1, *parents)
     labels = []
-    for name, s in zip(TIER_NAMES, sides):
-        prefix = name[0].upper()
+    for prefix, s in zip(ZONE_PREFIXES, sides):
         labels.append(
             np.array(
                 [f"{prefix}{k}" for k in ((r // s) * (side // s) + c // s).tolist()], dtype=object
@@ -196,7 +196,7 @@ def grid_run(
         "certificate": [
             {
                 "fence": f,
-                "tier": "block",
+                "tier": "tier1",
                 "status": "FEASIBLE",
                 "seconds": 0.1,
                 "zones": 4,
@@ -208,7 +208,7 @@ def grid_run(
         "bound_breaks": bound_breaks,
         "proofs": [
             {
-                "tier": "block",
+                "tier": "tier1",
                 "fence": fences[0],
                 "status": "INFEASIBLE",
                 "kind": "arithmetic",

@@ -50,11 +50,11 @@ def test_every_zone_of_every_tier_is_one_path_with_its_id_and_tooltip(small):
 
 def test_rule_breaking_zones_are_hatched_and_outlined_not_only_coloured(small):
     run, text, page = small
-    table = run["tables"]["block"]
+    table = run["tables"]["tier1"]
     broken = set(table.loc[table["bound_break"], "zone"])
     assert len(broken) == 2
     for p in page.zone_paths:
-        if p["svg"] != "map-block":
+        if p["svg"] != "map-tier1":
             continue
         classes = p["class"].split()
         hatched = any(re.fullmatch(r"h\d+", c) for c in classes)
@@ -68,7 +68,7 @@ def test_rule_breaking_zones_are_hatched_and_outlined_not_only_coloured(small):
 
 def test_fences_are_drawn_as_their_own_heavier_line(small):
     _, text, page = small
-    assert sorted(p for p in page.fence_paths if p) == ["map-block", "map-ward"]
+    assert sorted(p for p in page.fence_paths if p) == ["map-tier1", "map-tier2"]
     assert re.search(r"\.fence\{fill:none;stroke:#[0-9a-f]{6};stroke-width:2", text)
 
 
@@ -79,9 +79,9 @@ def test_every_violation_row_links_to_an_element_that_exists(small):
     assert page.violation_rows == n
     assert len(page.violation_links) == n
     assert all(h.startswith("#") and h[1:] in ids for h in page.violation_links)
-    table = run["tables"]["block"]
+    table = run["tables"]["tier1"]
     for z in table.loc[table["bound_break"], "zone"]:
-        assert "#" + element_id("zone", "block", z) in page.violation_links
+        assert "#" + element_id("zone", "tier1", z) in page.violation_links
 
 
 def test_ids_are_unique(small):
@@ -134,7 +134,7 @@ def test_text_contrast_is_adequate(small):
 def test_distributions_mark_floor_target_and_ceiling_from_the_rules(small):
     run, text, _ = small
     limits = limits_from_rules(run["summary"]["rules"], list(run["tables"]))
-    assert limits["block"]["households"] == {"min": 47.0, "target": 135.0, "max": 270.0}
+    assert limits["tier1"]["households"] == {"min": 47.0, "target": 135.0, "max": 270.0}
     charts = re.findall(
         r'<img class="chart" src="data:image/svg\+xml;base64,([^"]+)" alt="([^"]*)"', text
     )
@@ -161,12 +161,12 @@ def test_tables_cover_fences_proofs_certificate_islands_rules_and_versions(small
 def test_redraw_report_shows_a_change_map_and_the_share_unchanged():
     run = grid_run(8, parents=(4,), fence_side=4)
     kinds = np.array(["kept", "merged", "split", "reshaped", "new", "kept"])
-    table = run["tables"]["block"]
+    table = run["tables"]["tier1"]
     table["change"] = kinds[np.arange(len(table)) % kinds.shape[0]]
     run["summary"]["command"] = "redraw"
     changes = pd.DataFrame(
         {
-            "tier": ["ward"] * 5,
+            "tier": ["tier2"] * 5,
             "fence": ["D0"] * 5,
             "old_zones": ["W0", "W1;W2", "W3", "W9", "W8"],
             "new_zone": ["W0", "W1", "W2", "W3", ""],
@@ -175,7 +175,7 @@ def test_redraw_report_shows_a_change_map_and_the_share_unchanged():
     )
     text = render_report(**run, changes=changes)
     page = Page(text)
-    change_paths = [p for p in page.zone_paths if p["svg"] == "changes-map-block"]
+    change_paths = [p for p in page.zone_paths if p["svg"] == "changes-map-tier1"]
     assert len(change_paths) == len(table)
     by_zone = dict(zip(table["zone"], table["change"]))
     for p in change_paths:
@@ -190,8 +190,8 @@ def test_redraw_report_shows_a_change_map_and_the_share_unchanged():
     for k in set(kinds):
         assert re.search(rf'class="zone k-{k}"[^>]*/></svg><span>{k}:', text)
     share = (table["change"] == "kept").mean()
-    assert f"tier block: {100 * share:.1f}% unchanged" in text
-    assert "tier ward: 50.0% unchanged" in text  # 2 kept of the 4 zones now standing
+    assert f"tier tier1: {100 * share:.1f}% unchanged" in text
+    assert "tier tier2: 50.0% unchanged" in text  # 2 kept of the 4 zones now standing
 
 
 def test_sections_render_from_whatever_the_summary_holds(tmp_path):

@@ -251,7 +251,7 @@ def test_map_has_one_path_per_zone_and_is_painted(browser, design):
         assert sorted(ids) == sorted(element_id("zone", tier, z) for z in table["zone"])
     box = browser.eval(
         sid,
-        "(() => { const s = document.getElementById('map-block'); s.scrollIntoView({block: 'start'});"
+        "(() => { const s = document.getElementById('map-tier1'); s.scrollIntoView({block: 'start'});"
         " const r = s.getBoundingClientRect(); return [r.left, r.top, r.width, r.height]; })()",
     )
     shot = browser.send("Page.captureScreenshot", {"format": "png"}, sid)["data"]
@@ -279,11 +279,11 @@ def test_map_has_one_path_per_zone_and_is_painted(browser, design):
 
 def test_hovering_a_zone_shows_its_figures(browser, design):
     sid = design["sid"]
-    table = design["run"]["tables"]["block"]
+    table = design["run"]["tables"]["tier1"]
     broken = table[table["bound_break"]].iloc[0]
     fine = table[~table["bound_break"]].iloc[5]
     for row in (fine, broken):
-        zid = element_id("zone", "block", row["zone"])
+        zid = element_id("zone", "tier1", row["zone"])
         x, y = browser.eval(
             sid,
             f"(() => {{ const p = document.getElementById('{zid}'); p.scrollIntoView({{block: 'center'}});"
@@ -318,8 +318,8 @@ def test_violation_links_reach_their_zone(browser, design):
         ".map(a => a.getAttribute('href').slice(1)).filter(id => !document.getElementById(id))",
     )
     assert missing == []
-    table = design["run"]["tables"]["block"]
-    zid = element_id("zone", "block", table[table["bound_break"]]["zone"].iloc[0])
+    table = design["run"]["tables"]["tier1"]
+    zid = element_id("zone", "tier1", table[table["bound_break"]]["zone"].iloc[0])
     browser.eval(sid, f"document.querySelector('tr.violation a[href=\"#{zid}\"]').click()")
     assert browser.eval(sid, "location.hash") == f"#{zid}"
     assert browser.eval(
@@ -334,9 +334,9 @@ def test_a_link_into_a_closed_fence_section_opens_it_and_shows_the_zone(browser,
     write_report(path, **run)
     url = path.resolve().as_uri()
     sid = browser.open(url)
-    table = run["tables"]["block"]
+    table = run["tables"]["tier1"]
     far = table[table["fence"] == "D3"]["zone"].iloc[0]
-    zid = element_id("zone", "block", far)
+    zid = element_id("zone", "tier1", far)
     assert browser.eval(sid, f"document.getElementById('{zid}').closest('details').open") is False
     browser.eval(sid, f"location.hash = '#{zid}'")
     browser.eval(sid, "new Promise(r => setTimeout(r, 50))")
@@ -374,10 +374,10 @@ def centre_of(b: Browser, sid: str, svg_id: str) -> tuple[float, float]:
 
 def test_the_wheel_zooms_a_map_and_a_drag_pans_it(browser, design):
     sid = design["sid"]
-    before = viewbox(browser, sid, "map-block")
-    x, y = centre_of(browser, sid, "map-block")
-    wheel(browser, sid, "map-block", x, y, -240)
-    zoomed = viewbox(browser, sid, "map-block")
+    before = viewbox(browser, sid, "map-tier1")
+    x, y = centre_of(browser, sid, "map-tier1")
+    wheel(browser, sid, "map-tier1", x, y, -240)
+    zoomed = viewbox(browser, sid, "map-tier1")
     assert zoomed[2] < before[2] and zoomed[3] < before[3]  # a smaller window onto the map: zoomed in
     browser.send("Input.dispatchMouseEvent", {"type": "mousePressed", "x": x, "y": y, "button": "left",
                                               "clickCount": 1}, sid)
@@ -385,20 +385,20 @@ def test_the_wheel_zooms_a_map_and_a_drag_pans_it(browser, design):
                                               "buttons": 1}, sid)
     browser.send("Input.dispatchMouseEvent", {"type": "mouseReleased", "x": x + 80, "y": y + 40, "button": "left",
                                               "clickCount": 1}, sid)
-    panned = viewbox(browser, sid, "map-block")
+    panned = viewbox(browser, sid, "map-tier1")
     assert panned[0] < zoomed[0] and panned[1] < zoomed[1] and panned[2:] == pytest.approx(zoomed[2:], rel=1e-6)
     # zoomed in, the zone under the pointer still tells its code
     zone = browser.eval(sid, f"document.elementFromPoint({x}, {y}).closest('.zone').dataset.zone")
     browser.send("Input.dispatchMouseEvent", {"type": "mouseMoved", "x": x, "y": y}, sid)
     assert f"zone {zone}" in browser.eval(sid, "document.getElementById('tip').textContent")
-    browser.eval(sid, "document.getElementById('map-block').dispatchEvent(new MouseEvent('dblclick'))")
-    assert viewbox(browser, sid, "map-block") == pytest.approx(before)  # a double click shows the whole map again
+    browser.eval(sid, "document.getElementById('map-tier1').dispatchEvent(new MouseEvent('dblclick'))")
+    assert viewbox(browser, sid, "map-tier1") == pytest.approx(before)  # a double click shows the whole map again
     assert console_errors(browser, sid) == []  # the script ran under the page's hashed CSP
 
 
 def test_a_design_and_its_redraw_paint_a_kept_zone_alike(browser, tmp_path):
     design_run = grid_run(8, parents=(4,), fence_side=4, low_zones=0)
-    redraw_run = merged_run(design_run, "block", [("B0", "B1"), ("B18", "B26")])
+    redraw_run = merged_run(design_run, "tier1", [("B0", "B1"), ("B18", "B26")])
     fills = []
     for name, run in (("design", design_run), ("redraw", redraw_run)):
         path = tmp_path / f"{name}.html"
@@ -406,7 +406,7 @@ def test_a_design_and_its_redraw_paint_a_kept_zone_alike(browser, tmp_path):
         sid = browser.open(path.resolve().as_uri())
         fills.append(browser.eval(
             sid,
-            "Object.fromEntries(Array.from(document.querySelectorAll('#map-block path.zone'))"
+            "Object.fromEntries(Array.from(document.querySelectorAll('#map-tier1 path.zone'))"
             ".map(p => [p.dataset.zone, getComputedStyle(p).fill]))",
         ))
     kept = sorted(set(fills[0]) & set(fills[1]))

@@ -132,10 +132,10 @@ def test_colour_graph_is_proper_on_random_graphs():
 def test_the_report_map_gives_touching_zones_different_fills():
     run = grid_run(12, parents=(3,), fence_side=6, low_zones=0)
     text = render_report(**run)
-    layer = run["layers"]["block"]
+    layer = run["layers"]["tier1"]
     fill = {}
     for classes, zone in re.findall(
-        r'class="zone ([^"]+)" data-zone="([^"]+)" data-tier="block"', text
+        r'class="zone ([^"]+)" data-zone="([^"]+)" data-tier="tier1"', text
     ):
         fill[zone] = re.search(r"[fh](\d+)", classes).group(1)
     assert len(fill) == len(layer)

@@ -1,7 +1,7 @@
 """The report of a national-scale run stays within its size budget and says what it left out.
 
 The run is invented: 57,600 bottom-tier zones (the scale of about 200,000 areas grouped by
-three or four), 14,400 wards and 900 quarters, in 36 fences.
+three or four), 14,400 tier-2 zones and 900 tier-3 zones, in 36 fences.
 """
 
 from __future__ import annotations
@@ -34,10 +34,10 @@ def test_upper_tiers_are_drawn_whole_and_large_tiers_fence_by_fence(large):
     drawn = {}
     for p in page.zone_paths:
         drawn.setdefault(p["data-tier"], set()).add(p["data-zone"])
-    quarter = run["tables"]["quarter"]
-    assert len(quarter) <= MAX_ZONES_PER_MAP
-    assert drawn["quarter"] == set(quarter["zone"])
-    for tier in ("block", "ward"):
+    top = run["tables"]["tier3"]
+    assert len(top) <= MAX_ZONES_PER_MAP
+    assert drawn["tier3"] == set(top["zone"])
+    for tier in ("tier1", "tier2"):
         n = len(run["tables"][tier])
         assert n > MAX_ZONES_PER_MAP
         assert 0 < len(drawn[tier]) < n
@@ -50,9 +50,9 @@ def test_upper_tiers_are_drawn_whole_and_large_tiers_fence_by_fence(large):
         assert f"{n:,} zones are more than one map can carry" in note
         assert f"Left out: {len(fences) - len(shown):,} of {len(fences):,} fences" in note
     # the fence holding the rule breaks is among those drawn
-    table = run["tables"]["block"]
+    table = run["tables"]["tier1"]
     for z in table.loc[table["bound_break"], "zone"]:
-        assert z in drawn["block"]
+        assert z in drawn["tier1"]
 
 
 def test_every_violation_still_links_to_an_element_that_exists(large):

@@ -114,6 +114,6 @@ def test_y_points_up_on_the_map():
 
 def test_element_ids_are_one_to_one_and_safe():
     names = ["a b", "a_b", "a-b", "a_0020b", "é", "x/y", "D1-t1-n0001", "", "-", "--"]
-    ids = {(t, z): element_id("zone", t, z) for t in ("block", "blo-ck", "blo ck") for z in names}
+    ids = {(t, z): element_id("zone", t, z) for t in ("tier1", "blo-ck", "blo ck") for z in names}
     assert len(set(ids.values())) == len(ids)
     assert all(re.fullmatch(r"[A-Za-z0-9_-]+", i) for i in ids.values())
