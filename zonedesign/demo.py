@@ -45,7 +45,7 @@ def run_demo(
     out = Path(out)
     if n < MIN_AREAS:
         raise InputError(f"--areas must be at least {MIN_AREAS} for the demo region, not {n}")
-    api._check_out(out.resolve(), overwrite)
+    api.check_out(out.resolve(), overwrite)
     # the generated input is staged in the system's temporary folder, so a killed demo
     # leaves nothing beside the target; it is copied into OUT/input/ atomically, and the
     # outputs name OUT/input/, where the files stay, not the staging folder
