@@ -20,7 +20,8 @@ import shapely
 
 from zonedesign.cli import main
 from zonedesign.errors import InputError, RulesError
-from zonedesign.io.read import match_ids, read_areas
+from zonedesign.io.read import read_areas
+from zonedesign.io.table import match_ids
 from zonedesign.rules import load_rules, parse_rules
 
 UTM = "EPSG:32633"

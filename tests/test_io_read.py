@@ -17,7 +17,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from zonedesign.errors import InputError
-from zonedesign.io.read import read_areas, read_table_columns, read_table_sample
+from zonedesign.io.formats import read_table_columns, read_table_sample
+from zonedesign.io.read import read_areas
 from zonedesign.io.validate import disjoint_interiors
 from zonedesign.rules import AreasRules
 

@@ -430,7 +430,7 @@ def _run(args: argparse.Namespace) -> int:
 
 
 def _rules(args: argparse.Namespace) -> int:
-    from zonedesign.io.read import rule_columns
+    from zonedesign.io.table import rule_columns
     from zonedesign.rules import check_rules_against, load_rules
 
     if args.rules_command == "init":

@@ -64,10 +64,10 @@ def read_starter_input(path: str | Path, layer: str | None = None) -> tuple[pd.D
     """The attribute table of an areas file, its rook graph (None without usable polygons)
     and a note saying why there is no graph."""
     from zonedesign.graph.adjacency import rook_graph
-    from zonedesign.io.read import _read_frame, read_table_columns
+    from zonedesign.io.formats import read_frame, read_table_columns
 
     columns = read_table_columns(path, layer)[0]
-    frame, _ = _read_frame(Path(path), layer, columns)
+    frame, _ = read_frame(Path(path), layer, columns)
     table = pd.DataFrame(frame.drop(columns=frame.geometry.name))
     try:
         graph = rook_graph(frame.geometry.values)

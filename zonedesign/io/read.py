@@ -7,24 +7,21 @@ zone of the data's centre so that areas and lengths are in metres.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import geopandas as gpd
 import numpy as np
 import pandas as pd
-import pyogrio
 import shapely
 from pyproj import CRS
 
 from zonedesign.errors import InputError
 from zonedesign.io import validate as v
+from zonedesign.io.formats import read_frame
+from zonedesign.io.table import ColumnSources, column_sources, read_counts_table
 from zonedesign.records import Areas
 from zonedesign.rules import ROW_ID, AreasRules, projected_problem
-
-PARQUET_SUFFIXES = (".parquet", ".geoparquet")
-MULTI_LAYER_SUFFIXES = (".gpkg",)
 
 
 @dataclass(frozen=True)
@@ -61,12 +58,12 @@ def read_areas(
     where = path.name
     wanted = _wanted_columns(areas_rules)
     try:
-        frame, present = _read_frame(path, layer or areas_rules.layer, list(wanted))
+        frame, present = read_frame(path, layer or areas_rules.layer, list(wanted))
     except InputError as exc:
         exc.problems = exc.problems or [str(exc)]
         raise
     table = read_counts_table(areas_rules.table) if areas_rules.table is not None else None
-    sources, problems = _column_sources(areas_rules, wanted, present, where, table)
+    sources, problems = column_sources(areas_rules, wanted, present, where, table)
     n = len(frame)
     if n == 0:
         v.raise_problems([f"{where}: no rows (empty layer)", *problems])
@@ -80,7 +77,7 @@ def read_areas(
         ids, id_problems = v.check_ids(frame[areas_rules.id], areas_rules.id, where)
         problems += id_problems
     labels = v.row_labels(ids)
-    columns = _Columns(frame, where, labels, sources)
+    columns = ColumnSources(frame, where, labels, sources)
     if table is not None and ids is not None and areas_rules.id in table.frame:
         found, join_notes = columns.join(table, areas_rules.id, ids, frame[areas_rules.id].dtype.kind)
         problems += found
@@ -356,344 +353,7 @@ def _metres(crs: CRS) -> bool:
 
 # ---------------------------------------------------------------- counts table
 
-TABLE_SUFFIXES = (".csv", ".parquet")
-LIST_IDS = 10  # unmatched ids listed per problem
-
-
-@dataclass(frozen=True)
-class CountsTable:
-    """A counts table as read: every column as found (CSV columns as text)."""
-
-    frame: pd.DataFrame
-    where: str
-
-
-def read_counts_table(path: str | Path) -> CountsTable:
-    """A CSV or Parquet table of counts and attributes, one row per area id.
-
-    CSV cells are read as text, so ids keep their leading zeros; numbers are parsed per
-    column later, with every cell that is not one named.
-    """
-    path = Path(path)
-    where = path.name
-    if not path.is_file():
-        raise InputError(f"{where}: counts table not found ({path})")
-    suffix = path.suffix.lower()
-    try:
-        if suffix == ".parquet":
-            frame = pd.read_parquet(path)
-        elif suffix == ".csv":
-            frame = pd.read_csv(path, dtype=str, keep_default_na=False, na_values=[""], encoding="utf-8-sig")
-        else:
-            raise InputError(f"{where}: a counts table must be .csv or .parquet, not {path.suffix or 'no suffix'!r}")
-    except InputError:
-        raise
-    except UnicodeDecodeError as exc:
-        raise InputError(f"{where}: not UTF-8 text (byte {exc.start})") from exc
-    except Exception as exc:  # pandas and pyarrow raise many kinds
-        raise InputError(f"{where}: cannot read the counts table ({_first_line(exc)})") from exc
-    frame.columns = [str(c) for c in frame.columns]
-    dup = sorted({c for c in frame.columns if list(frame.columns).count(c) > 1})
-    if dup:
-        raise InputError(f"{where}: column(s) {', '.join(map(repr, dup))} appear more than once")
-    if frame.empty:
-        raise InputError(f"{where}: the counts table has no rows")
-    return CountsTable(frame=frame.reset_index(drop=True), where=where)
-
-
-def rule_columns(
-    path: str | Path, areas_rules: AreasRules, layer: str | None = None
-) -> tuple[list[str], list[str] | None]:
-    """The columns of the areas file and, with `[areas] table`, of the counts table."""
-    columns = read_table_columns(path, layer=layer)[0]
-    if areas_rules.table is None:
-        return columns, None
-    return columns, list(read_counts_table(areas_rules.table).frame.columns)
-
-
-def _column_sources(
-    rules: AreasRules, wanted: dict[str, str], present: list[str], where: str, table: CountsTable | None
-) -> tuple[dict[str, str], list[str]]:
-    """Where each wanted column is read from ("file" or "table"), and the problems."""
-    tcols = list(table.frame.columns) if table is not None else []
-    sources: dict[str, str] = {}
-    problems: list[str] = []
-    absent: dict[str, str] = {}
-    for col, role in wanted.items():
-        if role == "id":
-            if col not in present:
-                absent[col] = role
-            elif table is not None and col not in tcols:
-                problems.append(f"{table.where}: id column {col!r} not found, so the table cannot be joined "
-                                f"(columns: {', '.join(map(repr, tcols))})")
-            continue
-        in_file, in_table = col in present, col in tcols
-        if in_file and in_table:
-            if rules.prefer is None:
-                problems.append(
-                    f"{where}: {role} column {col!r} is also in {table.where}; say which to use with "
-                    'prefer = "table" or prefer = "file" in [areas]'
-                )
-            sources[col] = rules.prefer or "file"
-        elif in_table:
-            sources[col] = "table"
-        elif in_file:
-            sources[col] = "file"
-        else:
-            absent[col] = role
-    shown = where if table is None else f"{where} or {table.where}"
-    problems += v.missing_columns(present + [c for c in tcols if c not in present], absent, shown)
-    return sources, problems
-
-
-class _Columns:
-    """The wanted columns in the areas file's row order, from the file or the joined table."""
-
-    def __init__(self, frame: gpd.GeoDataFrame, where: str, labels: v.RowLabels, sources: dict[str, str]):
-        self.frame, self.where, self.labels, self.sources = frame, where, labels, sources
-        self.table: CountsTable | None = None
-        self.rows: np.ndarray | None = None  # table row of each area, -1 where none
-        self.table_labels: v.RowLabels | None = None
-
-    def join(self, table: CountsTable, id_col: str, ids: np.ndarray, file_kind: str) -> tuple[list[str], list[str]]:
-        """Match the table's rows to the areas by id; problems for ids on one side only."""
-        tids, problems = v.check_ids(table.frame[id_col], id_col, table.where)
-        rows, zero_matched = match_ids(ids, tids, tolerant=file_kind in "iuf" or table.frame[id_col].dtype.kind in "iuf")
-        self.table, self.rows, self.table_labels = table, rows, v.row_labels(tids)
-        missing = np.flatnonzero(rows < 0)
-        if missing.size:
-            problems.append(f"{self.where}: {missing.size} area id(s) have no row in {table.where}: {_ids_text(ids[missing])}")
-        used = np.zeros(len(tids), dtype=bool)
-        used[rows[rows >= 0]] = True
-        extra = np.flatnonzero(~used & ~np.asarray(pd.isna(tids), dtype=bool))
-        if extra.size:
-            problems.append(f"{table.where}: {extra.size} id(s) match no area in {self.where}: {_ids_text(tids[extra])}")
-        notes = []
-        if zero_matched:
-            notes.append(
-                f"{table.where}: {zero_matched} id(s) matched to {self.where} once leading zeros were set aside "
-                "(one side stores ids as numbers)"
-            )
-        taken = [c for c, s in self.sources.items() if s == "table"]
-        if taken:
-            notes.append(f"{table.where}: {', '.join(map(repr, taken))} joined on {id_col!r}")
-        return problems, notes
-
-    def _source(self, col: str) -> tuple[pd.Series, str, v.RowLabels, bool] | None:
-        if self.sources.get(col) == "table":
-            if self.table is None:
-                return None
-            return self.table.frame[col], self.table.where, self.table_labels, True
-        if col not in self.frame:
-            return None
-        return self.frame[col], self.where, self.labels, False
-
-    def _in_file_order(self, values: np.ndarray, fill: object) -> np.ndarray:
-        out = np.full(self.rows.shape[0], fill, dtype=values.dtype)
-        ok = self.rows >= 0
-        out[ok] = values[self.rows[ok]]
-        return out
-
-    def numeric(self, col: str, **kw: bool) -> tuple[np.ndarray, list[str]]:
-        got = self._source(col)
-        n = self.frame.shape[0]
-        if got is None:
-            return np.zeros(n), []
-        values, where, labels, joined = got
-        nums, problems = v.numeric_column(values, col, where, labels, **kw)
-        return (self._in_file_order(nums, np.nan) if joined else nums), problems
-
-    def fence(self, rules: AreasRules) -> tuple[np.ndarray, list[str], list[str]]:
-        col = rules.fence
-        got = self._source(col)
-        n = self.frame.shape[0]
-        if got is None:
-            return np.full(n, "all", dtype=object), [], []
-        values, where, labels, joined = got
-        codes, problems = v.fence_codes(values, col, where, labels)
-        notes: list[str] = []
-        cut = rules.fence_prefix or rules.fence_suffix
-        if cut and not problems:
-            codes, problems = v.cut_codes(codes, col, where, labels, prefix=rules.fence_prefix, suffix=rules.fence_suffix)
-            if not problems:
-                found = sorted(set(codes.tolist()))
-                side = "first" if rules.fence_prefix else "last"
-                shown = ", ".join(found[:LIST_IDS]) + (f" and {len(found) - LIST_IDS} more" if len(found) > LIST_IDS else "")
-                notes.append(f"{where}: fence codes are the {side} {cut} characters of {col!r}: {len(found)} fences ({shown})")
-        return (self._in_file_order(codes, None) if joined else codes), problems, notes
-
-
-def match_ids(ids: np.ndarray, tids: np.ndarray, *, tolerant: bool) -> tuple[np.ndarray, int]:
-    """The row of `tids` holding each of `ids` (-1 where none), and how many matched only
-    once leading zeros were set aside.
-
-    Ids are compared as text, so '007' and '7' differ; but when one side stores ids as
-    numbers (which drops leading zeros), an id left without a partner is matched to the one
-    unpartnered id that reads the same without its leading zeros.
-    """
-    first: dict[str, int] = {}
-    for k, t in enumerate(tids.tolist()):
-        if t is not None:
-            first.setdefault(t, k)
-    rows = np.array([first.get(i, -1) if i is not None else -1 for i in ids.tolist()], dtype=np.int64)
-    if not tolerant or not (rows < 0).any():
-        return rows, 0
-    used = set(rows[rows >= 0].tolist())
-    spare: dict[str, list[int]] = {}
-    for t, k in first.items():
-        if k not in used:
-            spare.setdefault(t.lstrip("0") or "0", []).append(k)
-    wanting: dict[str, list[int]] = {}
-    for r in np.flatnonzero(rows < 0):
-        if ids[r] is not None:
-            wanting.setdefault(ids[r].lstrip("0") or "0", []).append(int(r))
-    matched = 0
-    for key, areas in wanting.items():
-        if len(areas) == 1 and len(spare.get(key, ())) == 1:
-            rows[areas[0]] = spare[key][0]
-            matched += 1
-    return rows, matched
-
-
-def _ids_text(ids: np.ndarray) -> str:
-    shown = ", ".join(repr(x) for x in ids[:LIST_IDS].tolist())
-    return shown + (f" (first {LIST_IDS} of {ids.size})" if ids.size > LIST_IDS else "")
-
 
 # ---------------------------------------------------------------- reading files
 
 
-def _read_frame(path: Path, layer: str | None, wanted: list[str]) -> tuple[gpd.GeoDataFrame, list[str]]:
-    """The wanted columns that exist (plus geometry), and every column the source has."""
-    where = path.name
-    if not path.exists():
-        raise InputError(f"{where}: file not found ({path})")
-    if path.suffix.lower() in PARQUET_SUFFIXES:
-        present, geometry = _parquet_columns(path)
-        cols = [c for c in wanted if c in present]
-        try:
-            frame = gpd.read_parquet(path, columns=[*cols, geometry])
-        except Exception as exc:  # pyarrow raises many kinds
-            raise InputError(f"{where}: cannot read as GeoParquet ({_first_line(exc)})") from exc
-        return frame.reset_index(drop=True), present
-    layer = _pick_layer(path, layer)
-    try:
-        info = pyogrio.read_info(path, layer=layer)
-        present = [str(c) for c in info["fields"]]
-        cols = [c for c in wanted if c in present]
-        frame = _read_ogr(path, layer, cols)
-    except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError, OSError) as exc:
-        raise InputError(f"{where}: cannot read ({_first_line(exc)})") from exc
-    if not isinstance(frame, gpd.GeoDataFrame) or frame.geometry.name not in frame:
-        raise InputError(f"{where}: layer {layer!r} has no geometry column")
-    return frame, present
-
-
-def _read_ogr(path: Path, layer: str | None, cols: list[str]) -> gpd.GeoDataFrame:
-    try:
-        return pyogrio.read_dataframe(path, layer=layer, columns=cols, use_arrow=True)
-    except (ImportError, RuntimeError):
-        # arrow reading needs GDAL >= 3.6 with pyarrow; the plain path reads the same data
-        return pyogrio.read_dataframe(path, layer=layer, columns=cols)
-
-
-def _pick_layer(path: Path, layer: str | None) -> str | None:
-    where = path.name
-    try:
-        layers = [str(x) for x in pyogrio.list_layers(path)[:, 0]]
-    except (pyogrio.errors.DataSourceError, OSError) as exc:
-        raise InputError(f"{where}: cannot read ({_first_line(exc)})") from exc
-    if not layers:
-        raise InputError(f"{where}: no layers")
-    listed = ", ".join(map(repr, layers))
-    multi = path.suffix.lower() in MULTI_LAYER_SUFFIXES or len(layers) > 1
-    if layer is None:
-        if len(layers) > 1:
-            raise InputError(f"{where}: {len(layers)} layers ({listed}); say which with --layer or [areas] layer")
-        return layers[0]
-    if layer not in layers:
-        if multi:
-            raise InputError(f"{where}: no layer {layer!r} (layers: {listed})")
-        return layers[0]  # one-layer formats: the layer name is not part of the data
-    return layer
-
-
-def _parquet_columns(path: Path) -> tuple[list[str], str]:
-    import pyarrow.parquet as pq
-
-    where = path.name
-    try:
-        schema = pq.read_schema(path)
-    except Exception as exc:  # pyarrow raises many kinds
-        raise InputError(f"{where}: cannot read as Parquet ({_first_line(exc)})") from exc
-    meta = schema.metadata or {}
-    if b"geo" not in meta:
-        raise InputError(f"{where}: a Parquet file without GeoParquet metadata (no geometry column)")
-    try:
-        geometry = json.loads(meta[b"geo"])["primary_column"]
-    except (ValueError, KeyError, TypeError) as exc:
-        raise InputError(f"{where}: unreadable GeoParquet metadata ({exc})") from exc
-    names = [n for n in schema.names if n != geometry and not n.startswith("__index_level_")]
-    return names, geometry
-
-
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip()
-    return text.splitlines()[0] if text else type(exc).__name__
-
-
-def read_table_columns(
-    path: str | Path, layer: str | None = None
-) -> tuple[list[str], list[str], int, str | None]:
-    """The attribute columns of an areas file without reading its rows.
-
-    Returns (columns, dtypes as numpy names, number of rows, CRS as a string or None);
-    used by `rules check` and `rules init`.
-    """
-    path = Path(path)
-    where = path.name
-    if not path.exists():
-        raise InputError(f"{where}: file not found ({path})")
-    if path.suffix.lower() in PARQUET_SUFFIXES:
-        import pyarrow.parquet as pq
-
-        names, geometry = _parquet_columns(path)
-        schema = pq.read_schema(path)
-        empty = schema.empty_table().to_pandas()
-        dtypes = [str(empty[c].dtype) for c in names]
-        n_rows = pq.ParquetFile(path).metadata.num_rows
-        geo = json.loads(schema.metadata[b"geo"])
-        crs_json = geo.get("columns", {}).get(geometry, {}).get("crs", "OGC:CRS84")
-        crs = None if crs_json is None else CRS.from_user_input(crs_json).to_string()
-        return names, dtypes, int(n_rows), crs
-    layer = _pick_layer(path, layer)
-    try:
-        info = pyogrio.read_info(path, layer=layer, force_feature_count=True)
-    except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError, OSError) as exc:
-        raise InputError(f"{where}: cannot read ({_first_line(exc)})") from exc
-    return (
-        [str(c) for c in info["fields"]],
-        [str(d) for d in info["dtypes"]],
-        int(info["features"]),
-        info["crs"],
-    )
-
-
-def read_table_sample(path: str | Path, layer: str | None = None, n_rows: int = 1000) -> pd.DataFrame:
-    """The first rows of an areas file without geometry (for `rules init`)."""
-    path = Path(path)
-    where = path.name
-    if not path.exists():
-        raise InputError(f"{where}: file not found ({path})")
-    if path.suffix.lower() in PARQUET_SUFFIXES:
-        import pyarrow.parquet as pq
-
-        names, _ = _parquet_columns(path)
-        table = pq.ParquetFile(path).iter_batches(batch_size=n_rows, columns=names)
-        batch = next(table, None)
-        return pd.DataFrame(columns=names) if batch is None else batch.to_pandas()
-    layer = _pick_layer(path, layer)
-    try:
-        return pyogrio.read_dataframe(path, layer=layer, read_geometry=False, max_features=n_rows)
-    except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError, OSError) as exc:
-        raise InputError(f"{where}: cannot read ({_first_line(exc)})") from exc

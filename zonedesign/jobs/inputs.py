@@ -73,7 +73,8 @@ def prepare(
 ) -> Prepared:
     """Read the rules and the areas, build the graph, add links, find islands."""
     from zonedesign.graph.areagraph import area_graph
-    from zonedesign.io.read import read_areas, rule_columns
+    from zonedesign.io.read import read_areas
+    from zonedesign.io.table import rule_columns
     from zonedesign.rules import check_fences_against, check_rules_against
 
     seconds: dict[str, float] = {}
