@@ -314,8 +314,12 @@ def test_an_interrupt_in_any_phase_exits_130_or_143_and_keeps_the_previous_outpu
         code, err, sent = interrupt_in((*runs[kind], "--out", targets[kind], "--overwrite"), marker, wait, sig, tmp_path)
         target = targets[kind]
         assert beside(target) == [], f"{marker!r}: a temporary folder was left"
-        if not sent:
-            continue  # finished before the signal: nothing to check but the folder above
+        finished = any(line.split("] ", 1)[-1].startswith("finished") for line in err.splitlines())
+        if not sent or finished:
+            # the run ended before the signal (it may land while the process exits, and then
+            # ends it by the signal's default): its output is whole, nothing more to check
+            assert code in (0, 1, -sig, 128 + sig), (marker, code, err)
+            continue
         stopped += 1
         assert code == 128 + sig, (marker, code, err)
         assert checksums(target) == previous[kind], f"{marker!r}: the previous output changed"
