@@ -213,3 +213,15 @@ def test_hashing_and_tolerant_agree_on_voronoi_cells():
 def test_build_graph_refuses_unknown_contiguity():
     with pytest.raises(ValueError, match="contiguity"):
         build_graph([shapely.box(0, 0, 1, 1)], GraphRules(contiguity="bishop"))
+
+
+def test_a_tolerance_that_parts_exact_neighbours_says_so():
+    # b touches a along 5 mm of a's edge; snapping at 2 cm takes that contact away
+    a, b, c = shapely.box(0, 0, 1, 1), shapely.box(1, 0.995, 2, 1.995), shapely.box(0, 1, 1, 2)
+    notes: list[str] = []
+    graph = build_graph([a, b, c], GraphRules(tolerance=0.02), notes=notes)
+    assert (0, 1) not in edge_dict(graph)
+    assert len(notes) == 1 and "1 pair(s)" in notes[0] and "tolerance 0.02" in notes[0]
+    quiet: list[str] = []
+    kept = build_graph([a, b, c], GraphRules(tolerance=0.001), notes=quiet)
+    assert (0, 1) in edge_dict(kept) and quiet == []

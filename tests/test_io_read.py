@@ -407,3 +407,10 @@ def test_projected_file_is_measured_as_is_without_notes(tmp_path: Path) -> None:
     assert file.crs_note == f"areas and lengths measured in the file's projected CRS {UTM}"
     assert isinstance(file.geometry, gpd.GeoSeries) and isinstance(file.areas.ids, np.ndarray)
     assert pd.api.types.is_float_dtype(file.areas.area.dtype)
+
+
+def test_a_layer_named_for_a_one_layer_file_is_noted_not_silently_ignored(tmp_path: Path) -> None:
+    path = write(frame(), tmp_path / "areas.geojson")
+    notes = read_areas(path, RULES, layer="blocks").notes
+    assert any("layer 'blocks' ignored" in n and ".geojson" in n for n in notes)
+    assert not any("ignored" in n for n in read_areas(path, RULES).notes)

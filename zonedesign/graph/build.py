@@ -46,6 +46,21 @@ def build_graph(
         graph = tolerant_graph(
             geoms, graph_rules.tolerance, graph_rules.min_shared_length, queen=queen
         )
+        if notes is not None:
+            # snapping can also part areas the exact boundaries join: say how many
+            hashed = SegmentHash(geoms)
+            exact = queen_from_hash(hashed, geoms.shape[0]) if queen else rook_from_hash(hashed, geoms.shape[0], 0.0)
+            exact = _add_unmatched(exact, hashed, ids, None)
+            a, b, _ = exact.edges()
+            i, j, _ = graph.edges()
+            n = geoms.shape[0]
+            lost = np.setdiff1d(a * n + b, i * n + j).shape[0]
+            if lost:
+                notes.append(
+                    f"tolerance {graph_rules.tolerance:g} m: {lost} pair(s) of areas that share a boundary "
+                    "exactly are not neighbours after snapping"
+                    + (f" (they share {graph_rules.min_shared_length:g} m or less)" if graph_rules.min_shared_length > 0 else "")
+                )
     else:
         # one hashing pass serves the graph and the check
         hashed = SegmentHash(geoms)

@@ -13,12 +13,13 @@ from pathlib import Path
 import geopandas as gpd
 import numpy as np
 import pandas as pd
+import pyogrio
 import shapely
 from pyproj import CRS
 
 from zonedesign.errors import InputError
 from zonedesign.io import validate as v
-from zonedesign.io.formats import read_frame
+from zonedesign.io.formats import MULTI_LAYER_SUFFIXES, PARQUET_SUFFIXES, read_frame
 from zonedesign.io.table import ColumnSources, column_sources, read_counts_table
 from zonedesign.records import Areas
 from zonedesign.rules import ROW_ID, AreasRules, projected_problem
@@ -68,6 +69,12 @@ def read_areas(
     if n == 0:
         v.raise_problems([f"{where}: no rows (empty layer)", *problems])
     notes: list[str] = []
+    given = layer or areas_rules.layer
+    if given and path.suffix.lower() not in (*MULTI_LAYER_SUFFIXES, *PARQUET_SUFFIXES):
+        names = [str(x) for x in pyogrio.list_layers(path)[:, 0]]
+        if given not in names:
+            # a one-layer format: the name is not part of the data, so it is not an error
+            notes.append(f"{where}: layer {given!r} ignored: a {path.suffix} file holds one layer ({names[0]!r})")
 
     ids = None
     if areas_rules.row_ids:
