@@ -14,6 +14,7 @@ import pandas as pd
 
 from zonedesign import __version__
 from zonedesign.errors import InputError
+from zonedesign.plain import plain
 from zonedesign.progress import Stages
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import Rules, load_rules
@@ -99,7 +100,7 @@ def prepare(
     notes = list(file.notes)
     built = area_graph(file.geometry, file.areas, rules.graph, notes=notes)
     graph = built.graph
-    found = [island_dict(x) for x in built.islands]
+    found = [plain(x) for x in built.islands]
     n_links = built.links
     if rules.graph.links is not None:
         inputs.append(Path(rules.graph.links))
@@ -129,20 +130,6 @@ def prepare(
         duplicates_merged=file.duplicates_merged,
         locks=locks,
     )
-
-
-def island_dict(island: Any) -> dict:
-    d = dict(island.__dict__) if hasattr(island, "__dict__") else dict(island)
-    out = {}
-    for k, v in d.items():
-        if isinstance(v, np.ndarray):
-            v = v.tolist()
-        elif isinstance(v, tuple):
-            v = list(v)
-        elif isinstance(v, np.generic):
-            v = v.item()
-        out[k] = v
-    return out
 
 
 def check_out(out: Path, overwrite: bool, inputs: list[Path] | None = None) -> None:

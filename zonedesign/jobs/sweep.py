@@ -7,7 +7,7 @@ from pathlib import Path
 
 from zonedesign.errors import InputError
 from zonedesign.jobs.design import closing
-from zonedesign.jobs.inputs import Progress, check_out, island_dict, prepare, read_previous, say
+from zonedesign.jobs.inputs import Progress, check_out, prepare, read_previous, say
 from zonedesign.jobs.summary import RunResult, base_summary
 from zonedesign.plain import plain
 from zonedesign.progress import TaskBars
@@ -72,7 +72,7 @@ def sweep(
             built = area_graph(prep.geometry, prep.areas, v.rules.graph, notes=[])
             graphs[v.rules.graph] = (built.graph, {"contiguity": v.rules.graph.contiguity,
                                                    "edges": built.graph.n_edges, "links": built.links,
-                                                   "islands": [island_dict(x) for x in built.islands]})
+                                                   "islands": [plain(x) for x in built.islands]})
         graph = graphs[v.rules.graph][0] if v.rules is not None else prep.graph
         tasks.append(VariantTask(variant=v, areas=prep.areas, graph=graph, previous=prev))
     say(progress, f"sweeping {len(vs)} variant(s)")
