@@ -128,7 +128,8 @@ def homogeneity_only(rules_path: Path) -> Path:
 def compare(dataset: str, areas_path: Path, rules_path: Path, log=print) -> list[dict]:
     """Design with zonedesign, then fit Ward per fence and tier with the same zone counts."""
     from zonedesign import api
-    from zonedesign.hierarchy import build_hierarchy, fence_order, fence_problem
+    from zonedesign.tiers.design import build_hierarchy
+    from zonedesign.tiers.units import fence_order, fence_problem
 
     prep = api.prepare(areas_path, rules_path)
     t0 = time.perf_counter()

@@ -2,17 +2,17 @@
 
 The later-count scenario of the demo region (`scenarios.demo_region`, then
 `scenarios.later_counts`): the hierarchy is designed on the first counts, then redrawn
-on the counts ten years on (`redraw.redraw_hierarchy`). On tier 1, per fence, the number
+on the counts ten years on (`tiers.redraw.redraw_hierarchy`). On tier 1, per fence, the number
 of areas whose zone changed is set against a proven lower bound: `verify.repair.
 minimal_repair` run by CP-SAT on the previous tier-1 zones with the new counts, which finds
 the fewest area reassignments after which every tier-1 bound, contiguity and the fence
-hold again. A second lower bound needs no solver (`redraw.fewest_moves_bound`): a zone
+hold again. A second lower bound needs no solver (`tiers.fewest.fewest_moves_bound`): a zone
 above a ceiling loses at least as many areas as its largest areas take to cover the
 excess, and those losses are different areas for different zones. The fewest is known
 when the repair is proven optimal, or when a valid labelling (the redraw's or the
 repair's) reaches the counting bound; otherwise the fence gets the ratio's range.
 
-Areas moved are counted by the project's one definition (`zonecodes.moved_areas`): an
+Areas moved are counted by the project's one definition (`naming.moved_areas`): an
 area whose zone's code changed under the code policy (here the default, "successor").
 Any policy hands each old code to at most one new zone, so this count is never below the
 best one-to-one matching of new zones to old ones, which is what the repair minimises (it
@@ -46,17 +46,15 @@ LOW_STABILITY = 1.0  # the stability weight of the second redraw (0, the third, 
 
 def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> tuple[list[dict], dict]:
     from zonedesign import api
-    from zonedesign.hierarchy import build_hierarchy, fence_order
-    from zonedesign.redraw import (
-        fewest_moves_bound,
-        matched_moves,
-        previous_codes,
-        redraw_hierarchy,
-    )
     from zonedesign.scenarios import write_demo_input
+    from zonedesign.tiers.design import build_hierarchy
+    from zonedesign.tiers.fewest import fewest_moves_bound, matched_moves
+    from zonedesign.tiers.naming import moved_areas
+    from zonedesign.tiers.previous import previous_codes
+    from zonedesign.tiers.redraw import redraw_hierarchy
+    from zonedesign.tiers.units import fence_order
     from zonedesign.verify.checks import audit
     from zonedesign.verify.repair import minimal_repair
-    from zonedesign.zonecodes import moved_areas
 
     files = write_demo_input(folder, later=True)
     later = files.get("later") or next(folder.glob("areas*later*.gpkg"))
@@ -152,11 +150,11 @@ def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> t
 
 
 def moved_three_ways(rules, areas, previous: dict, now: dict) -> dict[str, dict[str, int]]:
-    """Per tier, the one count of moved areas (`zonecodes.moved_areas`) taken from the
+    """Per tier, the one count of moved areas (`naming.moved_areas`) taken from the
     lookups, from changes.csv (areas in, summed) and from area_changes.csv (rows with an
     old code), each built as the redraw writes it."""
     from zonedesign.changelog import area_changes, change_table
-    from zonedesign.zonecodes import moved_areas
+    from zonedesign.tiers.naming import moved_areas
 
     names = [t.name for t in rules.tiers]
     changes = change_table(list(rules.tiers), areas.fence, areas.counts, areas.count_names, previous, now)

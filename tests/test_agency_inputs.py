@@ -206,7 +206,7 @@ def test_bad_fence_forms_are_rules_errors_with_their_line(fence, message):
 @pytest.mark.opendata
 def test_ny8_counts_from_a_csv_and_county_from_the_areakey_prefix_give_the_county_column_lookup(spdata_dir, tmp_path):
     from zonedesign.api import prepare
-    from zonedesign.hierarchy import build_hierarchy
+    from zonedesign.tiers.design import build_hierarchy
 
     # NY8 tracts (open data: r-cran-spdata NY8_utm18.shp); the first five digits of the
     # 11-digit AREAKEY are the county (state 36 + county code), as the US census codes tracts

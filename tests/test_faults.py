@@ -20,8 +20,8 @@ import pandas as pd
 import pytest
 from cli_support import RULES, checksums, read_summary, region, run_cli, write_inputs
 
-from zonedesign.hierarchy import task_seed
 from zonedesign.memory import MemoryLimitError, checkpoint, memory_guard
+from zonedesign.tiers.tasks import task_seed
 
 QUICK = ("--quiet", "--no-report", "--no-certificate")
 SEED = 20240601  # the kill moments are random, but the same on every run of the suite

@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 from hierarchy_support import nx_graph, two_tier_rules, voronoi_instance, zone_members
 
-from zonedesign.hierarchy import build_hierarchy, task_seed
+from zonedesign.tiers.design import build_hierarchy
+from zonedesign.tiers.tasks import task_seed
 from zonedesign.verify.checks import audit
 
 
@@ -62,7 +63,7 @@ def test_zone_ids_are_readable_unique_per_tier_and_repeat_for_a_seed():
 
 def test_task_seeds_do_not_depend_on_fence_order_or_python_hash_salt():
     # a fresh interpreter with another hash salt must give the same seed as this one
-    code = "from zonedesign.hierarchy import task_seed; print(task_seed(1, 'D01', 0))"
+    code = "from zonedesign.tiers.tasks import task_seed; print(task_seed(1, 'D01', 0))"
     seeds = {
         subprocess.run(
             [sys.executable, "-c", code],

@@ -14,9 +14,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from zonedesign.changelog import change_table
-from zonedesign.hierarchy import build_hierarchy
 from zonedesign.measures import bound_breaks
-from zonedesign.redraw import redraw_hierarchy, unchanged_share
+from zonedesign.tiers.design import build_hierarchy
+from zonedesign.tiers.fewest import unchanged_share
+from zonedesign.tiers.redraw import redraw_hierarchy
 from zonedesign.verify.checks import audit
 
 

@@ -18,11 +18,11 @@ import pytest
 
 from zonedesign import api
 from zonedesign.changelog import change_table
-from zonedesign.hierarchy import build_hierarchy
-from zonedesign.redraw import redraw_hierarchy
 from zonedesign.report.svgmap import element_id
 from zonedesign.rules import RedrawRules, parse_rules
-from zonedesign.zonecodes import moved_areas
+from zonedesign.tiers.design import build_hierarchy
+from zonedesign.tiers.naming import moved_areas
+from zonedesign.tiers.redraw import redraw_hierarchy
 
 
 def test_moved_areas_agree_across_summary_changes_area_changes_and_the_benchmark(tmp_path):

@@ -16,9 +16,9 @@ from verify_support import grid_graph, make_areas
 
 from zonedesign.changelog import change_table
 from zonedesign.errors import RulesError
-from zonedesign.redraw import redraw_hierarchy
 from zonedesign.rules import AreasRules, RedrawRules, Rules, SearchRules, TierRules, parse_rules
-from zonedesign.zonecodes import assign_codes, moved_areas, zone_kinds
+from zonedesign.tiers.naming import assign_codes, moved_areas, zone_kinds
+from zonedesign.tiers.redraw import redraw_hierarchy
 
 
 def _rules(lo: float, hi: float, codes: str = "successor") -> Rules:

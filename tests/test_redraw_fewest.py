@@ -19,18 +19,13 @@ from hierarchy_support import nx_graph
 from verify_support import grid_graph, make_areas
 
 from zonedesign.measures import bound_breaks, compact_labels, zone_sums
-from zonedesign.records import Bounds
-from zonedesign.redraw import (
-    STABILITY_FIRST,
-    _fewer_moves,
-    fewest_moves_bound,
-    matched_moves,
-    previous_codes,
-    redraw_hierarchy,
-)
+from zonedesign.records import Bounds, Problem
 from zonedesign.rules import STABILITY_DEFAULT, AreasRules, Rules, SearchRules, TierRules
 from zonedesign.search.engine import solve
-from zonedesign.zonecodes import moved_areas
+from zonedesign.tiers.fewest import fewest_moves_bound, matched_moves
+from zonedesign.tiers.naming import moved_areas
+from zonedesign.tiers.previous import previous_codes
+from zonedesign.tiers.redraw import STABILITY_FIRST, _fewer_moves, redraw_hierarchy, repair_problem
 
 ROWS, COLS = 3, 4
 LO, HI = 40.0, 90.0
@@ -203,6 +198,25 @@ def test_where_the_search_still_moves_too_much_the_fewest_move_repair_takes_over
     assert _valid(nx_graph(graph), mended, counts)
     assert info["mended_by"].startswith("cp-sat fewest moves")
     assert "moves_stability_first" not in info
+
+
+@pytest.mark.parametrize("k", range(WANTED), ids=[f"instance{k}" for k in range(WANTED)])
+def test_the_fewest_move_repair_of_a_fence_problem_moves_the_enumerated_fewest_and_keeps_zone_numbers(k):
+    # the repair takes the fence's Problem (its previous zones in `previous`), no area records
+    _, graph, prev, counts, fewest = instance(k)
+    n = counts.shape[0]
+    bounds = Bounds(("persons",), np.array([LO]), np.array([HI]), np.array([np.nan]))
+    problem = Problem(graph=graph, counts=counts[:, None], bounds=bounds, attrs=np.zeros((n, 0)),
+                      weight=np.ones(n), area=np.ones(n), perimeter=np.ones(n), previous=prev)
+    fixed = repair_problem(problem)
+    assert fixed.status == "optimal"
+    assert _valid(nx_graph(graph), fixed.labels, counts)
+    # zones keep their previous numbers (a renumbered zone would count all its units as
+    # moved), so the units whose number changed are as few as brute-force enumeration allows
+    moved = fixed.labels != prev
+    assert int(moved.sum()) == fixed.moves == fewest
+    # a unit that moved went to a previous zone or to a new one numbered after all of them
+    assert all(z in set(prev.tolist()) or z > prev.max() for z in fixed.labels[moved].tolist())
 
 
 def test_a_redraw_mended_by_the_repair_repeats_exactly():

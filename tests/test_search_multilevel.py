@@ -17,10 +17,10 @@ from hierarchy_support import nx_graph as area_nx_graph
 from hierarchy_support import two_tier_rules, voronoi_instance, zone_members
 from search_support import nx_graph, regionalization_faults, tree_fan_out, voronoi_problem
 
-from zonedesign.hierarchy import build_hierarchy
 from zonedesign.search import multilevel
 from zonedesign.search.engine import solve
 from zonedesign.search.multilevel import heavy_edge_matching, pair_caps
+from zonedesign.tiers.design import build_hierarchy
 from zonedesign.verify.checks import audit
 
 N = 700

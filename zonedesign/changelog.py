@@ -2,8 +2,8 @@
 summary's change figures, all from the old and new code of every area.
 
 changes.csv has one row per new zone and one per retired code: its kind (see
-`zonecodes.zone_kinds`), the old codes behind it, areas in and out (moved areas, as
-`zonecodes.moved_areas` counts them), a reason, and published and new totals in columns
+`naming.zone_kinds`), the old codes behind it, areas in and out (moved areas, as
+`naming.moved_areas` counts them), a reason, and published and new totals in columns
 that say which is which.
 """
 
@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from zonedesign.rules import TierRules, tier_in_fence
-from zonedesign.zonecodes import moved_areas, zone_kinds
+from zonedesign.tiers.naming import moved_areas, zone_kinds
 
 
 def published_column(name: str, published: bool) -> str:
@@ -221,7 +221,7 @@ def area_changes(ids: np.ndarray, tiers: Sequence[str], previous: Mapping[str, n
 
 def change_figures(changes: pd.DataFrame, tiers: Sequence[str], previous: Mapping[str, np.ndarray],
                    lookup: Mapping[str, np.ndarray], policy: str) -> dict:
-    """Per tier: previous zones, zones kept, areas moved (`zonecodes.moved_areas`), areas
+    """Per tier: previous zones, zones kept, areas moved (`naming.moved_areas`), areas
     new, codes retired, and zones by kind of change."""
     out = {}
     for name in tiers:

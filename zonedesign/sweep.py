@@ -201,8 +201,9 @@ def variant_name(values: Sequence[tuple[str, str]], number: int, taken: set[str]
 
 def run_variant(task: VariantTask) -> VariantResult:
     """Design (or redraw) one variant, audit it and measure it; runs in a worker."""
-    from zonedesign.hierarchy import build_hierarchy, serial_executor
-    from zonedesign.redraw import redraw_hierarchy
+    from zonedesign.tiers.design import build_hierarchy
+    from zonedesign.tiers.executors import serial_executor
+    from zonedesign.tiers.redraw import redraw_hierarchy
     from zonedesign.verify.checks import audit
     from zonedesign.zonetables import all_tables, tier_figures
 
@@ -234,7 +235,7 @@ def run_variant(task: VariantTask) -> VariantResult:
     row["problem"] = ""
     row.update(measure_row(figures, task.areas.count_names))
     if task.previous is not None:
-        from zonedesign.zonecodes import moved_areas
+        from zonedesign.tiers.naming import moved_areas
 
         for tier in rules.tiers:
             # areas moved as every redraw figure counts them: areas whose zone code changed
@@ -293,10 +294,10 @@ def _number(value: str):
 def changes_between(results: Sequence[VariantResult], tiers: Sequence[str]) -> pd.DataFrame:
     """Areas changing zone per tier from each valid variant to the next, and from the first.
 
-    Zones are matched one to one by their areas (redraw.matched_moves), so a zone that
+    Zones are matched one to one by their areas (tiers.fewest.matched_moves), so a zone that
     only carries another code is not counted as changed.
     """
-    from zonedesign.redraw import matched_moves
+    from zonedesign.tiers.fewest import matched_moves
 
     valid = [r for r in results if r.lookup]
     rows = []

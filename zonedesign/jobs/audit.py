@@ -140,7 +140,7 @@ def audit(
                     "repaired_lookup_passes": bool(again.ok),
                 }
         if repaired is not None:
-            from zonedesign.zonecodes import moved_areas
+            from zonedesign.tiers.naming import moved_areas
 
             summary["repair"]["moved_per_tier"] = {
                 n: int(moved_areas(codes_of(labels[n]), repaired[n]).sum()) for n in names
@@ -190,7 +190,7 @@ def search_repair(prep: Prepared, labels: Mapping[str, np.ndarray]) -> dict[str,
     """Mend a broken hierarchy with the redraw search: nesting by majority, then every
     broken zone and its neighbours re-searched with a heavy stability weight. Not proven
     minimal; used when the CP-SAT repair cannot finish."""
-    from zonedesign.redraw import redraw_hierarchy
+    from zonedesign.tiers.redraw import redraw_hierarchy
 
     names = [t.name for t in prep.rules.tiers]
     given = {n: np.array(["" if v is None else str(v) for v in labels[n]], dtype=object) for n in names}

@@ -31,7 +31,7 @@ def design(
     extra_files: Mapping[str, Path] | None = None,
 ) -> RunResult:
     """Design every tier of a nested hierarchy and write it to `out`."""
-    from zonedesign.hierarchy import build_hierarchy
+    from zonedesign.tiers.design import build_hierarchy
 
     t_start = time.perf_counter()
     run, prep = start_run(areas_path, rules, out, overwrite, layer, crs, executor, workers, scheduler, progress)
@@ -69,7 +69,7 @@ def start_run(areas_path, rules, out, overwrite, layer, crs, executor, workers, 
                extra_input: str | Path | None = None):
     """Executor with per-tier progress bars, then the inputs read; the output folder is
     checked before the (slow) read and again once every input path is known."""
-    from zonedesign.executors import make_executor
+    from zonedesign.tiers.executors import make_executor
 
     bars = TaskBars(progress, lambda tasks: f"tier '{tasks[0].tier}' by fence")
     run = bars.wrap(make_executor(executor, workers, scheduler, on_done=bars.done))

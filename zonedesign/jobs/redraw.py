@@ -36,8 +36,8 @@ def redraw(
 
     previous_counts: the previous areas file (or a table of area id and counts) whose
     totals were published; changes.csv then states them beside the new totals."""
-    from zonedesign.redraw import redraw_hierarchy
     from zonedesign.redraw_output import published_counts, redraw_tables
+    from zonedesign.tiers.redraw import redraw_hierarchy
 
     t_start = time.perf_counter()
     run, prep = start_run(

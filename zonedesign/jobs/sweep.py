@@ -35,7 +35,6 @@ def sweep(
     Writes sweep.csv, summary.json, charts/, report.html and variants/<name>/ (lookup.csv,
     zones.gpkg, rules.toml, summary.json) per valid variant.
     """
-    from zonedesign.executors import make_executor
     from zonedesign.graph.areagraph import area_graph
     from zonedesign.io.output import atomic_output, write_json
     from zonedesign.sweep import (
@@ -47,6 +46,7 @@ def sweep(
         variants,
         write_variant,
     )
+    from zonedesign.tiers.executors import make_executor
 
     t_start = time.perf_counter()
     bars = TaskBars(progress, lambda tasks: "variants")

@@ -19,6 +19,18 @@ EXECUTORS = ("local", "dask")
 SCHEDULER_TIMEOUT = 10  # seconds to wait for a --scheduler address to answer
 
 
+Executor = Callable[..., list[Any]]
+
+
+def serial_executor(tasks: list[Any], fn: Callable[[Any], Any]) -> list[Any]:
+    """Run tasks one after another in this process: `[fn(t) for t in tasks]`."""
+    out = []
+    for t in tasks:
+        interrupts.check()
+        out.append(fn(t))
+    return out
+
+
 def _largest_first(tasks: list[Any]) -> list[int]:
     # the largest fence decides the wall time, so it starts first
     def size(t: Any) -> int:

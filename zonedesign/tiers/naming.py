@@ -1,5 +1,10 @@
-"""Zone codes through a redraw: which new zone carries an old code on, the readable codes
-of new zones, the one count of moved areas, and the kind of each change.
+"""The naming of zones: a design's zone ids, and codes through a redraw (which new zone
+carries an old code on, the readable codes of new zones, the one count of moved areas, and
+the kind of each change).
+
+A design names each zone fence-tier-number (`zone_id`), numbered per fence in the order
+the fence's labelling first meets its zones; a locked zone keeps its code, and no other
+zone is given it (`design_ids`).
 
 Code policies (`[redraw] codes`):
 - "successor" (the default): each old code passes to the one new zone holding the largest
@@ -32,6 +37,30 @@ class Succession:
     codes: np.ndarray  # code of each new zone (object array of str)
     heir: dict[str, int]  # old code -> the new zone carrying it on
     retired: dict[str, list[str]]  # old code -> codes of the new zones its areas went to, largest share first
+
+
+def zone_id(fence: str, tier: str, number: int) -> str:
+    return f"{fence}-{tier}-{number:04d}"
+
+
+def design_ids(tier: str, zone_fence: np.ndarray, locked_codes: list[str]) -> np.ndarray:
+    """Ids of a design's zones: zone_fence lists each zone's fence, the searched zones of
+    each fence together in fence order, then the locked zones (one per code of
+    `locked_codes`, in that order), which keep their codes."""
+    taken = set(locked_codes)
+    ids: list[str] = []
+    free = len(zone_fence) - len(locked_codes)
+    number = 0
+    for z in range(free):
+        fence = str(zone_fence[z])
+        if z == 0 or fence != str(zone_fence[z - 1]):
+            number = 0
+        number += 1
+        while zone_id(fence, tier, number) in taken:  # a locked zone holds that code
+            number += 1
+        ids.append(zone_id(fence, tier, number))
+    ids.extend(locked_codes)
+    return np.array(ids, dtype=object)
 
 
 def overlaps(old: np.ndarray, zone: np.ndarray, weight: np.ndarray, size: np.ndarray | None = None) -> pd.DataFrame:
@@ -155,8 +184,6 @@ def next_code(
     """A readable new code and its number: the fence's pattern (`code_pattern`) with the
     next free number after the highest any taken code of that pattern holds (or after
     `after`, the number this fence was given last), else fence-tier-0001 onwards."""
-    from zonedesign.hierarchy import zone_id
-
     if pattern is not None:
         prefix, width = pattern
 
