@@ -70,76 +70,93 @@ def zones_from_layers(
             layer = layer.to_crs(crs)
         zgeom = _valid(np.asarray(layer.geometry.values, dtype=object))
         zid = layer[id_column].astype(str).to_numpy()
-        ai, zi = shapely.STRtree(zgeom).query(geoms, predicate="intersects")
-        inter = shapely.area(shapely.intersection(geoms[ai], zgeom[zi]))
-        pairs = pd.DataFrame({"area": ai, "zone": zid[zi], "overlap": inter})
-        pairs = pairs[pairs["overlap"] > 0].groupby(["area", "zone"], as_index=False)["overlap"].sum()
-        pairs["share"] = pairs["overlap"] / a_area[pairs["area"].to_numpy()]
-        pairs = pairs.sort_values(["area", "share"], ascending=[True, False], kind="stable")
+        pairs = _overlaps(geoms, a_area, zgeom, zid)
         best = pairs.drop_duplicates("area")
         lab = np.full(ids.shape[0], None, dtype=object)
         lab[best["area"].to_numpy()] = best["zone"].to_numpy()
         labels[tier] = lab
+        flags.extend(_area_flags(pairs, lab, ids, tier, tol))
+        z_area = pd.Series(shapely.area(zgeom)).groupby(zid).sum()
+        flags.extend(_zone_flags(pairs, z_area, ids, tier, tol))
+    return labels, flags
 
-        for a, group in pairs.groupby("area", sort=True):
-            shares = group["share"].to_numpy()
-            zones = group["zone"].tolist()
-            outside = 1.0 - shares.sum()
-            if shares[1:].sum() > tol or outside > tol:
-                flags.append(
-                    {
-                        "kind": "area-split",
-                        "tier": tier,
-                        "area": ids[a],
-                        "zones": zones,
-                        "shares": [round(float(s), 6) for s in shares],
-                        "uncovered_share": round(max(float(outside), 0.0), 6),
-                        "tolerance_share": tol,
-                        "message": f"area {ids[a]} is split between zones of tier {tier}: "
-                        + ", ".join(f"{z} {s:.1%}" for z, s in zip(zones, shares))
-                        + (f", none {outside:.1%}" if outside > tol else "")
-                        + f" (tolerance {tol:.1%}); it goes to {zones[0]}",
-                    }
-                )
-        for a in np.flatnonzero(np.array([v is None for v in lab])):
+
+def _overlaps(geoms: np.ndarray, a_area: np.ndarray, zgeom: np.ndarray, zid: np.ndarray) -> pd.DataFrame:
+    """Rows (area, zone, overlap, share of the area) for every area and zone that overlap,
+    each area's largest share first."""
+    ai, zi = shapely.STRtree(zgeom).query(geoms, predicate="intersects")
+    inter = shapely.area(shapely.intersection(geoms[ai], zgeom[zi]))
+    pairs = pd.DataFrame({"area": ai, "zone": zid[zi], "overlap": inter})
+    pairs = pairs[pairs["overlap"] > 0].groupby(["area", "zone"], as_index=False)["overlap"].sum()
+    pairs["share"] = pairs["overlap"] / a_area[pairs["area"].to_numpy()]
+    return pairs.sort_values(["area", "share"], ascending=[True, False], kind="stable")
+
+
+def _area_flags(pairs: pd.DataFrame, lab: np.ndarray, ids: np.ndarray, tier: str, tol: float) -> list[dict]:
+    """The area side: an area split between zones, or partly or wholly in no zone."""
+    flags: list[dict] = []
+    for a, group in pairs.groupby("area", sort=True):
+        shares = group["share"].to_numpy()
+        zones = group["zone"].tolist()
+        outside = 1.0 - shares.sum()
+        if shares[1:].sum() > tol or outside > tol:
             flags.append(
                 {
                     "kind": "area-split",
                     "tier": tier,
                     "area": ids[a],
-                    "zones": [],
-                    "shares": [],
-                    "uncovered_share": 1.0,
+                    "zones": zones,
+                    "shares": [round(float(s), 6) for s in shares],
+                    "uncovered_share": round(max(float(outside), 0.0), 6),
                     "tolerance_share": tol,
-                    "message": f"area {ids[a]} lies in no zone of tier {tier}",
+                    "message": f"area {ids[a]} is split between zones of tier {tier}: "
+                    + ", ".join(f"{z} {s:.1%}" for z, s in zip(zones, shares))
+                    + (f", none {outside:.1%}" if outside > tol else "")
+                    + f" (tolerance {tol:.1%}); it goes to {zones[0]}",
                 }
             )
+    for a in np.flatnonzero(np.array([v is None for v in lab])):
+        flags.append(
+            {
+                "kind": "area-split",
+                "tier": tier,
+                "area": ids[a],
+                "zones": [],
+                "shares": [],
+                "uncovered_share": 1.0,
+                "tolerance_share": tol,
+                "message": f"area {ids[a]} lies in no zone of tier {tier}",
+            }
+        )
+    return flags
 
-        # the zone side: a zone cuts an area when it holds more than the tolerance of it
-        # but not all of it; a zone may also reach beyond every area
-        z_area = pd.Series(shapely.area(zgeom)).groupby(zid).sum()
-        for z, group in pairs.groupby("zone", sort=True):
-            total = float(z_area[z])
-            if total <= 0:
-                continue
-            cut = group[(group["share"] > tol) & (group["share"] < 1.0 - tol)]
-            cut = cut.sort_values("share", ascending=False, kind="stable")
-            outside_share = max(total - float(group["overlap"].sum()), 0.0) / total
-            if len(cut) or outside_share > tol:
-                listed = ", ".join(f"{ids[a]} {s:.1%}" for a, s in zip(cut["area"][:5], cut["share"][:5]))
-                flags.append(
-                    {
-                        "kind": "zone-boundary",
-                        "tier": tier,
-                        "zone": z,
-                        "areas": [ids[a] for a in cut["area"]],
-                        "shares": [round(float(s), 6) for s in cut["share"]],
-                        "outside_share": round(outside_share, 6),
-                        "tolerance_share": tol,
-                        "message": f"zone {z} of tier {tier} does not follow area boundaries"
-                        + (f": it cuts {len(cut)} area{'s' if len(cut) > 1 else ''} ({listed})" if len(cut) else "")
-                        + (f"; {outside_share:.1%} of it lies outside every area" if outside_share > tol else "")
-                        + f" (tolerance {tol:.1%})",
-                    }
-                )
-    return labels, flags
+
+def _zone_flags(pairs: pd.DataFrame, z_area: pd.Series, ids: np.ndarray, tier: str, tol: float) -> list[dict]:
+    """The zone side: a zone cuts an area when it holds more than the tolerance of it but
+    not all of it; a zone may also reach beyond every area."""
+    flags: list[dict] = []
+    for z, group in pairs.groupby("zone", sort=True):
+        total = float(z_area[z])
+        if total <= 0:
+            continue
+        cut = group[(group["share"] > tol) & (group["share"] < 1.0 - tol)]
+        cut = cut.sort_values("share", ascending=False, kind="stable")
+        outside_share = max(total - float(group["overlap"].sum()), 0.0) / total
+        if len(cut) or outside_share > tol:
+            listed = ", ".join(f"{ids[a]} {s:.1%}" for a, s in zip(cut["area"][:5], cut["share"][:5]))
+            flags.append(
+                {
+                    "kind": "zone-boundary",
+                    "tier": tier,
+                    "zone": z,
+                    "areas": [ids[a] for a in cut["area"]],
+                    "shares": [round(float(s), 6) for s in cut["share"]],
+                    "outside_share": round(outside_share, 6),
+                    "tolerance_share": tol,
+                    "message": f"zone {z} of tier {tier} does not follow area boundaries"
+                    + (f": it cuts {len(cut)} area{'s' if len(cut) > 1 else ''} ({listed})" if len(cut) else "")
+                    + (f"; {outside_share:.1%} of it lies outside every area" if outside_share > tol else "")
+                    + f" (tolerance {tol:.1%})",
+                }
+            )
+    return flags
