@@ -98,14 +98,8 @@ class Strategy:
 
 
 def run_tiers(
-    areas: Areas,
-    graph: Graph,
-    rules: Rules,
-    strategy: Strategy,
-    *,
-    executor: Executor | None = None,
-    on_tier: Callable[[str, int, int], None] | None = None,
-    locks: Locks | None = None,
+    areas: Areas, graph: Graph, rules: Rules, strategy: Strategy, *, executor: Executor | None = None,
+    on_tier: Callable[[str, int, int], None] | None = None, locks: Locks | None = None,
 ) -> HierarchyResult:
     """Every tier bottom-up, each fence through `strategy`; `graph` holds rook edges plus
     declared links. Locked zones (`locks`) are kept as given; the rest is solved around them."""
