@@ -217,7 +217,7 @@ def ny8_input(folder: Path) -> tuple[Path, Path]:
 
 
 def main(quick: bool = False, folder: Path | None = None, log=print) -> dict:
-    from zonedesign.scenarios import write_demo_input
+    from zonedesign.demo.scenarios import write_demo_input
 
     t0 = time.perf_counter()
     log(f"  engine warm-up (numba compile or cache load): {warm_engine():.1f} s")

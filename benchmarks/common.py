@@ -310,9 +310,9 @@ def _csv(v):
 def warm_engine() -> float:
     """Solve a tiny problem with every method so numba's compile (or cache load) is not
     timed inside a benchmark; returns the seconds it took."""
+    from zonedesign.demo.synthetic import grid_with_holes
     from zonedesign.rules import METHODS
     from zonedesign.search.engine import solve
-    from zonedesign.synthetic import grid_with_holes
 
     gdf = grid_with_holes(5, 5, 0.0, 0, n_fences=1)
     problem = frame_problem(gdf, "persons", ("attr_a", "attr_b"), "persons")

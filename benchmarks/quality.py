@@ -69,7 +69,7 @@ def _connected(gdf):
 
 
 def grid_instance(nx: int, ny: int, hole: float, seed: int) -> Instance:
-    from zonedesign.synthetic import grid_with_holes
+    from zonedesign.demo.synthetic import grid_with_holes
 
     gdf = _connected(grid_with_holes(nx, ny, hole, seed, n_fences=1))
     p = frame_problem(gdf, "persons", SYN_ATTRS, "persons", UNITS_PER_ZONE["grid"])
@@ -77,7 +77,7 @@ def grid_instance(nx: int, ny: int, hole: float, seed: int) -> Instance:
 
 
 def voronoi_instance(n: int, seed: int) -> Instance:
-    from zonedesign.synthetic import voronoi_tessellation
+    from zonedesign.demo.synthetic import voronoi_tessellation
 
     gdf = _connected(voronoi_tessellation(n, seed, clustered=True, n_fences=1))
     p = frame_problem(gdf, "persons", SYN_ATTRS, "persons", UNITS_PER_ZONE["voronoi"])

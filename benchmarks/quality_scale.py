@@ -68,8 +68,8 @@ TIME_LIMIT = 3600.0  # a safety cap only: every run stops on its move budget
 
 
 def _finest_tier():
+    from zonedesign.demo.scenarios import demo_rules_text
     from zonedesign.rules import parse_rules
-    from zonedesign.scenarios import demo_rules_text
 
     return parse_rules(demo_rules_text()).tiers[0]
 
@@ -97,7 +97,7 @@ def _problem(gdf, name: str, family: str) -> Instance:
 
 
 def instances(quick: bool = False) -> list[Instance]:
-    from zonedesign.synthetic import grid_with_holes, voronoi_tessellation
+    from zonedesign.demo.synthetic import grid_with_holes, voronoi_tessellation
 
     out = [_problem(voronoi_tessellation(2000, s, clustered=True, n_fences=1), f"voronoi 2000 seed {s}", "voronoi") for s in VORONOI]
     out += [_problem(grid_with_holes(45, 45, 0.02, s, n_fences=1), f"grid 45x45 seed {s}", "grid") for s in GRIDS]

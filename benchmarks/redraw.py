@@ -46,7 +46,7 @@ LOW_STABILITY = 1.0  # the stability weight of the second redraw (0, the third, 
 
 def run_scenario(folder: Path, log=print, repair_time: float = REPAIR_TIME) -> tuple[list[dict], dict]:
     from zonedesign import api
-    from zonedesign.scenarios import write_demo_input
+    from zonedesign.demo.scenarios import write_demo_input
     from zonedesign.tiers.design import build_hierarchy
     from zonedesign.tiers.fewest import fewest_moves_bound, matched_moves
     from zonedesign.tiers.naming import moved_areas

@@ -49,7 +49,7 @@ def _demo_tiers() -> str:
     and without the overrides that name the demo's own districts."""
     import re
 
-    from zonedesign.scenarios import demo_rules_text
+    from zonedesign.demo.scenarios import demo_rules_text
 
     text = demo_rules_text()
     tiers = text[text.index("[[tier]]"):text.index("[search]")]
@@ -117,7 +117,7 @@ def connected_fences(gdf, graph=None):
 
 def make_input(n: int, folder: Path, seed: int = 1) -> dict:
     """Write the tessellation of n areas as GeoParquet and GeoPackage; returns paths and times."""
-    from zonedesign.synthetic import voronoi_tessellation
+    from zonedesign.demo.synthetic import voronoi_tessellation
 
     folder.mkdir(parents=True, exist_ok=True)
     with Clock() as c:

@@ -58,7 +58,7 @@ SKIPPED, DISCONNECTS, REJECTED, APPLIED = 0, 1, 2, 3
 
 
 def speed_instance(n: int = 5000, seed: int = 21) -> Problem:
-    from zonedesign.synthetic import voronoi_tessellation
+    from zonedesign.demo.synthetic import voronoi_tessellation
 
     gdf = voronoi_tessellation(n, seed, clustered=True, n_fences=1)
     return frame_problem(gdf, "persons", ("attr_a", "attr_b"), "persons", (3.0, 6.0))

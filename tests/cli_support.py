@@ -10,7 +10,7 @@ from typing import Any
 import geopandas as gpd
 import pyogrio
 
-from zonedesign.synthetic import grid_with_holes
+from zonedesign.demo.synthetic import grid_with_holes
 
 # Bounds sized for grid_with_holes cells (Poisson(30) + 5 households, 2.0-2.8 persons per
 # household): a block takes 3 to 7 cells, a ward 2 to 8 blocks, every quadrant fence of a

@@ -9,10 +9,10 @@ import networkx as nx
 import numpy as np
 import shapely
 
+from zonedesign.demo.synthetic import grid_with_holes, voronoi_tessellation
 from zonedesign.graph.adjacency import rook_graph
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import AreasRules, Rules, SearchRules, TierRules
-from zonedesign.synthetic import grid_with_holes, voronoi_tessellation
 
 
 def areas_from_frame(gdf: gpd.GeoDataFrame, counts=("households", "persons"), attrs=("attr_a", "attr_b"),

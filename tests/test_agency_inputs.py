@@ -638,9 +638,9 @@ def test_bad_lock_keys_are_rules_errors(lock, message):
 def test_the_demo_locks_two_agreed_zones_each_contiguous_in_one_district(tmp_path):
     import networkx as nx
 
+    from zonedesign.demo.scenarios import demo_region, write_demo_input
     from zonedesign.graph.adjacency import rook_graph
     from zonedesign.rules import load_rules
-    from zonedesign.scenarios import demo_region, write_demo_input
 
     paths = write_demo_input(tmp_path, seed=7, n=1500)
     rules = load_rules(paths["rules"])

@@ -85,7 +85,7 @@ def test_an_unproven_cp_sat_repair_gives_way_to_a_search_repair_with_fewer_moves
 
 
 def test_the_repaired_hierarchy_is_a_full_output_that_the_report_and_show_describe(tmp_path):
-    from zonedesign.show import show
+    from zonedesign.cli.show import show
 
     areas, rules, broken = _broken_lookup(tmp_path)
     renamed = tmp_path / "renamed.csv"

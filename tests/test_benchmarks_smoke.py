@@ -127,8 +127,8 @@ def test_scale_input_has_connected_fences_and_loadable_rules(tmp_path):
         assert nx.is_connected(g.subgraph(np.flatnonzero(gdf["fence"].to_numpy() == f).tolist()))
     rules = load_rules(made["paths"]["rules"])
     # the scale runs use the demo's tiers and bounds, so the two never drift apart
+    from zonedesign.demo.scenarios import demo_rules_text
     from zonedesign.rules import parse_rules
-    from zonedesign.scenarios import demo_rules_text
 
     demo = parse_rules(demo_rules_text())
     assert [(t.name, t.min, t.max, t.target) for t in rules.tiers] == [(t.name, t.min, t.max, t.target) for t in demo.tiers]
@@ -151,8 +151,8 @@ def test_ward_baseline_gives_k_contiguous_zones_and_judge_sums_squares():
 
 
 def test_homogeneity_only_rules_zero_the_other_weights(tmp_path):
+    from zonedesign.demo.scenarios import demo_rules_text
     from zonedesign.rules import load_rules
-    from zonedesign.scenarios import demo_rules_text
 
     path = tmp_path / "rules.toml"
     path.write_text(demo_rules_text(), encoding="utf-8")

@@ -15,8 +15,8 @@ import pytest
 from cli_support import RULES, read_summary, region, run_cli, write_areas, write_inputs
 
 from zonedesign import api
-from zonedesign.cli import EXAMPLES, _parser
-from zonedesign.progress import Progress
+from zonedesign.cli.commands import EXAMPLES, _parser
+from zonedesign.cli.progress import Progress
 from zonedesign.rules import parse_rules
 
 README = Path(__file__).resolve().parents[1] / "README.md"

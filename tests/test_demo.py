@@ -9,10 +9,10 @@ import pyogrio
 import pytest
 
 from zonedesign import api
-from zonedesign.demo import MIN_AREAS, _check_districts, run_demo
+from zonedesign.demo.run import MIN_AREAS, _check_districts, run_demo
+from zonedesign.demo.scenarios import write_demo_input
 from zonedesign.errors import InputError
 from zonedesign.rules import load_rules
-from zonedesign.scenarios import write_demo_input
 
 
 def test_at_its_minimum_size_every_district_holds_every_tier_s_floor(tmp_path: Path) -> None:

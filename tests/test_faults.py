@@ -20,7 +20,7 @@ import pandas as pd
 import pytest
 from cli_support import RULES, checksums, read_summary, region, run_cli, write_inputs
 
-from zonedesign.memory import MemoryLimitError, checkpoint, memory_guard
+from zonedesign.cli.memory import MemoryLimitError, checkpoint, memory_guard
 from zonedesign.tiers.tasks import task_seed
 
 QUICK = ("--quiet", "--no-report", "--no-certificate")
@@ -205,7 +205,7 @@ def test_the_memory_guard_stops_its_block_and_then_lets_go() -> None:
 def test_resident_size_follows_an_allocation_and_counts_child_processes() -> None:
     import numpy as np
 
-    from zonedesign.memory import parse_size, resident_bytes
+    from zonedesign.cli.memory import parse_size, resident_bytes
 
     assert [parse_size(x) for x in ("4GB", "512M", "1.5G", "1000")] == [4 * 1024**3, 512 * 1024**2, 3 * 1024**3 // 2, 1000]
     before = resident_bytes(tree=False)

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 import shapely
 
+from zonedesign.demo.synthetic import grid_with_holes, voronoi_tessellation
 from zonedesign.graph import (
     build_graph,
     queen_graph,
@@ -19,7 +20,6 @@ from zonedesign.graph import (
     unmatched_contacts,
 )
 from zonedesign.rules import GraphRules
-from zonedesign.synthetic import grid_with_holes, voronoi_tessellation
 
 
 def edge_dict(graph) -> dict[tuple[int, int], float]:

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 import shapely
 
+from zonedesign.demo.synthetic import grid_with_holes
 from zonedesign.errors import InputError
 from zonedesign.graph import (
     add_links,
@@ -25,7 +26,6 @@ from zonedesign.graph import (
     rook_graph,
 )
 from zonedesign.records import Graph
-from zonedesign.synthetic import grid_with_holes
 
 IDS = np.array(["a1", "a2", "a3", "a4", "a5"], dtype=object)
 

@@ -18,8 +18,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from zonedesign import api
+from zonedesign.demo.synthetic import grid_with_holes, voronoi_tessellation
 from zonedesign.rules import parse_rules
-from zonedesign.synthetic import grid_with_holes, voronoi_tessellation
 from zonedesign.verify.checks import audit
 
 

@@ -27,7 +27,7 @@ from zonedesign.tiers.redraw import redraw_hierarchy
 
 def test_moved_areas_agree_across_summary_changes_area_changes_and_the_benchmark(tmp_path):
     from benchmarks.redraw import moved_three_ways
-    from zonedesign.scenarios import write_demo_input
+    from zonedesign.demo.scenarios import write_demo_input
 
     files = write_demo_input(tmp_path / "in", later=True)  # the input of `zonedesign demo --scenario later`
     out = tmp_path / "later"

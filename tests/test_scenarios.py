@@ -17,6 +17,13 @@ import pandas as pd
 import pytest
 import shapely
 
+from zonedesign.demo.scenarios import (
+    demo_links,
+    demo_region,
+    demo_rules_text,
+    later_counts,
+    write_demo_input,
+)
 from zonedesign.graph import (
     add_links,
     fence_components,
@@ -25,13 +32,6 @@ from zonedesign.graph import (
     rook_graph,
     tolerant_graph,
     unmatched_contacts,
-)
-from zonedesign.scenarios import (
-    demo_links,
-    demo_region,
-    demo_rules_text,
-    later_counts,
-    write_demo_input,
 )
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -69,7 +69,7 @@ def _assert_placeholders_scaled(text: str, rules, table: pd.DataFrame) -> None:
 
 @pytest.fixture(scope="module")
 def demo_input(tmp_path_factory) -> Path:
-    from zonedesign.scenarios import write_demo_input
+    from zonedesign.demo.scenarios import write_demo_input
 
     return write_demo_input(tmp_path_factory.mktemp("demo"), n=1500)["areas"]
 

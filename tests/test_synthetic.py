@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 import shapely
 
+from zonedesign.demo.synthetic import grid_with_holes, voronoi_cells, voronoi_tessellation
 from zonedesign.graph import rook_graph, tolerant_graph, unmatched_contacts
-from zonedesign.synthetic import grid_with_holes, voronoi_cells, voronoi_tessellation
 
 COLUMNS = {"id", "persons", "households", "attr_a", "attr_b", "fence", "geometry"}
 

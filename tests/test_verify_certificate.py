@@ -65,7 +65,7 @@ def test_an_undecided_certificate_makes_the_run_exit_1(tmp_path, monkeypatch):
 
 
 def test_demo_takes_no_certificate_like_the_other_commands():
-    from zonedesign.cli import _parser
+    from zonedesign.cli.commands import _parser
 
     # every command that runs the certificate can skip it with one flag (common practice for a costly check)
     for command in (["demo"], ["design", "a.gpkg", "--rules", "r.toml"], ["audit", "a.gpkg", "--rules", "r.toml", "--lookup", "l.csv"]):

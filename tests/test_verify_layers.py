@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from zonedesign.demo.synthetic import voronoi_tessellation
 from zonedesign.dissolve import dissolve, parent_of_zones, zone_layers
-from zonedesign.synthetic import voronoi_tessellation
 
 
 def test_upper_layers_built_from_lower_zones_equal_the_union_of_their_areas():

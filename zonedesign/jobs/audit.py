@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
+from zonedesign.cli.progress import Stages
 from zonedesign.errors import InputError
 from zonedesign.jobs.inputs import (
     Prepared,
@@ -25,7 +26,6 @@ from zonedesign.jobs.inputs import (
 from zonedesign.jobs.outputs import repair_moves, write_repaired
 from zonedesign.jobs.summary import RunResult, add_lock_checks, base_summary, run_certificate
 from zonedesign.plain import plain
-from zonedesign.progress import Stages
 from zonedesign.rules import Rules
 
 AUDIT_REPAIR_WORK = 15.0  # CP-SAT deterministic time for audit --repair (about a minute on 2 cores)

@@ -7,10 +7,10 @@ import time
 from collections.abc import Callable, Iterator, Mapping
 from pathlib import Path
 
+from zonedesign.cli.progress import TaskBars
 from zonedesign.jobs.inputs import Progress, check_out, prepare, say
 from zonedesign.jobs.outputs import finish
 from zonedesign.jobs.summary import RunResult, fence_figures, run_summary
-from zonedesign.progress import TaskBars
 from zonedesign.rules import Rules
 
 

@@ -13,9 +13,9 @@ import numpy as np
 import pandas as pd
 
 from zonedesign import __version__
+from zonedesign.cli.progress import Stages
 from zonedesign.errors import InputError
 from zonedesign.plain import plain
-from zonedesign.progress import Stages
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import Rules, load_rules
 

@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from zonedesign.cli.progress import Stages
 from zonedesign.jobs.inputs import Prepared, Progress, codes_of, say
 from zonedesign.jobs.summary import (
     RunResult,
@@ -21,7 +22,6 @@ from zonedesign.jobs.summary import (
     violations_of,
 )
 from zonedesign.plain import plain
-from zonedesign.progress import Stages
 
 
 def finish(

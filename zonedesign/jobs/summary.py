@@ -103,7 +103,7 @@ def run_certificate(prep: Prepared, labels: Mapping[str, np.ndarray], tiers: lis
                     progress: Progress | None) -> list:
     """The CP-SAT certificate into summary["certificate"], with a fence-tier counter; every
     undecided fence and tier is named on the progress line (it makes the exit code 1)."""
-    from zonedesign.progress import bar, say
+    from zonedesign.cli.progress import bar, say
     from zonedesign.verify.certificate import certify, fence_tiers
 
     with bar(progress, fence_tiers(prep.areas, tiers), "certificate (fence-tiers)") as b:

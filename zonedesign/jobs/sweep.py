@@ -5,12 +5,12 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
+from zonedesign.cli.progress import TaskBars
 from zonedesign.errors import InputError
 from zonedesign.jobs.design import closing
 from zonedesign.jobs.inputs import Progress, check_out, prepare, read_previous, say
 from zonedesign.jobs.summary import RunResult, base_summary
 from zonedesign.plain import plain
-from zonedesign.progress import TaskBars
 from zonedesign.rules import Rules
 
 

@@ -5,7 +5,7 @@ enough; an object that also has `bar(total, desc)` (a context manager yielding s
 with `update(n=1)`) gets bars as well. `Progress` is that object for the command line:
 bars are drawn with tqdm when stderr is a terminal; elsewhere (logs, CI) a finished bar
 becomes one line, so logs stay readable. Every step and bar tick is also a memory
-checkpoint (see `zonedesign.memory`).
+checkpoint (see `zonedesign.cli.memory`).
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ from typing import Any, Protocol, TextIO
 
 from tqdm import tqdm
 
-from zonedesign.memory import checkpoint
+from zonedesign.cli.memory import checkpoint
 
 
 class Bar(Protocol):

@@ -17,10 +17,10 @@ import numpy as np
 import pandas as pd
 import shapely
 
-from zonedesign.agreedzones import agreed_zones
+from zonedesign.demo.agreedzones import agreed_zones
+from zonedesign.demo.synthetic import voronoi_cells
 from zonedesign.graph.adjacency import rook_graph
 from zonedesign.graph.components import components, islands
-from zonedesign.synthetic import voronoi_cells
 
 CRS = "EPSG:32631"
 ORIGIN = (452_000.0, 6_176_000.0)  # south-west corner of the map frame, metres

@@ -1,4 +1,4 @@
-"""Command line: argument parsing, progress and exit codes; the work is in api.py.
+"""Command line: argument parsing and exit codes; the work is in api.py.
 
 Exit codes: 0 ok; 1 ran but a rule is broken; 2 bad input or usage, with one line on stderr
 saying what is wrong and where; 3 an internal error (a bug: `--debug` shows its traceback);
@@ -16,7 +16,7 @@ from pathlib import Path
 from typing import NoReturn
 
 from zonedesign import __version__, interrupts
-from zonedesign.demo import MIN_AREAS as DEMO_MIN_AREAS
+from zonedesign.demo.run import MIN_AREAS as DEMO_MIN_AREAS
 from zonedesign.errors import InputError
 from zonedesign.glossary import glossary_text
 
@@ -309,7 +309,7 @@ def _main(argv: list[str] | None) -> int:
     debug = getattr(args, "debug", False)
     caught: list[warnings.WarningMessage] = []
     try:
-        from zonedesign.memory import memory_guard
+        from zonedesign.cli.memory import memory_guard
 
         # numeric warnings of numpy, shapely and the rest are never printed raw: the run's
         # own checks turn what matters into located errors; the rest is one note at the end
@@ -373,7 +373,7 @@ def _note_warnings(caught: list[warnings.WarningMessage], args: argparse.Namespa
 
 def _run(args: argparse.Namespace) -> int:
     from zonedesign import api
-    from zonedesign.progress import Progress
+    from zonedesign.cli.progress import Progress
 
     say = Progress(quiet=getattr(args, "quiet", False))
     cmd = args.command
@@ -386,7 +386,7 @@ def _run(args: argparse.Namespace) -> int:
         )
         return _done(res, say)
     if cmd == "demo":
-        from zonedesign.demo import run_demo
+        from zonedesign.demo.run import run_demo
 
         res = run_demo(
             args.out, scenario=args.scenario, seed=args.seed, n=args.areas,
@@ -422,7 +422,7 @@ def _run(args: argparse.Namespace) -> int:
     if cmd == "rules":
         return _rules(args)
     if cmd == "show":
-        from zonedesign.show import show
+        from zonedesign.cli.show import show
 
         print(show(args.folder))
         return 0

@@ -38,7 +38,7 @@ def run_demo(
     names it there. `seed` seeds the region (its map and counts); the search seed is the
     one in the rules."""
     from zonedesign import api
-    from zonedesign.scenarios import write_demo_input
+    from zonedesign.demo.scenarios import write_demo_input
 
     if scenario not in ("base", "later"):
         raise InputError(f"--scenario must be base or later, not {scenario!r}")
