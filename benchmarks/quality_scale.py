@@ -20,8 +20,10 @@ Runs, each from seeds 1-3 (quick: seed 1), CPU seconds of this process
 (`time.process_time`) around `search.engine.solve`:
 - default: `SearchRules()` as shipped;
 - previous default: the schedule the engine ran before effort was a setting, stated as
-  settings (600 moves per unit, cooling 0.97, 8 x units moves per temperature, one run):
-  the CPU ratio default / previous default is measured in the same run;
+  settings (600 moves per unit, cooling 0.97, 8 x units moves per temperature, one run),
+  with the engine's other settings of that time (`PREVIOUS_ENGINE`: first temperature at
+  10 % acceptance of the average uphill move, no pair repartition): the CPU ratio
+  default / previous default is measured in the same run;
 - multilevel: the default with the multilevel path forced (`solve(..., multilevel=True)`),
   which records why fences of this size take the flat path.
 
@@ -36,6 +38,7 @@ import csv
 import math
 import sys
 import time
+from contextlib import contextmanager, nullcontext
 from pathlib import Path
 
 import numpy as np
@@ -109,11 +112,32 @@ def previous_default(n: int) -> SearchRules:
     return SearchRules(moves_per_unit=600, cooling=0.97, moves_per_temperature=8 * n, restarts=1)
 
 
-def run(problem, rules: SearchRules, seed: int, multilevel: bool | None = None) -> dict:
+# what the engine did before the quality-scale work besides its schedule: the first
+# temperature took 10 % of the average uphill move, and no pair of zones was repartitioned
+PREVIOUS_ENGINE = {"ANNEAL_START_ACCEPT": 0.1, "PAIR_UNITS": 0}
+
+
+@contextmanager
+def previous_engine():
+    """The engine's settings as they were before (PREVIOUS_ENGINE), for the previous default."""
+    from zonedesign.search import engine
+
+    kept = {k: getattr(engine, k) for k in PREVIOUS_ENGINE}
+    for k, v in PREVIOUS_ENGINE.items():
+        setattr(engine, k, v)
+    try:
+        yield
+    finally:
+        for k, v in kept.items():
+            setattr(engine, k, v)
+
+
+def run(problem, rules: SearchRules, seed: int, multilevel: bool | None = None, previous: bool = False) -> dict:
     from zonedesign.search.engine import solve
 
     t0 = time.process_time()
-    sol = solve(problem, search_rules=rules, seed=seed, time_limit=TIME_LIMIT, multilevel=multilevel)
+    with previous_engine() if previous else nullcontext():
+        sol = solve(problem, search_rules=rules, seed=seed, time_limit=TIME_LIMIT, multilevel=multilevel)
     return {
         "objective": float(sol.score.total),
         "breaks": float(sol.score.breaks),
@@ -167,7 +191,7 @@ def main(quick: bool = False, folder: Path | None = None, log=print) -> dict:
         p = inst.problem
         for s in seeds:
             d = run(p, SearchRules(), s)
-            old = run(p, previous_default(p.n), s)
+            old = run(p, previous_default(p.n), s, previous=True)
             ml = run(p, SearchRules(), s, multilevel=True)
             rows.append({"instance": inst.name, "family": inst.family, "units": p.n, "seed": s,
                          **{f"default_{k}": v for k, v in d.items()},

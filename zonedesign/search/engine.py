@@ -6,13 +6,15 @@ Phases:
 2. improvement: AZP descent to a local optimum, then a merge pass and a split pass, again
    and again until neither changes anything;
 3. for "annealing" or "tabu": that search from the local optimum, back to its best
-   labelling seen, then phase 2 again. Phase 2 only ever improves, so the result is never
-   worse than the labelling the phase started from.
+   labelling seen, then phase 2 again, with pair repartitions (`search.pairs`: the best
+   split of two neighbouring zones' units, for pairs of at most `PAIR_UNITS` units) among
+   its passes after annealing. Phase 2 only ever improves, so the result is never worse
+   than the labelling the phase started from.
 
 4. for "annealing" or "tabu", a reshape phase: forced merges, splits, regrowths and
    moves around random zones, each repaired by a local descent and kept only when better,
-   then phase 2 once more (reaching labellings single improving moves cannot: another
-   number of zones, or units exchanged between zones).
+   then phase 2 once more, with pair repartitions (reaching labellings single improving
+   moves cannot: another number of zones, or units exchanged between zones).
 
 Repeatability: every random choice comes from generators seeded by `seed`, and every
 phase stops on move or iteration budgets proportional to the number of units, so a seed
@@ -23,7 +25,8 @@ starts after the kernels are compiled (or loaded from numba's cache, once per pr
 so a first compile never eats into the search.
 
 info: method, constructions (tried), construction_seconds, moves_tried,
-moves_accepted, merges, splits, rounds (descent / merge / split rounds), reshapes (kept),
+moves_accepted, merges, splits, pair_splits (pairs of zones resplit), rounds (descent /
+merge / split rounds), reshapes (kept),
 temperatures (annealing), tabu_iterations, start_key ((breaks, total) the improvement
 started from), zones, bounds_met, stopped_by_time, seconds, compile_seconds (when this
 call compiled or loaded the kernels).
@@ -72,15 +75,22 @@ from zonedesign.search.mergesplit import (
     split_pass,
 )
 from zonedesign.search.multilevel import coarsen, uses_multilevel
+from zonedesign.search.pairs import pair_pass
 from zonedesign.search.reshape import MOVES, growth_weights, reshape
 from zonedesign.search.schedule import fence_schedule
-from zonedesign.search.state import ZoneState, full_score, search_normalisers
+from zonedesign.search.state import ZoneState, check_problem, full_score, search_normalisers
 from zonedesign.search.tabu import tabu_block
 
 # budgets (the primary stop criteria; see the module docstring)
 MAX_SWEEPS = 1000  # descent sweeps per call (a sweep that moves nothing ends it sooner)
 MAX_ROUNDS = 50  # descent / merge / split rounds
-ANNEAL_START_ACCEPT = 0.1  # share of average uphill moves taken at the first temperature
+# share of average uphill moves taken at the first temperature. A fence searched by one run
+# (1,500 units or more by default) starts at 1 %: at 10 % the improved construction was
+# reheated to about twice its gap before the schedule cooled into the range where the
+# best zonings form (benchmarks/results/quality-scale.md). A small fence's several
+# independent runs start hot, so that they explore apart (benchmarks/results/quality.md)
+ANNEAL_START_ACCEPT = 0.01
+ANNEAL_START_ACCEPT_RUNS = 0.1  # the same when the fence's schedule has several runs
 REFINE_START_ACCEPT = 0.01  # a refinement starts cold: it keeps the coarse zoning's shape
 REFINE_SHARE = 0.5  # of a run's moves, spent refining each finer level
 ANNEAL_FROZEN = 3  # temperatures without a new best and with (almost) no change
@@ -88,6 +98,7 @@ TABU_NO_IMPROVE = 1  # x n, when search_rules.max_no_improve is 0
 TABU_MAX_ITER = 5  # x max_no_improve
 TABU_SAMPLE = 48  # boundary units priced per iteration once there are more
 BLOCK = 256  # tabu iterations per compiled call (time checks between calls)
+PAIR_UNITS = 12  # pairs of zones with at most this many units are repartitioned exactly
 MIN_WORK = 200  # floor of the per-unit budgets, for tiny problems
 
 
@@ -268,7 +279,7 @@ def solve_once(
         raise InputError(f"search method {method!r} is not one of {', '.join(METHODS)}", where="search.method")
     if not time_limit > 0:
         raise InputError(f"time limit must be positive, got {time_limit}", where="search.time_limit_fence")
-    _check_problem(problem)
+    check_problem(problem)
     compile_seconds = warm_up()
     n = problem.n
     t0 = time.perf_counter()
@@ -303,13 +314,13 @@ def solve_once(
             _anneal(run, REFINE_START_ACCEPT, REFINE_SHARE)
         else:
             _anneal(run)
-        _improve(run)
+        _improve(run, pairs=True)
     elif method == "tabu" and not run.out_of_time():
         _tabu(run)
         _improve(run)
     if method != "descent" and not run.out_of_time():
         reshape(run)
-        _improve(run)
+        _improve(run, pairs=True)
 
     labels, zone_anchors = state.compact()
     if norm is None:
@@ -372,6 +383,8 @@ def warm_up() -> float:
         move.warm(state)
     K.exact_totals(st)
     state.load(np.array([0, 0, 1, 1]))
+    pair_pass(st, 1, 4, np.ones(4, dtype=np.int64), stats)
+    state.load(np.array([0, 0, 1, 1]))
     KM.unit_links(st, 1, 0)
     K.pair_total(np.zeros((2, 1)))
     K.seed_rng(1)
@@ -380,24 +393,6 @@ def warm_up() -> float:
 
 
 # ---------------------------------------------------------------- checks and starts
-
-
-def _check_problem(problem: Problem) -> None:
-    n = problem.n
-    c = len(problem.bounds.count_names)
-    counts = np.asarray(problem.counts)
-    if counts.size != n * c or (counts.ndim == 2 and counts.shape[0] != n):
-        raise InputError(f"counts have shape {counts.shape}, expected ({n}, {c})", where="problem.counts")
-    for name in ("weight", "area", "perimeter"):
-        arr = np.asarray(getattr(problem, name))
-        if arr.shape != (n,):
-            raise InputError(f"{name} has shape {arr.shape}, expected ({n},)", where=f"problem.{name}")
-    if problem.previous is not None and np.asarray(problem.previous).shape != (n,):
-        raise InputError(f"previous has shape {np.asarray(problem.previous).shape}, expected ({n},)", where="problem.previous")
-    if problem.homogeneity not in ("ssd", "pairwise"):
-        raise InputError(f"homogeneity {problem.homogeneity!r} is not 'ssd' or 'pairwise'", where="problem.homogeneity")
-    if problem.compactness not in ("polsby", "cut"):
-        raise InputError(f"compactness {problem.compactness!r} is not 'polsby' or 'cut'", where="problem.compactness")
 
 
 def _prepare_start(problem: Problem, start: np.ndarray, anchors: np.ndarray | None) -> tuple[np.ndarray, np.ndarray | None]:
@@ -474,10 +469,13 @@ def _descent(run: _Run) -> None:
     run.info["moves_accepted"] += int(stats[1])
 
 
-def _improve(run: _Run) -> None:
-    """Descent, merges and splits until none of them changes anything."""
+def _improve(run: _Run, pairs: bool = False) -> None:
+    """Descent, merges and splits (and with `pairs`, pair repartitions) until none of them
+    changes anything."""
     st = run.state.st
     changed = 1
+    stats = np.zeros(2, dtype=np.int64)
+    active = last = None
     for _ in range(MAX_ROUNDS):
         run.state.resync()
         _descent(run)
@@ -490,6 +488,21 @@ def _improve(run: _Run) -> None:
         run.info["merges"] += m
         run.info["splits"] += s
         changed = m + s
+        if pairs and PAIR_UNITS > 0:
+            if changed:
+                run.state.resync()
+            labels = run.state.zones.labels
+            if active is None:
+                active = np.ones(labels.size, dtype=np.int64)
+            else:
+                # only pairs with a zone changed since they were last priced can change
+                moved = np.flatnonzero(labels != last)
+                active[labels[moved]] = 1
+                active[last[moved]] = 1
+            p = int(pair_pass(st, run.seed(), PAIR_UNITS, active, stats))
+            last = labels.copy()
+            run.info["pair_splits"] = run.info.get("pair_splits", 0) + p
+            changed += p
         if changed == 0:
             break
     if changed:
@@ -518,11 +531,13 @@ def _back_to_best(run: _Run, best: np.ndarray, cti: np.ndarray) -> None:
         state.load(best, state.zones.anchor.copy())
 
 
-def _anneal(run: _Run, start_accept: float = ANNEAL_START_ACCEPT, share: float = 1.0) -> None:
+def _anneal(run: _Run, start_accept: float | None = None, share: float = 1.0) -> None:
     """Simulated annealing from the current labelling; ends on the best labelling seen.
 
-    start_accept: the share of average uphill moves taken at the first temperature;
-    share: the part of the schedule's moves spent (over all of its temperatures).
+    start_accept: the share of average uphill moves taken at the first temperature
+    (None: `ANNEAL_START_ACCEPT`, or `ANNEAL_START_ACCEPT_RUNS` when the fence's schedule
+    has several runs); share: the part of the schedule's moves spent (over all
+    of its temperatures).
     """
     state = run.state
     st = state.st
@@ -531,8 +546,10 @@ def _anneal(run: _Run, start_accept: float = ANNEAL_START_ACCEPT, share: float =
     uphill = float(sample_uphill(st, run.seed(), max(MIN_WORK, min(20 * n, 5000))))
     if uphill <= 0.0:
         return
-    temp = uphill / -math.log(start_accept)
     plan = fence_schedule(run.rules, n)
+    if start_accept is None:
+        start_accept = ANNEAL_START_ACCEPT_RUNS if plan.runs > 1 else ANNEAL_START_ACCEPT
+    temp = uphill / -math.log(start_accept)
     cooling = plan.cooling
     per_temp = max(1, int(plan.per_temperature * share))
     budget = max(1, int(plan.moves * share))

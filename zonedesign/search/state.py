@@ -11,6 +11,7 @@ from dataclasses import replace
 import numpy as np
 
 from zonedesign import measures
+from zonedesign.errors import InputError
 from zonedesign.measures import TERMS, Score
 from zonedesign.records import Problem
 from zonedesign.search import kernels as K
@@ -32,6 +33,25 @@ def search_normalisers(problem: Problem) -> dict[str, float]:
         out["homogeneity"] = total / kstar if total > 0 else 1.0
         return out
     return measures.normalisers(problem)
+
+
+def check_problem(problem: Problem) -> None:
+    """Raise InputError when a problem's arrays do not fit its units, or a kind is unknown."""
+    n = problem.n
+    c = len(problem.bounds.count_names)
+    counts = np.asarray(problem.counts)
+    if counts.size != n * c or (counts.ndim == 2 and counts.shape[0] != n):
+        raise InputError(f"counts have shape {counts.shape}, expected ({n}, {c})", where="problem.counts")
+    for name in ("weight", "area", "perimeter"):
+        arr = np.asarray(getattr(problem, name))
+        if arr.shape != (n,):
+            raise InputError(f"{name} has shape {arr.shape}, expected ({n},)", where=f"problem.{name}")
+    if problem.previous is not None and np.asarray(problem.previous).shape != (n,):
+        raise InputError(f"previous has shape {np.asarray(problem.previous).shape}, expected ({n},)", where="problem.previous")
+    if problem.homogeneity not in ("ssd", "pairwise"):
+        raise InputError(f"homogeneity {problem.homogeneity!r} is not 'ssd' or 'pairwise'", where="problem.homogeneity")
+    if problem.compactness not in ("polsby", "cut"):
+        raise InputError(f"compactness {problem.compactness!r} is not 'polsby' or 'cut'", where="problem.compactness")
 
 
 def unit_attrs(problem: Problem) -> np.ndarray:
