@@ -243,7 +243,7 @@ def run_redraw_task(task: FenceTask) -> FenceResult:
         )
 
 
-# ---------------------------------------------------------------- hierarchy
+# ---------------------------------------------------------------- the strategy
 
 
 class RedrawStrategy(Strategy):
@@ -271,7 +271,7 @@ class RedrawStrategy(Strategy):
         start, anchors = start_labels(units.graph.subgraph(index), codes, units.counts[index], b.lo)
         # the weight actually used: the default when left out, 0 switches stability off
         used = replace(here, weights={**here.weights, "stability": float(here.weights.get("stability", STABILITY_DEFAULT))})
-        problem = replace(fence_problem(units, index, used, self.count_names), previous=codes)
+        problem = fence_problem(units, index, used, self.count_names, previous=codes)
         return RedrawTask(
             fence=fence, tier=tier.name, tier_index=t, units=index, problem=problem,
             search=self.rules.search, seed=task_seed(self.rules.search.seed, fence, t),

@@ -32,7 +32,6 @@ class Units:
     perimeter: np.ndarray
     fence: np.ndarray  # fence code per unit
     of_area: np.ndarray  # unit index of every base area
-    previous: np.ndarray | None = None  # previous zone index per unit (redraw)
 
 
 def base_units(areas: Areas, graph: Graph) -> Units:
@@ -111,7 +110,8 @@ def fence_problem(
     count_names: Sequence[str],
     previous: np.ndarray | None = None,
 ) -> Problem:
-    """The problem of one fence: the units `index` with the tier's rules in that fence."""
+    """The problem of one fence: the units `index` with the tier's rules in that fence;
+    previous: the fence's previous zone per unit (a redraw's, for stability), in `index` order."""
     return Problem(
         graph=units.graph.subgraph(index),
         counts=units.counts[index],
@@ -123,7 +123,7 @@ def fence_problem(
         term_weights=dict(tier.weights),
         homogeneity=tier.homogeneity,
         compactness=tier.compactness,
-        previous=None if previous is None else previous[index],
+        previous=previous,
     )
 
 
