@@ -85,6 +85,12 @@ def show(folder: str | Path) -> str:
         other = [v for v in violations if v.get("kind") != "bounds"]
         lines += [f"    {v.get('message', v)}" for v in other[:SHOWN]]
         lines += _more(other)
+    rows = [f for f in s.get("fences") or [] if isinstance(f, dict) and "proof" in f]
+    if rows:
+        proven = [f for f in rows if f.get("proof") == "optimal"]
+        per_tier = ", ".join(f"{t} {sum(1 for f in proven if f.get('tier') == t)}" for t in dict.fromkeys(
+            str(f.get("tier")) for f in rows))
+        lines.append(f"  exact: {len(proven)} of {len(rows)} fence-tiers proven optimal (per tier: {per_tier})")
     cert = [c for c in s.get("certificate") or [] if isinstance(c, dict)]
     if cert:
         verdict, counts = certificate_verdict(cert)

@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 
 from zonedesign import __version__
+from zonedesign.exactfence import PROOF_KEYS, proof_fields
 from zonedesign.glossary import CAUTION
 from zonedesign.jobs.inputs import Prepared, Progress, versions
 from zonedesign.plain import plain
@@ -52,7 +53,8 @@ def fence_figures(result: Any) -> list[dict]:
                     "terms": f.terms,
                     "seconds": round(f.seconds, 3),
                     "error": f.error,
-                    "info": {k: v for k, v in f.info.items() if k != "traceback"},
+                    **proof_fields(f.info),
+                    "info": {k: v for k, v in f.info.items() if k != "traceback" and k not in PROOF_KEYS},
                 }
             )
     return rows

@@ -413,6 +413,8 @@ def _fences(run: ReportPlan) -> str:
             "objective",
             "terms",
             "seconds",
+            "proof",
+            "bound",
             "error",
         ]
         rows = []
@@ -433,9 +435,17 @@ def _fences(run: ReportPlan) -> str:
                     num(f.get("objective")),
                     terms,
                     num(f.get("seconds")),
+                    _proof(f),
+                    num(f.get("bound")) if f.get("bound") is not None else "",
                     f.get("error") or "",
                 ]
             )
+        proven = sum(1 for f in fences if f.get("proof") == "optimal")
+        out.append(
+            f"<p>{proven:,} of {len(fences):,} fence-tiers solved exactly and proven optimal (proof "
+            "optimal; bound: the solver's lower bound on the objective, equal to it when proven); "
+            "the others keep the search's zoning (proof none, with the reason).</p>"
+        )
         out.append(html_table("Figures per fence and tier", cols, rows))
     if failures:
         rows = [[f.get("tier"), f.get("fence"), f.get("error")] for f in failures]
@@ -445,6 +455,13 @@ def _fences(run: ReportPlan) -> str:
             )
         )
     return "".join(out)
+
+
+def _proof(f: dict) -> str:
+    """"optimal" (proven by the exact step), or "none" with the reason."""
+    proof = text_of(f.get("proof") or "none")
+    reason = text_of(f.get("proof_reason") or "")
+    return proof if proof == "optimal" or not reason else f"{proof}: {reason}"
 
 
 # (anchor id, heading, maker) in page order

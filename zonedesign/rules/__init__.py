@@ -36,6 +36,9 @@ seed = 1
 constructions = 4
 time_limit_fence = 10.0           # seconds per fence and tier
 time_limit_total = 600.0          # seconds for the whole run
+exact_zones = 24000               # fence-tiers with at most this many feasible zones are
+                                  # solved exactly (proof = "optimal"); 0: never
+exact_time_limit = 60.0           # seconds one exact solve may take
 
 [redraw]                          # optional
 codes = "successor"               # or "fresh": how zone codes carry on in a redraw

@@ -36,6 +36,8 @@ SEARCH_KEYS = (
     "tenure",
     "max_no_improve",
     "restarts",
+    "exact_zones",
+    "exact_time_limit",
 )
 REDRAW_KEYS = ("codes",)
 CODE_POLICIES = ("successor", "fresh")

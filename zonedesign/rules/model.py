@@ -160,6 +160,13 @@ class SearchRules:
     # tabu
     tenure: int = 10
     max_no_improve: int = 0  # 0: a multiple of the number of units
+    # a fence-tier with at most this many feasible zones is solved exactly (every feasible
+    # zone enumerated, then set partitioning) and its proven optimum kept; 0 turns it off.
+    # The default comes from benchmarks/results/exact-threshold.md
+    exact_zones: int = 24_000
+    # seconds the exact solve of one fence-tier may take before the search's result is kept
+    # (the threshold's slowest measured solve took 8 s: a wide margin keeps runs repeatable)
+    exact_time_limit: float = 60.0
 
 
 @dataclass(frozen=True)

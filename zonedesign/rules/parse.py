@@ -260,6 +260,9 @@ def _search(value: object, check: _Check) -> SearchRules:
         "tenure": {"whole": True, "at_least": 0},
         "max_no_improve": {"whole": True, "at_least": 0},
         "restarts": {"whole": True, "at_least": 0},
+        # beyond a few million zones the enumeration alone outgrows memory and minutes
+        "exact_zones": {"whole": True, "at_least": 0, "below": 2_000_001},
+        "exact_time_limit": {"above": 0.0},
     }
     for key, limit in limits.items():
         if key in t:

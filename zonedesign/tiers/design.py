@@ -1,6 +1,7 @@
 """Design: each fence's units searched afresh, zones named fence-tier-number.
 
-The design strategy of the tier runner (`tiers.runner.run_tiers`): a fence's task is one
+The design strategy of the tier runner (`tiers.runner.run_tiers`): a fence's task is its
+proven optimum where it has few feasible zones (`exactfence.prove_fence`), else one
 search (`search.engine.solve`) from the fence's seed; a fence whose search fails keeps one
 zone per connected part, so nesting stays valid and the other fences are kept.
 """
@@ -27,10 +28,15 @@ from zonedesign.tiers.units import Units, fence_problem
 
 def design_fence(task: FenceTask) -> FenceResult:
     """Solve one fence of one tier; an exception becomes a failed result, never a lost run."""
+    from zonedesign.exactfence import prove_fence
     from zonedesign.search.engine import solve
 
     t0 = time.perf_counter()
     try:
+        # exact where it is cheap: a proven optimum stands in for the search
+        proof = prove_fence(task.problem, task.search)
+        if proof.labels is not None:
+            return scored_result(task, proof.labels, t0, proof.info())
         sol = solve(
             task.problem,
             search_rules=task.search,
@@ -47,7 +53,7 @@ def design_fence(task: FenceTask) -> FenceResult:
             total=float(sol.score.total),
             terms=dict(sol.score.terms),
             seconds=time.perf_counter() - t0,
-            info=plain(sol.info),
+            info={**plain(sol.info), **proof.info()},
         )
     except Exception as exc:  # noqa: BLE001 - one fence's failure must not lose the others
         interrupts.raise_if_fatal(exc)

@@ -3,10 +3,7 @@
 `solve_exact(problem)` proves the best zoning of one fence of one tier:
 
 1. Enumerate every connected set of units whose counts meet the tier's bounds (a feasible
-   zone). Each connected set is generated once, from its smallest unit, by binary branching
-   on the frontier (include a frontier unit, or forbid it for the rest of the branch). A set
-   whose counts already exceed a ceiling is not grown further: with counts that are never
-   negative, every superset exceeds it too.
+   zone; `verify.feasible`, which also counts them cheaply up to a cap).
 2. Price each zone with the objective of `measures` (the same formulas as
    `measures.zone_cost`, accumulated while the set grows).
 3. Choose zones covering every unit exactly once at least total cost: a set-partitioning
@@ -43,7 +40,6 @@ import math
 import time
 from dataclasses import dataclass
 
-import numba
 import numpy as np
 from scipy.optimize import Bounds as LPBounds
 from scipy.optimize import LinearConstraint, linprog, milp
@@ -52,6 +48,7 @@ from scipy.sparse import csc_matrix
 from zonedesign import measures
 from zonedesign.errors import InputError
 from zonedesign.records import Problem
+from zonedesign.verify.feasible import FeasibleZones, feasible_zones
 from zonedesign.verify.solving import solve_model
 
 SOLVERS = ("highs", "cp-sat")
@@ -69,340 +66,9 @@ class ExactResult:
     status: str
     n_feasible_zones: int
     seconds: float
-
-
-@dataclass(frozen=True)
-class FeasibleZones:
-    """Every feasible zone as member lists (CSR: ptr, members) with its cost per term."""
-
-    ptr: np.ndarray
-    members: np.ndarray
-    costs: np.ndarray  # weighted normalised cost per zone (what zone_cost returns)
-    complete: bool  # False when the cap or the time limit cut the enumeration short
-    reason: str
-
-    @property
-    def n(self) -> int:
-        return int(self.ptr.shape[0] - 1)
-
-    def zone(self, j: int) -> np.ndarray:
-        return self.members[self.ptr[j] : self.ptr[j + 1]]
-
-
-# ---------------------------------------------------------------- enumeration kernel
-
-
-@numba.njit(cache=True)
-def _lowest(x: np.ndarray) -> int:
-    for w in range(x.shape[0]):
-        word = x[w]
-        if word != 0:
-            low = word & (~word + np.uint64(1))
-            return w * 64 + int(math.log2(float(low)) + 0.5)
-    return -1
-
-
-@numba.njit(cache=True)
-def _has(x: np.ndarray, i: int) -> bool:
-    return (x[i >> 6] >> np.uint64(i & 63)) & np.uint64(1) != 0
-
-
-@numba.njit(cache=True)
-def _set(x: np.ndarray, i: int) -> None:
-    x[i >> 6] |= np.uint64(1) << np.uint64(i & 63)
-
-
-@numba.njit(cache=True)
-def _clear(x: np.ndarray, i: int) -> None:
-    x[i >> 6] &= ~(np.uint64(1) << np.uint64(i & 63))
-
-
-@numba.njit(cache=True)
-def _enumerate(
-    v,
-    sp,
-    stS,
-    stX,
-    stF,
-    stSums,
-    stStats,
-    stXS,
-    indptr,
-    indices,
-    length,
-    counts,
-    lo,
-    hi,
-    prune,
-    w,
-    xw,
-    xq,
-    area,
-    perimeter,
-    dist,
-    use_dist,
-    prev,
-    n_prev,
-    outSums,
-    outStats,
-    outXS,
-    outPtr,
-    outMembers,
-    n_out,
-    n_mem,
-    budget,
-):
-    """Resumable enumeration; stats per frame: W, Q, area, perimeter, internal, pairs, size.
-
-    Returns (v, sp, n_out, n_mem, state): state 0 all done, 1 output buffers full,
-    2 node budget spent.
-    """
-    n = counts.shape[0]
-    nc = counts.shape[1]
-    na = xw.shape[1]
-    cap_out = outSums.shape[0]
-    cap_mem = outMembers.shape[0]
-    tally = np.zeros(max(n_prev, 1), dtype=np.int64)
-    nodes = 0
-    while v < n:
-        if sp == 0:
-            # a new smallest unit v: start from {v}, units below v are forbidden
-            if n_out + 1 > cap_out or n_mem + n > cap_mem:
-                return v, sp, n_out, n_mem, 1
-            over = False
-            for c in range(nc):
-                if prune[c] and counts[v, c] > hi[c]:
-                    over = True
-            if over:
-                v += 1
-                continue
-            stS[0, :] = 0
-            stX[0, :] = 0
-            stF[0, :] = 0
-            for u in range(v):
-                _set(stF[0], u)
-            _set(stS[0], v)
-            for p in range(indptr[v], indptr[v + 1]):
-                u = indices[p]
-                if u > v:
-                    _set(stX[0], u)
-            stSums[0, :] = counts[v, :]
-            stXS[0, :] = xw[v, :]
-            stStats[0, 0] = w[v]
-            stStats[0, 1] = xq[v]
-            stStats[0, 2] = area[v]
-            stStats[0, 3] = perimeter[v]
-            stStats[0, 4] = 0.0
-            stStats[0, 5] = 0.0
-            stStats[0, 6] = 1.0
-            sp = 1
-            n_out, n_mem = _record(
-                stS[0], stSums[0], stStats[0], stXS[0], lo, hi, prev, tally,
-                outSums, outStats, outXS, outPtr, outMembers, n_out, n_mem, n,
-            )
-        while sp > 0:
-            if nodes >= budget:
-                return v, sp, n_out, n_mem, 2
-            if n_out + 1 > cap_out or n_mem + n > cap_mem:
-                return v, sp, n_out, n_mem, 1
-            nodes += 1
-            top = sp - 1
-            u = _lowest(stX[top])
-            if u < 0:
-                sp -= 1
-                continue
-            # the include child goes to slot top + 1, built from the parent at slot top
-            inc = top + 1
-            stS[inc, :] = stS[top, :]
-            stF[inc, :] = stF[top, :]
-            stX[inc, :] = stX[top, :]
-            _clear(stX[inc], u)
-            _set(stS[inc], u)
-            over = False
-            for c in range(nc):
-                stSums[inc, c] = stSums[top, c] + counts[u, c]
-                if prune[c] and stSums[inc, c] > hi[c]:
-                    over = True
-            # the parent slot becomes the exclude child: u forbidden for the rest
-            _clear(stX[top], u)
-            _set(stF[top], u)
-            if over:
-                continue
-            internal = stStats[top, 4]
-            for p in range(indptr[u], indptr[u + 1]):
-                t = indices[p]
-                if _has(stS[top], t):
-                    internal += length[p]
-                elif not _has(stF[inc], t) and not _has(stS[inc], t):
-                    _set(stX[inc], t)
-            pairs = stStats[top, 5]
-            if use_dist:
-                for ww in range(stS.shape[1]):
-                    word = stS[top, ww]
-                    while word != 0:
-                        low = word & (~word + np.uint64(1))
-                        t = ww * 64 + int(math.log2(float(low)) + 0.5)
-                        pairs += dist[u, t]
-                        word ^= low
-            for a in range(na):
-                stXS[inc, a] = stXS[top, a] + xw[u, a]
-            stStats[inc, 0] = stStats[top, 0] + w[u]
-            stStats[inc, 1] = stStats[top, 1] + xq[u]
-            stStats[inc, 2] = stStats[top, 2] + area[u]
-            stStats[inc, 3] = stStats[top, 3] + perimeter[u]
-            stStats[inc, 4] = internal
-            stStats[inc, 5] = pairs
-            stStats[inc, 6] = stStats[top, 6] + 1.0
-            n_out, n_mem = _record(
-                stS[inc], stSums[inc], stStats[inc], stXS[inc], lo, hi, prev, tally,
-                outSums, outStats, outXS, outPtr, outMembers, n_out, n_mem, n,
-            )
-            sp += 1
-        v += 1
-    return v, sp, n_out, n_mem, 0
-
-
-@numba.njit(cache=True)
-def _record(S, sums, stats, xs, lo, hi, prev, tally, outSums, outStats, outXS, outPtr, outMembers, n_out, n_mem, n):
-    for c in range(sums.shape[0]):
-        if sums[c] < lo[c] or sums[c] > hi[c]:
-            return n_out, n_mem
-    start = n_mem
-    best = 0
-    any_prev = False
-    for ww in range(S.shape[0]):
-        word = S[ww]
-        while word != 0:
-            low = word & (~word + np.uint64(1))
-            t = ww * 64 + int(math.log2(float(low)) + 0.5)
-            outMembers[n_mem] = t
-            n_mem += 1
-            if prev[t] >= 0:
-                any_prev = True
-                tally[prev[t]] += 1
-                if tally[prev[t]] > best:
-                    best = tally[prev[t]]
-            word ^= low
-    for p in range(start, n_mem):
-        t = outMembers[p]
-        if prev[t] >= 0:
-            tally[prev[t]] = 0
-    outSums[n_out, :] = sums
-    outStats[n_out, :7] = stats[:7]
-    # stability: members outside the zone's anchor (the previous zone holding most of them)
-    outStats[n_out, 7] = (stats[6] - best) if any_prev else 0.0
-    outXS[n_out, :] = xs
-    outPtr[n_out + 1] = n_mem
-    return n_out + 1, n_mem
-
-
-# ---------------------------------------------------------------- enumeration driver
-
-
-def feasible_zones(
-    problem: Problem, *, max_zones: int = 2_000_000, time_limit: float = 60.0
-) -> FeasibleZones:
-    """Every connected set of units meeting the bounds, priced like `measures.zone_cost`."""
-    start = time.perf_counter()
-    n = problem.n
-    g = problem.graph
-    counts = np.ascontiguousarray(np.asarray(problem.counts, dtype=np.float64).reshape(n, -1))
-    b = problem.bounds
-    lo = np.where(np.isfinite(b.lo), b.lo, -np.inf).astype(np.float64)
-    hi = np.where(np.isfinite(b.hi), b.hi, np.inf).astype(np.float64)
-    # ceilings prune only where counts never fall: then supersets can only grow
-    prune = np.isfinite(hi) & (counts >= 0).all(axis=0)
-    x = np.ascontiguousarray(np.asarray(problem.attrs, dtype=np.float64).reshape(n, -1))
-    w = np.asarray(problem.weight, dtype=np.float64)
-    xw = np.ascontiguousarray(w[:, None] * x)
-    xq = (w[:, None] * x**2).sum(axis=1) if x.shape[1] else np.zeros(n)
-    use_dist = problem.homogeneity == "pairwise" and x.shape[1] > 0
-    dist = measures.pairwise_distances(x) if use_dist else np.zeros((1, 1))
-    if problem.previous is not None:
-        prev_raw = np.asarray(problem.previous, dtype=np.int64)
-        # dense codes keep the tally small; the order of ids is kept for tie-breaking
-        uniq = np.unique(prev_raw[prev_raw >= 0])
-        prev = np.where(prev_raw >= 0, np.searchsorted(uniq, prev_raw), -1).astype(np.int64)
-        n_prev = int(uniq.size)
-    else:
-        prev = np.full(n, -1, dtype=np.int64)
-        n_prev = 0
-    words = max(1, (n + 63) // 64)
-    depth = n + 2
-    stS = np.zeros((depth, words), dtype=np.uint64)
-    stX = np.zeros((depth, words), dtype=np.uint64)
-    stF = np.zeros((depth, words), dtype=np.uint64)
-    stSums = np.zeros((depth, counts.shape[1]))
-    stStats = np.zeros((depth, 7))
-    stXS = np.zeros((depth, x.shape[1]))
-    cap = min(max_zones, 4096) + 1
-    outSums = np.zeros((cap, counts.shape[1]))
-    outStats = np.zeros((cap, 8))
-    outXS = np.zeros((cap, x.shape[1]))
-    outPtr = np.zeros(cap + 1, dtype=np.int64)
-    outMembers = np.zeros(cap * 8 + n, dtype=np.int64)
-    v, sp, n_out, n_mem = 0, 0, 0, 0
-    complete, reason = True, ""
-    while True:
-        v, sp, n_out, n_mem, state = _enumerate(
-            v, sp, stS, stX, stF, stSums, stStats, stXS,
-            g.indptr.astype(np.int64), g.indices.astype(np.int64), g.length.astype(np.float64),
-            counts, lo, hi, prune, w, xw, xq,
-            np.asarray(problem.area, dtype=np.float64), np.asarray(problem.perimeter, dtype=np.float64),
-            dist, use_dist, prev, n_prev,
-            outSums, outStats, outXS, outPtr, outMembers, n_out, n_mem, 200_000,
-        )
-        if state == 0:
-            break
-        if n_out > max_zones:
-            complete, reason = False, f"more than {max_zones:,} feasible zones"
-            break
-        if time.perf_counter() - start > time_limit:
-            complete, reason = False, f"enumeration not finished within {time_limit:g} s"
-            break
-        if state == 1:
-            if n_out + 1 > outSums.shape[0]:
-                grow = min(outSums.shape[0] * 2, max_zones + 2) - outSums.shape[0]
-                grow = max(grow, 1)
-                outSums = np.concatenate([outSums, np.zeros((grow, outSums.shape[1]))])
-                outStats = np.concatenate([outStats, np.zeros((grow, 8))])
-                outXS = np.concatenate([outXS, np.zeros((grow, outXS.shape[1]))])
-                outPtr = np.concatenate([outPtr, np.zeros(grow, dtype=np.int64)])
-            if n_mem + n > outMembers.shape[0]:
-                outMembers = np.concatenate([outMembers, np.zeros(outMembers.shape[0] + n, dtype=np.int64)])
-    k = n_out if complete else min(n_out, max_zones)
-    costs = _price(problem, outSums[:k], outStats[:k], outXS[:k])
-    ptr = outPtr[: k + 1].copy()
-    return FeasibleZones(ptr=ptr, members=outMembers[: ptr[-1]].copy(), costs=costs, complete=complete, reason=reason)
-
-
-def _price(problem: Problem, sums: np.ndarray, stats: np.ndarray, xs: np.ndarray) -> np.ndarray:
-    """Weighted normalised cost per zone, term by term as in measures.zone_costs."""
-    b = problem.bounds
-    norm = measures.normalisers(problem)
-    size = np.zeros(sums.shape[0])
-    for c in np.flatnonzero(np.isfinite(b.target)):
-        size += np.abs(sums[:, c] - b.target[c]) / b.target[c]
-    W, Q = stats[:, 0], stats[:, 1]
-    if problem.homogeneity == "pairwise":
-        homog = stats[:, 5]
-    elif xs.shape[1]:
-        with np.errstate(invalid="ignore", divide="ignore"):
-            homog = np.where(W > 0, Q - (xs**2).sum(axis=1) / np.where(W > 0, W, 1.0), 0.0)
-        homog = np.maximum(homog, 0.0)
-    else:
-        homog = np.zeros(sums.shape[0])
-    per = stats[:, 3] - 2.0 * stats[:, 4]
-    if problem.compactness == "cut":
-        compact = per / 2.0
-    else:
-        compact = 1.0 - measures.polsby_popper(stats[:, 2], per)
-    stab = stats[:, 7] if problem.previous is not None else np.zeros(sums.shape[0])
-    terms = {"size": size, "homogeneity": homog, "compactness": compact, "stability": stab}
-    total = np.zeros(sums.shape[0])
-    for t in measures.TERMS:
-        total += problem.term_weights.get(t, 0.0) * terms[t] / norm[t]
-    return total
+    # a lower bound on the objective of every valid zoning, where a solver gave one (nan
+    # where none): the LP relaxation's optimum, the MIP's dual bound, or the optimum itself
+    bound: float = math.nan
 
 
 # ---------------------------------------------------------------- set partitioning
@@ -430,7 +96,7 @@ def solve_exact(
     start = time.perf_counter()
     n = problem.n
     if n == 0:
-        return ExactResult(np.zeros(0, dtype=np.int64), 0.0, True, "optimal: nothing to zone", 0, 0.0)
+        return ExactResult(np.zeros(0, dtype=np.int64), 0.0, True, "optimal: nothing to zone", 0, 0.0, 0.0)
     zones = feasible_zones(problem, max_zones=max_zones_enumerated, time_limit=time_limit)
     if not zones.complete:
         return ExactResult(
@@ -445,26 +111,32 @@ def solve_exact(
             zones.n, time.perf_counter() - start,
         )
     remaining = max(time_limit - (time.perf_counter() - start), 0.1)
+    lower = [-math.inf]  # raised by the partition solvers as they find bounds
     if solver == "highs":
-        chosen, proven, status = _partition_highs(n, zones, remaining)
+        chosen, proven, status = _partition_highs(n, zones, remaining, lower)
     elif zones.n > CP_SAT_COLUMNS:
         chosen, proven = None, False
         status = f"too large to prove: {zones.n:,} feasible zones are more than CP-SAT takes ({CP_SAT_COLUMNS:,})"
     else:
-        chosen, proven, status = _partition_cp_sat(n, zones, remaining)
+        chosen, proven, status = _partition_cp_sat(n, zones, remaining, lower=lower)
     seconds = time.perf_counter() - start
+    bound = lower[0] if math.isfinite(lower[0]) else math.nan
     if chosen is None:
-        return ExactResult(None, math.nan, proven, status, zones.n, seconds)
+        return ExactResult(None, math.nan, proven, status, zones.n, seconds, bound)
     labels = np.full(n, -1, dtype=np.int64)
     for z, j in enumerate(chosen):
         labels[zones.zone(j)] = z
     labels, _ = measures.compact_labels(labels)
     objective = measures.score(problem, labels).total
-    return ExactResult(labels, objective, proven, status, zones.n, seconds)
+    if proven:
+        # the solver's own dual bound may sit a tolerance below its optimum
+        bound = objective
+    return ExactResult(labels, objective, proven, status, zones.n, seconds, bound)
 
 
-def _milp(costs: np.ndarray, a: csc_matrix, time_limit: float) -> tuple[int, np.ndarray | None]:
-    """(scipy milp status, x or None) for set partitioning over the columns of `a`."""
+def _milp(costs: np.ndarray, a: csc_matrix, time_limit: float, lower: list[float] | None = None) -> tuple[int, np.ndarray | None]:
+    """(scipy milp status, x or None) for set partitioning over the columns of `a`; its
+    dual bound raises `lower[0]` when the columns are all that any cheaper partition uses."""
     res = milp(
         costs,
         constraints=LinearConstraint(a, 1.0, 1.0),
@@ -474,6 +146,9 @@ def _milp(costs: np.ndarray, a: csc_matrix, time_limit: float) -> tuple[int, np.
         # proven in 2 s without)
         options={"time_limit": max(float(time_limit), 0.05), "disp": False, "presolve": False},
     )
+    dual = getattr(res, "mip_dual_bound", None)
+    if lower is not None and dual is not None and math.isfinite(dual):
+        lower[0] = max(lower[0], float(dual))
     return int(res.status), res.x
 
 
@@ -488,7 +163,7 @@ TRIAL_COLUMNS = 1_500
 CP_SAT_COLUMNS = 100_000
 
 
-def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
+def _partition_highs(n: int, zones: FeasibleZones, time_limit: float, lower: list[float]):
     """Set partitioning with HiGHS; large models are thinned by reduced-cost fixing.
 
     With the LP optimum LB and duals y, a zone j in any partition costing at most UB needs
@@ -507,6 +182,7 @@ def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
         if lp.status == 2:
             return None, True, "infeasible: no set of feasible zones covers every unit exactly once"
         if lp.status == 0:
+            lower[0] = max(lower[0], float(lp.fun))
             reduced = costs - a.T @ lp.eqlin.marginals
             trial = np.sort(np.argsort(reduced, kind="stable")[:TRIAL_COLUMNS])
             left = time_limit - (time.perf_counter() - start)
@@ -531,7 +207,9 @@ def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
             return incumbent, False, f"feasible, optimality not proven: {why}"
         return None, False, f"too large to prove: {why}"
     if keep.size <= HIGHS_COLUMNS:
-        status, x = _milp(costs[keep], a[:, keep], left)
+        # over the thinned columns a dual bound holds only for partitions cheaper than the
+        # incumbent: it counts when it is the whole model
+        status, x = _milp(costs[keep], a[:, keep], left, lower if keep.size == zones.n else None)
         proven = status == 0
         chosen = keep[x > 0.5] if x is not None else None
         if status == 2 and incumbent is None:
@@ -557,7 +235,9 @@ def _partition_highs(n: int, zones: FeasibleZones, time_limit: float):
     return incumbent, False, f"feasible, optimality not proven within {time_limit:.3g} s"
 
 
-def _partition_cp_sat(n: int, zones: FeasibleZones, time_limit: float, hint: np.ndarray | None = None):
+def _partition_cp_sat(
+    n: int, zones: FeasibleZones, time_limit: float, hint: np.ndarray | None = None, lower: list[float] | None = None
+):
     from ortools.sat.python import cp_model
 
     m = cp_model.CpModel()
@@ -585,6 +265,8 @@ def _partition_cp_sat(n: int, zones: FeasibleZones, time_limit: float, hint: np.
     if status not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return None, False, f"too large to prove: CP-SAT found no partition within {time_limit:.3g} s"
     chosen = np.array([j for j in range(zones.n) if solver.Value(z[j])], dtype=np.int64)
+    if lower is not None:
+        lower[0] = max(lower[0], solver.BestObjectiveBound() / COST_SCALE)
     if status == cp_model.OPTIMAL:
         return chosen, True, "optimal"
     return chosen, False, f"feasible, optimality not proven within {time_limit:.3g} s"
