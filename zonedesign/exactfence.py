@@ -46,8 +46,10 @@ class FenceProof:
     labels: np.ndarray | None = None  # the proven optimum (0..k-1 per unit)
 
     def info(self) -> dict:
-        """The fields a fence result carries into the summary."""
+        """The fields a fence result carries into the summary (path "exact" where the
+        optimum stands in for the search)."""
         return {
+            **({"path": "exact"} if self.labels is not None else {}),
             "proof": self.proof,
             "bound": self.bound,
             "proof_reason": self.reason,
