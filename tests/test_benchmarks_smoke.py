@@ -188,3 +188,24 @@ def test_results_files_carry_the_machine_header(tmp_path):
     text = md.read_text()
     assert "- date:" in text and "cores" in text and "RAM" in text
     assert csv.read_text().splitlines()[0] == "a,b"
+
+
+def test_exact_threshold_row_counts_solves_and_never_lets_the_search_beat_the_optimum():
+    bench = importlib.import_module("benchmarks.exact_threshold")
+    inst = quality.grid_instance(5, 4, 0.0, 2)
+    row = bench.measure(inst, threshold=1_000)
+    assert row["proven"] and not row["over_cap"] and row["feasible_zones"] > 0
+    # an optimum is a lower bound on every feasible zoning's objective
+    assert row["anneal_gap_pct"] >= -1e-6
+
+
+def test_exact_threshold_rule_stops_where_summed_exact_time_passes_annealing_time():
+    bench = importlib.import_module("benchmarks.exact_threshold")
+
+    def row(zones, exact, anneal, proven=True):
+        return {"feasible_zones": zones, "exact_s": exact, "anneal_s": anneal, "proven": proven, "over_cap": False}
+
+    rows = [row(1_500, 0.1, 1.0), row(12_345, 1.5, 1.0), row(30_000, 5.0, 1.0), row(20_456, 0.2, 1.0)]
+    # sums in zone order: 0.1/1, 1.6/2, 1.8/3, 6.8/4 -> the last within 1 x is at 20,456 zones
+    assert bench.threshold_of(rows) == 20_000
+    assert bench.threshold_of([row(500, 0.1, 1.0, proven=False)]) == 0
