@@ -102,15 +102,18 @@ def _stop_inside_a_solve(mp: pytest.MonkeyPatch) -> None:
 
 def _fence_raises(exc: BaseException, stop: int | None = None) -> Callable[[pytest.MonkeyPatch], None]:
     def patch(mp: pytest.MonkeyPatch) -> None:
+        import zonedesign.exactfence as exactfence
         import zonedesign.search.engine as engine
         from zonedesign import interrupts
 
-        def solve(problem, **kw):
+        def solve(problem, *args, **kw):
             if stop is not None:  # a signal landing in compiled code: only the flag tells
                 interrupts.request(stop)
             raise exc
 
+        # a fence's work is the exact step, then the search: the fault strikes either
         mp.setattr(engine, "solve", solve)
+        mp.setattr(exactfence, "prove_fence", solve)
 
     return patch
 
