@@ -49,16 +49,17 @@ def demo_instances(n: int = 5000, seed: int = 7) -> list[Instance]:
     """Every fence-tier problem of the demo region, as the tier runner builds it."""
     from dataclasses import replace
 
-    from zonedesign.hierarchy import build_hierarchy, serial_executor
+    from zonedesign.demo.scenarios import write_demo_input
     from zonedesign.jobs.inputs import prepare
-    from zonedesign.scenarios import write_demo_input
+    from zonedesign.tiers.design import build_hierarchy
+    from zonedesign.tiers.executors import serial_executor
 
     found: list[Instance] = []
 
     def capture(tasks, fn=None):
         for t in tasks:
             found.append(Instance(f"demo {t.tier} {t.fence} ({t.problem.n} units)", f"demo-{t.tier}", t.problem))
-        return serial_executor(tasks, fn)
+        return serial_executor(tasks, fn)  # fn: the design strategy's fence function
 
     with tempfile.TemporaryDirectory(prefix="zonedesign-bench-") as tmp:
         written = write_demo_input(Path(tmp) / "input", seed=seed, n=n)

@@ -19,14 +19,14 @@ import pytest
 from hierarchy_support import areas_from_frame, nx_graph, two_tier_rules, zone_members
 
 from zonedesign import measures
+from zonedesign.demo.synthetic import grid_with_holes
 from zonedesign.errors import RulesError
 from zonedesign.exactfence import prove_fence
-from zonedesign.hierarchy import build_hierarchy
 from zonedesign.jobs.summary import fence_figures
 from zonedesign.locks import Locks
 from zonedesign.records import Bounds, Graph, Problem
 from zonedesign.rules import SearchRules, parse_rules
-from zonedesign.synthetic import grid_with_holes
+from zonedesign.tiers.design import build_hierarchy
 from zonedesign.verify.checks import audit
 from zonedesign.verify.feasible import count_feasible_zones
 
@@ -255,7 +255,7 @@ def test_the_summary_and_report_show_proof_per_fence(tmp_path):
     html = (tmp_path / "out" / "report.html").read_text()
     assert ">proof</th>" in html and "<td>optimal</td>" in html
     assert res.exit_code == 0
-    from zonedesign.show import show
+    from zonedesign.cli.show import show
 
     shown = show(tmp_path / "out")
     assert "exact: 2 of 2 fence-tiers proven optimal (per tier: block 2)" in shown
