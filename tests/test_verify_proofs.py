@@ -57,14 +57,38 @@ def brute_force_feasible(p: Problem) -> bool:
     return False
 
 
+def brute_force_highest_floor(p: Problem, c: int) -> float | None:
+    """The largest smallest-zone count of column c over every partition into connected
+    zones meeting every other bound (networkx connectivity); None when there is none."""
+    g = nx.Graph()
+    g.add_nodes_from(range(p.n))
+    i, j, _ = p.graph.edges()
+    g.add_edges_from(zip(i.tolist(), j.tolist()))
+    lo = p.bounds.lo.copy()
+    lo[c] = -np.inf
+    best = None
+    for part in set_partitions(list(range(p.n))):
+        sums = [p.counts[block].sum(axis=0) for block in part]
+        if any((s < lo).any() or (s > p.bounds.hi).any() for s in sums):
+            continue
+        if not all(nx.is_connected(g.subgraph(block)) for block in part):
+            continue
+        least = min(s[c] for s in sums)
+        best = least if best is None else max(best, least)
+    return best
+
+
 def test_fence_total_below_the_floor():
-    proof = prove_infeasible(problem(grid_graph(1, 3), [50, 60, 61], [400], [1000]), "D1", "block")
+    proof = prove_infeasible(problem(grid_graph(1, 3), [50, 60, 61], [400], [1000]), "D1", "block",
+                             unit_ids=["area a1", "area a2", "area a3"])
     assert proof is not None and proof.proven and proof.kind == "arithmetic"
     # one zone of all three units is the largest any zone can be (common practice)
     assert proof.text == ("fence D1 has 171 households; the tier floor is 400, so no valid zone exists; "
-                          "the highest floor that could be met in fence D1 is at most 171 households")
+                          "the highest floor of households that could be met in fence D1 is 171 households "
+                          "(proven; the smallest zone of a zoning that meets it holds area a1, area a2, area a3)")
     assert proof.figures["total"] == 171 and proof.figures["floor"] == 400
-    assert proof.figures["highest_floor"] == 171
+    (top,) = proof.floors
+    assert (top.status, top.at_least, top.at_most) == ("optimal", 171, 171)
 
 
 def test_island_below_the_floor():
@@ -76,19 +100,27 @@ def test_island_below_the_floor():
                                  "the tier floor is 50")
     assert proof.figures["island"] == ["c", "d"]
     # a zone cannot leave its island, so the island of 30 caps every floor (common practice)
-    assert proof.figures["highest_floor"] == 30 and proof.text.endswith("is at most 30 households")
+    assert proof.floors[0].at_least == 30 and proof.text.endswith(
+        "in fence D2 is 30 households (proven; the smallest zone of a zoning that meets it holds c, d)")
+    # arithmetic alone says the same cap
+    assert arithmetic_proof(problem(graph, [100, 100, 10, 20], [50], [1000]), "D2").figures["highest_floor"] == 30
 
 
 def test_total_between_one_ceiling_and_two_floors():
-    proof = prove_infeasible(problem(grid_graph(1, 3), [150, 160, 210], [400], [500]), "D3", "block")
+    proof = prove_infeasible(problem(grid_graph(1, 3), [150, 160, 210], [400], [500]), "D3", "block",
+                             unit_ids=["x", "y", "z"])
     assert proof.kind == "arithmetic"
     assert proof.text == (
         "fence D3 has 520 households: too many for one zone (the ceiling is 500) and too few for "
-        "two (two floors of 400 make 800), so no valid zoning exists; the highest floor that "
-        "could be met in fence D3 is at most 260 households"
+        "two (two floors of 400 make 800), so no valid zoning exists; the highest floor of "
+        "households that could be met in fence D3 is 210 households (proven; the smallest zone of a "
+        "zoning that meets it holds z)"
     )
-    # 520 needs two zones under a ceiling of 500, and the smaller of two holds at most 260 (common practice)
-    assert proof.figures["highest_floor"] == 260
+    # by hand: two zones of the path 150-160-210 are {150} | {160, 210} or {150, 160} | {210},
+    # whose smaller zones hold 150 and 210; arithmetic alone caps it at 520 / 2 = 260
+    assert arithmetic_proof(problem(grid_graph(1, 3), [150, 160, 210], [400], [500]), "D3").figures[
+        "highest_floor"] == 260
+    assert brute_force_highest_floor(problem(grid_graph(1, 3), [150, 160, 210], [400], [500]), 0) == 210
 
 
 def test_total_between_k_ceilings_and_k_plus_one_floors():
@@ -190,3 +222,89 @@ def test_fence_proofs_name_area_ids_and_zone_codes():
     assert first.text == ("area 36007014300 alone has 12,221 POP8, above the tier ceiling of 10,000; "
                           "no zone can hold it")
     assert second.text == "zone g1 alone has 12,221 POP8, above the tier ceiling of 12,000; no zone can hold it"
+
+
+def test_highest_floor_matches_brute_force_on_random_graphs():
+    # every fence proven infeasible says the highest floor it could meet; it must equal the
+    # best smallest zone over all connected partitions meeting the other bounds (networkx)
+    from zonedesign.verify.floors import search_highest_floor
+
+    rng = np.random.default_rng(5)
+    checked = 0
+    kinds = set()
+    for _ in range(40):
+        n = int(rng.integers(4, 8))
+        tree = nx.random_labeled_tree(n, seed=int(rng.integers(1 << 30)))
+        edges = list(tree.edges()) + [tuple(rng.choice(n, 2, replace=False)) for _ in range(int(rng.integers(0, 3)))]
+        graph = Graph.from_edges(n, [a for a, _ in edges], [b for _, b in edges])
+        counts = rng.integers(1, 10, n)
+        lo = float(rng.integers(6, 16))
+        p = problem(graph, counts, [lo], [lo + float(rng.integers(0, 8))])
+        proof = prove_infeasible(p, "R", "block", time_limit=10)
+        if proof is None:
+            continue
+        assert proof.proven
+        if "alone has" in proof.text:
+            assert proof.floors == ()  # a ceiling no unit fits: no floor takes part
+            continue
+        assert len(proof.floors) == 1
+        found = proof.floors[0]
+        kinds.add(found.status)
+        truth = brute_force_highest_floor(p, 0)
+        if truth is None:
+            assert found.status == "infeasible"
+            assert "no floor of households can be met in fence R" in proof.text
+        else:
+            assert found.status == "optimal" and found.at_least == found.at_most == truth
+            assert f"fence R is {truth:,.0f} households (proven; the smallest zone" in proof.text
+        # the search alone (as the proof runs it) gives the same figures
+        again = search_highest_floor(p, 0)
+        assert (again.status, again.at_least, again.at_most) == (found.status, found.at_least, found.at_most)
+        checked += 1
+    assert checked >= 10 and kinds == {"optimal", "infeasible"}
+
+
+def test_highest_floor_with_other_bounds_that_fail_on_their_own():
+    # households of exactly 6 on the path 5-5-1-1 cannot be met (no cut leaves 6 a side), so
+    # no floor of persons helps; the households floor, freed, is met at best by {5 | 5 | 1, 1}
+    # at 2 (by hand, and by brute force below)
+    p = problem(grid_graph(1, 4), [[10, 5], [10, 5], [10, 1], [10, 1]], [10, 6], [1000, 6],
+                names=("persons", "households"))
+    proof = prove_infeasible(p, "P", "block")
+    assert proof.kind == "cp-sat" and proof.proven
+    persons, households = proof.floors
+    assert persons.status == "infeasible" and brute_force_highest_floor(p, 0) is None
+    assert "no floor of persons can be met in fence P: its other bounds fail even without one" in proof.text
+    assert households.status == "optimal" and households.at_least == 2 == brute_force_highest_floor(p, 1)
+
+
+def test_highest_floor_out_of_budget_says_what_is_proven():
+    # with no time at all only the arithmetic end is known, and the text says so
+    from zonedesign.verify.floors import floor_sentence, search_highest_floor
+
+    p = problem(grid_graph(1, 3), [150, 160, 210], [400], [500])
+    found = search_highest_floor(p, 0, budget=0.0)
+    assert found.status == "undecided" and found.at_least is None and found.at_most == 260
+    assert floor_sentence(found, "fence D3") == (
+        "the highest floor of households that could be met in fence D3 is at most 260 households "
+        "(no zoning meeting the other bounds found: the search stopped at its budget of 0 s)"
+    )
+
+
+def test_highest_floor_on_a_larger_fence_states_both_ends():
+    # a 10 x 10 grid under a short budget: whatever is said is proven at both ends, and a
+    # range reads "at least F (proven), at most G"
+    from zonedesign.verify.floors import floor_sentence, search_highest_floor
+
+    rng = np.random.default_rng(8)
+    p = problem(grid_graph(10, 10), rng.integers(1, 30, 100), [2000], [400])
+    found = search_highest_floor(p, 0, budget=1.0)
+    assert found.at_most is not None and found.at_most <= 1999
+    text = floor_sentence(found, "fence G")
+    if found.status == "feasible":
+        assert found.at_least <= found.at_most
+        assert f"is at least {found.at_least:,.0f} households (proven) and at most {found.at_most:,.0f}" in text
+    elif found.status == "optimal":
+        assert "(proven; the smallest zone of a zoning that meets it holds unit " in text
+    else:
+        assert found.status == "undecided" and "at most" in text

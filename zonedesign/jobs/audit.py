@@ -24,7 +24,15 @@ from zonedesign.jobs.inputs import (
     say,
 )
 from zonedesign.jobs.outputs import repair_moves, write_repaired
-from zonedesign.jobs.summary import RunResult, add_lock_checks, base_summary, run_certificate
+from zonedesign.jobs.summary import (
+    RunResult,
+    add_lock_checks,
+    base_summary,
+    explain_breaks,
+    mark_locked_breaks,
+    run_certificate,
+    table_breaks,
+)
 from zonedesign.plain import plain
 from zonedesign.rules import Rules
 
@@ -153,6 +161,13 @@ def audit(
         from zonedesign.zonetables import all_tables
 
         tables = all_tables(prep.areas, prep.graph, labels, tiers)
+        # a bound no zoning could meet is proven so, with the highest floor it could meet
+        breaks = table_breaks(tiers, tables)
+        mark_locked_breaks(prep, breaks)
+        summary["bound_breaks"] = breaks
+        if breaks:
+            say(progress, f"seeking proofs for {len({(b['tier'], b['fence']) for b in breaks})} fence(s) with bound breaks")
+            summary["proofs"] = explain_breaks(prep, labels, breaks)
     rc = 0 if summary["audit"]["ok"] and not overlay_flags and all(c.ok for c in certs) else 1
     summary["exit_code"] = rc
     if out is not None:

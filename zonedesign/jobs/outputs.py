@@ -19,6 +19,7 @@ from zonedesign.jobs.summary import (
     explain_breaks,
     mark_locked_breaks,
     run_certificate,
+    table_breaks,
     violations_of,
 )
 from zonedesign.plain import plain
@@ -65,11 +66,7 @@ def finish(
     summary["tiers"] = {
         t.name: tier_figures(tables[t.name], t, prep.areas.count_names) for t in tiers
     }
-    breaks = []
-    for t in tiers:
-        df = tables[t.name]
-        for _, row in df[df["bound_break"]].iterrows():
-            breaks.append({"tier": t.name, "zone": row["zone"], "fence": row["fence"], "breaks": row["breaks"]})
+    breaks = table_breaks(tiers, tables)
     mark_locked_breaks(prep, breaks)
     summary["bound_breaks"] = breaks
     stage(f"seeking proofs for {len({(b['tier'], b['fence']) for b in breaks})} fence(s) with bound breaks")

@@ -106,6 +106,26 @@ _PROOF_WORDS = {
 }
 
 
+_LOCK_WORDS = "forced by the lock: the zone is fixed by the lock file, so no zoning that keeps it can mend the break"
+
+
+def floors_cell(floors: Any) -> str:
+    """Each count's highest floor as the proof found it: the value, a proven range, or none."""
+    parts = []
+    for f in dicts(floors):
+        name, lo, hi = f.get("count", ""), f.get("at_least"), f.get("at_most")
+        status = f.get("status")
+        if status == "optimal":
+            parts.append(f"{name} {num(lo)}")
+        elif status == "feasible":
+            parts.append(f"{name} at least {num(lo)}, at most {num(hi)}")
+        elif status == "infeasible":
+            parts.append(f"{name}: none (its other bounds fail without one)")
+        elif hi is not None:
+            parts.append(f"{name} at most {num(hi)}")
+    return "; ".join(parts)
+
+
 def certificate(run: ReportPlan) -> str:
     out = []
     certs = dicts(run.summary.get("certificate"))
@@ -140,13 +160,12 @@ def certificate(run: ReportPlan) -> str:
         rows = []
         for p in proofs:
             status = str(p.get("status", ""))
-            rows.append(
-                [p.get("tier"), p.get("fence"), _PROOF_WORDS.get(status, status), p.get("text", "")]
-            )
+            verdict = _LOCK_WORDS if p.get("kind") == "lock" else _PROOF_WORDS.get(status, status)
+            rows.append([p.get("tier"), p.get("fence"), verdict, floors_cell(p.get("floors")), p.get("text", "")])
         out.append(
             html_table(
                 "Why some bounds could not be met",
-                ["tier", "fence", "verdict", "in plain words"],
+                ["tier", "fence", "verdict", "highest floor that could be met", "in plain words"],
                 rows,
             )
         )

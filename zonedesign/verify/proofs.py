@@ -14,6 +14,12 @@ When arithmetic finds nothing, a CP-SAT model of the fence's free zoning (at mos
 K from the total over the floor; flow contiguity rooted at each zone's first unit; bounds)
 decides: INFEASIBLE is the proof, a solution means no proof exists, and a time-out is
 stated as "too large to prove", never passed over in silence.
+
+A proven proof in which a floor takes part (a total or an island below the floor, a total
+between k ceilings and k + 1 floors, counts that allow no common number of zones, or any
+CP-SAT proof) also says the highest floor of each such count that the fence could meet,
+with the other bounds as they are (`floors`). Texts name units as the caller does
+(`unit_ids`: area ids, zone codes), never by position.
 """
 
 from __future__ import annotations
@@ -21,24 +27,22 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
-from ortools.sat.python import cp_model
 
 from zonedesign.graph.components import components
-from zonedesign.records import Problem
-from zonedesign.verify.cpsat import (
-    add_bounds,
-    add_coverage,
-    add_flow_contiguity,
-    holders_of,
-    integer_scale,
-    scaled_counts,
-    solver,
-    verdict,
+from zonedesign.records import Bounds, Problem
+from zonedesign.verify.cpsat import add_bounds, integer_scale, scaled_counts, solver, verdict
+from zonedesign.verify.floors import (
+    FLOOR_BUDGET,
+    FloorBound,
+    floor_sentence,
+    highest_floor,
+    search_highest_floor,
 )
 from zonedesign.verify.solving import solve_model
+from zonedesign.verify.zoningmodel import free_zoning
 
 
 @dataclass(frozen=True)
@@ -56,6 +60,7 @@ class Proof:
     figures: dict = field(default_factory=dict)
     status: str = "INFEASIBLE"
     seconds: float = 0.0
+    floors: tuple[FloorBound, ...] = ()  # the highest floor per count, where floors take part
 
     @property
     def proven(self) -> bool:
@@ -104,54 +109,54 @@ def _why_no_count(where: str, total: float, name: str, lo: float, hi: float) -> 
     )
 
 
-def highest_floor(totals: Sequence[float], hi: float, whole: bool = True) -> float:
-    """The highest floor any zoning of these islands could meet, by arithmetic alone.
-
-    An island of total T needs at least ceil(T / ceiling) zones, so its smallest zone holds
-    at most T / ceil(T / ceiling); the fence's floor can be no higher than the least of
-    these over its islands (rounded down when counts are whole numbers).
-    """
-    best = math.inf
-    for total in totals:
-        k = 1 if not np.isfinite(hi) or hi <= 0 else max(1, math.ceil(total / hi - 1e-9))
-        best = min(best, total / k)
-    return float(math.floor(best + 1e-9)) if whole and np.isfinite(best) else float(best)
-
-
 def _floor_note(label: str, name: str, value: float) -> str:
     return f"; the highest floor that could be met in {label} is at most {_fmt(value)} {name}"
 
 
 def arithmetic_proof(
-    problem: Problem, fence: str = "", tier: str = "", *, unit_ids: Sequence[str] | None = None
+    problem: Problem, fence: str = "", tier: str = "", *, unit_ids: Sequence[str] | None = None, where: str = ""
 ) -> Proof | None:
-    """The first arithmetic reason why the fence cannot be zoned, or None."""
+    """The first arithmetic reason why the fence cannot be zoned, or None; a floor that
+    fails says the highest floor arithmetic allows (see `floors.highest_floor`).
+
+    unit_ids: what the text calls each unit ("area 36007014300", "zone g1"); where: what it
+    calls the fence (default "fence <code>").
+    """
+    proof, floor_counts = _arithmetic(problem, fence, tier, unit_ids, where)
+    if proof is None or not floor_counts:
+        return proof
+    c = floor_counts[0]
+    counts = np.asarray(problem.counts, dtype=np.float64).reshape(problem.n, -1)
+    n_comp, comp = components(problem.graph)
+    island_totals = np.bincount(comp, weights=counts[:, c], minlength=n_comp)
+    whole = bool(np.all(counts == np.round(counts)))
+    top = highest_floor(island_totals.tolist(), problem.bounds.hi[c], whole)
+    label = where or (f"fence {fence}" if fence else "the fence")
+    figures = {**proof.figures, "highest_floor": top}
+    return replace(proof, text=proof.text + _floor_note(label, problem.bounds.count_names[c], top), figures=figures)
+
+
+def _arithmetic(
+    problem: Problem, fence: str, tier: str, unit_ids: Sequence[str] | None, where: str
+) -> tuple[Proof | None, list[int]]:
+    """The first arithmetic proof, and the count columns whose floor it says cannot be met."""
     start = time.perf_counter()
     b = problem.bounds
     counts = np.asarray(problem.counts, dtype=np.float64).reshape(problem.n, -1)
     names = b.count_names
     ids = [str(u) for u in unit_ids] if unit_ids is not None else [f"unit {i}" for i in range(problem.n)]
-    label = f"fence {fence}" if fence else "the fence"
+    label = where or (f"fence {fence}" if fence else "the fence")
 
-    def found(text: str, figures: dict) -> Proof:
-        return Proof(fence, tier, "arithmetic", text, figures, "INFEASIBLE", time.perf_counter() - start)
+    def found(text: str, figures: dict, floors: Sequence[int] = ()) -> tuple[Proof, list[int]]:
+        proof = Proof(fence, tier, "arithmetic", text, figures, "INFEASIBLE", time.perf_counter() - start)
+        return proof, list(floors)
 
     n_comp, comp = components(problem.graph)
-    whole = bool(np.all(counts == np.round(counts)))
-
-    def floor_found(text: str, figures: dict, c: int) -> Proof:
-        if figures.get("total", math.inf) >= figures.get("floor", -math.inf) and "zones_too_few" not in figures:
-            return found(text, figures)  # not a floor that fails
-        island_totals = np.bincount(comp, weights=counts[:, c], minlength=n_comp)
-        top = highest_floor(island_totals.tolist(), b.hi[c], whole)
-        figures["highest_floor"] = top
-        return found(text + _floor_note(label, names[c], top), figures)
-
     totals = counts.sum(axis=0)
     for c, name in enumerate(names):
         why = _why_no_count(label, totals[c], name, b.lo[c], b.hi[c])
         if why:
-            return floor_found(*why, c)
+            return found(*why, [c])
     for c, name in enumerate(names):
         if np.isfinite(b.hi[c]):
             big = np.flatnonzero(counts[:, c] > b.hi[c])
@@ -161,22 +166,23 @@ def arithmetic_proof(
                     f"{ids[i]} alone has {_fmt(counts[i, c])} {name}, above the tier ceiling of "
                     f"{_fmt(b.hi[c])}; no zone can hold it"
                 )
+                # a ceiling, not a floor: no floor search
                 return found(
                     text, {"count": name, "unit": ids[i], "value": float(counts[i, c]), "ceiling": float(b.hi[c])}
                 )
     if n_comp > 1:
         for p in range(n_comp):
             members = np.flatnonzero(comp == p)
-            where = (
+            island = (
                 f"the island of {len(members)} unit{'s' if len(members) > 1 else ''} in {label} "
                 f"(first: {', '.join(ids[m] for m in members[:3])})"
             )
             for c, name in enumerate(names):
-                why = _why_no_count(where, counts[members, c].sum(), name, b.lo[c], b.hi[c])
+                why = _why_no_count(island, counts[members, c].sum(), name, b.lo[c], b.hi[c])
                 if why:
                     text, figures = why
                     figures.update(island_units=len(members), island=[ids[m] for m in members[:10]])
-                    return floor_found(text + "; zones cannot leave the island", figures, c)
+                    return found(text + "; zones cannot leave the island", figures, [c])
     groups = [np.arange(problem.n)] if n_comp == 1 else [np.flatnonzero(comp == p) for p in range(n_comp)]
     for members in groups:
         ranges = {
@@ -185,16 +191,21 @@ def arithmetic_proof(
         kmin = max(r[0] for r in ranges.values()) if ranges else 1
         kmax = min(r[1] for r in ranges.values()) if ranges else math.inf
         if kmin > kmax:
-            where = label if len(groups) == 1 else f"the island of {len(members)} units in {label}"
+            island = label if len(groups) == 1 else f"the island of {len(members)} units in {label}"
             parts = [
                 f"{name} allow {r[0]} to {r[1]} zones" if np.isfinite(r[1])
                 else f"{name} allow {r[0]} or more zones"
                 for name, r in ranges.items()
             ]
-            text = f"{where}: {'; '.join(parts)}; no number of zones meets every count's bounds"
+            text = f"{island}: {'; '.join(parts)}; no number of zones meets every count's bounds"
             figures = {"zone_ranges": {k: [v[0], v[1] if np.isfinite(v[1]) else None] for k, v in ranges.items()}}
-            return found(text, figures)
-    return None
+            return found(text, figures, _floored(b))
+    return None, []
+
+
+def _floored(b: Bounds) -> list[int]:
+    """The count columns with a floor above nothing."""
+    return [c for c in range(len(b.count_names)) if np.isfinite(b.lo[c]) and b.lo[c] > 0]
 
 
 def prove_infeasible(
@@ -204,24 +215,39 @@ def prove_infeasible(
     time_limit: float = 10.0,
     *,
     unit_ids: Sequence[str] | None = None,
+    where: str = "",
     workers: int = 1,
+    floor_budget: float = FLOOR_BUDGET,
 ) -> Proof | None:
     """A proof that no contiguous zoning of the fence meets the tier's bounds, or None.
 
     Returns None when a valid zoning exists (the solver found one), a Proof with status
     "INFEASIBLE" when none exists, and a Proof with status "UNKNOWN" stating that the fence
-    is too large to prove when the time limit ran out first.
+    is too large to prove when the time limit ran out first. A proven proof whose floors
+    take part also says the highest floor of each such count that the fence could meet
+    (`floors.search_highest_floor`, `floor_budget` seconds per count; 0: arithmetic only).
 
     >>> proof = prove_infeasible(problem, "D7", "small", time_limit=5)
     >>> proof.text if proof else "a valid zoning exists"
     """
-    proof = arithmetic_proof(problem, fence, tier, unit_ids=unit_ids)
-    if proof is not None:
+    label = where or (f"fence {fence}" if fence else "the fence")
+    proof, floor_counts = _arithmetic(problem, fence, tier, unit_ids, where)
+    if proof is None:
+        proof = _cp_sat_proof(problem, fence, tier, label, time_limit, workers)
+        floor_counts = _floored(problem.bounds) if proof is not None and proof.proven else []
+    if proof is None or not floor_counts:
         return proof
-    return _cp_sat_proof(problem, fence, tier, time_limit, workers)
+    found = tuple(
+        search_highest_floor(problem, c, budget=floor_budget, workers=workers, unit_ids=unit_ids)
+        for c in floor_counts
+    )
+    text = proof.text + "".join(f"; {floor_sentence(f, label)}" for f in found)
+    return replace(proof, text=text, floors=found, seconds=proof.seconds + sum(f.seconds for f in found))
 
 
-def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, workers: int) -> Proof | None:
+def _cp_sat_proof(
+    problem: Problem, fence: str, tier: str, label: str, time_limit: float, workers: int
+) -> Proof | None:
     start = time.perf_counter()
     n = problem.n
     if n == 0:
@@ -236,58 +262,12 @@ def _cp_sat_proof(problem: Problem, fence: str, tier: str, time_limit: float, wo
         lo_k, hi_k = zone_count_range(totals[c], b.lo[c], b.hi[c])
         kmin, kmax = max(kmin, lo_k), min(kmax, hi_k)
     K = int(kmax)
-    label = f"fence {fence}" if fence else "the fence"
-    i_e, j_e, _ = problem.graph.edges()
-    edges = list(zip(i_e.tolist(), j_e.tolist()))
 
-    m = cp_model.CpModel()
-    # zones are numbered by their first unit, so unit i can only be in zones 0..i
-    x = {(i, z): m.NewBoolVar(f"x_{i}_{z}") for i in range(n) for z in range(min(i, K - 1) + 1)}
-    cand = [list(range(min(i, K - 1) + 1)) for i in range(n)]
+    # zones numbered by their first unit, rooted flow contiguity; bounds on every used zone
+    fz = free_zoning(problem.graph, K, kmin)
+    add_bounds(fz.model, counts, b, scale, fz.x, fz.holders, fz.used)
 
-    # coverage: every unit lies in exactly one zone
-    add_coverage(m, cand, x)
-
-    # opened[i, z]: zone z has a unit among 0..i
-    opened: dict[tuple[int, int], cp_model.IntVar] = {}
-    for z in range(K):
-        prev = None
-        for i in range(z, n):
-            o = m.NewBoolVar(f"o_{i}_{z}")
-            if prev is None:
-                m.Add(o == x[i, z])
-            else:
-                m.AddMaxEquality(o, [prev, x[i, z]])
-            opened[i, z] = o
-            prev = o
-
-    # order: a unit opens zone z only after zone z-1 has been opened by an earlier unit
-    for (i, z), var in x.items():
-        if z >= 1:
-            m.AddImplication(var, opened[i - 1, z - 1])
-
-    # roots: a zone's first unit is its root
-    root: dict[tuple[int, int], cp_model.IntVar] = {}
-    for (i, z), var in x.items():
-        if (i - 1, z) in opened:
-            rv = m.NewBoolVar(f"r_{i}_{z}")
-            m.AddBoolAnd([var, opened[i - 1, z].Not()]).OnlyEnforceIf(rv)
-            m.AddBoolOr([var.Not(), opened[i - 1, z], rv])
-            root[i, z] = rv
-        else:
-            root[i, z] = var
-    used = [opened[n - 1, z] for z in range(K)]
-
-    # bounds: a used zone's counts lie within [min, max]; an unused zone is empty
-    add_bounds(m, counts, b, scale, x, holders_of(x), dict(enumerate(used)))
-
-    # zone count: arithmetic already bounds it from below
-    m.Add(sum(used) >= kmin)
-
-    # contiguity: flow from each zone's root reaches every unit of the zone
-    add_flow_contiguity(m, edges, cand, x, root)
-
-    status = verdict(solve_model(solver(time_limit, workers), m))
+    status = verdict(solve_model(solver(time_limit, workers), fz.model))
     seconds = time.perf_counter() - start
     figures = {"units": n, "max_zones": K, "min_zones": kmin, "time_limit": time_limit}
     zones = f"{kmin} zones" if kmin == K else f"{kmin} to {K} zones"
