@@ -89,3 +89,40 @@ def test_ny8_a_floor_too_high_in_one_county_names_its_tracts_and_the_highest_flo
     assert f"the highest floor of POP8 that could be met in fence 36023 is {total:,} POP8 (proven" in proof["text"]
     assert f"area {first}" in proof["text"] and "unit " not in proof["text"]
     assert "\n" not in proof["text"]
+
+
+def test_audit_repair_keeps_a_lock_and_uses_an_override_s_bounds(tmp_path):
+    # by construction: fence U holds U0..U3 (25 persons each), fence R holds R0..R2 (10 each);
+    # the tier's floor is 50, lowered to 20 in R by an override; the agreed zone AGREED-1 is
+    # U0 + U1 (50). The lookup breaks two floors: Z2 = U2 and Z3 = U3 hold 25 each, r2 = R2
+    # holds 10 (r1 = R0 + R1 holds 20, enough in R). The fewest moves: U2 and U3 in one zone
+    # (one move), R2 into r1 (one move, 30 >= 20); under the tier's own floor R could never
+    # be mended, and AGREED-1 neither gives nor takes an area
+    gdf = gpd.GeoDataFrame(
+        {"code": [f"U{k}" for k in range(4)] + [f"R{k}" for k in range(3)],
+         "persons": [25] * 4 + [10] * 3, "district": ["U"] * 4 + ["R"] * 3},
+        geometry=[shapely.box(x, 0, x + 1, 1) for x in range(7)], crs=UTM,
+    )
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pyogrio.write_dataframe(gdf, tmp_path / "areas.gpkg", driver="GPKG")
+    (tmp_path / "locked.csv").write_text("area,tier1\nU0,AGREED-1\nU1,AGREED-1\n")
+    rules = write_rules(
+        tmp_path / "rules.toml", 'id = "code"\ncounts = ["persons"]\nfence = "district"',
+        '[[tier]]\nname = "tier1"\nmin = { persons = 50 }\nmax = { persons = 100 }\n\n'
+        '[[tier.override]]\nfences = ["R"]\nmin = { persons = 20 }\n\n[lock]\nfile = "locked.csv"\n',
+    )
+    (tmp_path / "lookup.csv").write_text(
+        "area,tier1\nU0,AGREED-1\nU1,AGREED-1\nU2,Z2\nU3,Z3\nR0,r1\nR1,r1\nR2,r2\n")
+    out = tmp_path / "out"
+    code = main(["audit", str(tmp_path / "areas.gpkg"), "--rules", str(rules), "--lookup",
+                 str(tmp_path / "lookup.csv"), "--out", str(out), "--quiet", "--no-certificate", "--repair"])
+    assert code == 1  # README: the lookup as given breaks rules
+    summary = json.loads((out / "summary.json").read_text())
+    repair = summary["repair"]
+    assert repair["method"] == "cp-sat (fewest moves)" and repair["status"] == "optimal"
+    assert repair["moves"] == 2 and repair["repaired_lookup_passes"] is True
+    fixed = pd.read_csv(out / "repaired" / "lookup.csv", dtype=str).set_index("area")["tier1"]
+    assert sorted(fixed.index[fixed == "AGREED-1"]) == ["U0", "U1"]  # the lock survives
+    assert fixed["U2"] == fixed["U3"] != "AGREED-1"
+    assert fixed["R0"] == fixed["R1"] == fixed["R2"]  # 30 persons: the override's floor of 20 holds

@@ -105,8 +105,9 @@ def audit(
         stage("searching for the fewest area moves that mend every break")
         # the budget is solver work, not seconds, so the same lookup gets the same repair on
         # any machine and under any load; the wall-clock cap only ends a runaway model
+        # the model keeps locked zones as they are and holds each fence to its own bounds
         res = minimal_repair(prep.areas, prep.graph, labels, tiers, time_limit=AUDIT_REPAIR_CAP,
-                             deterministic_time=AUDIT_REPAIR_WORK)
+                             deterministic_time=AUDIT_REPAIR_WORK, locks=prep.locks.codes if prep.locks else None)
         moves = res.repair_frame()
         repaired = res.labels
         recheck = run_audit(prep.areas, prep.graph, repaired, tiers) if repaired is not None else None
@@ -114,7 +115,7 @@ def audit(
             from zonedesign.locks import lock_breaks
 
             if lock_breaks(prep.locks, repaired, prep.areas):
-                recheck = None  # the CP-SAT model knows no locks: a repair that moves a locked zone is none
+                recheck = None  # a repair that moves a locked zone is none (a safeguard)
         summary["repair"] = {
             "method": "cp-sat (fewest moves)",
             "status": res.status,

@@ -106,8 +106,11 @@ def add_bounds(
 
 def add_one_fence(
     m: cp_model.CpModel, fences: Sequence[set[str]], x: Assignment, holders: Mapping[int, list[int]], *, tag: str = ""
-) -> None:
-    """Fence: a zone holds units of one fence only (fences[u]: the fence codes unit u touches)."""
+) -> dict[int, dict[str, Lit]]:
+    """Fence: a zone holds units of one fence only (fences[u]: the fence codes unit u touches).
+
+    Returns, per zone that could lie in more than one fence, the literal "lies in fence f"."""
+    out: dict[int, dict[str, Lit]] = {}
     for z, us in holders.items():
         codes = sorted({f for u in us for f in fences[u]})
         if len(codes) < 2:
@@ -117,6 +120,8 @@ def add_one_fence(
             for f in fences[u]:
                 m.AddImplication(x[u, z], q[f])
         m.AddAtMostOne(list(q.values()))
+        out[z] = q
+    return out
 
 
 def add_one_parent(m: cp_model.CpModel, pairs: Mapping[tuple[int, int], Sequence[Sequence]], *, tag: str = "") -> None:

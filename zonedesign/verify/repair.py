@@ -13,7 +13,10 @@ would first move it at tier 1 and then move its new tier-1 zone again. Per tier 
   region N_t = B_t plus every zone touching a zone of B_t or an area without a zone;
 - areas of N_t zones (and areas without a zone) may change their tier-t label, to a zone
   of N_t or to a new zone; every other area keeps its tier-t zone;
-- constraints: one zone per area, bounds on every zone that can change, one fence per
+- locked zones (`locks`) are no part of any region: their areas keep their label, no
+  other area takes it, and a bound one breaks is reported as the lock's, never mended;
+- constraints: one zone per area, bounds on every zone that can change (those of the fence
+  it lies in: `[[tier.override]]`; each tier keeps to its own fence), one fence per
   zone, flow contiguity rooted at one unit per used zone (Shirabe 2005), and nesting:
   each tier-t zone's areas share one tier-(t+1) zone.
 
@@ -45,7 +48,7 @@ import pandas as pd
 
 from zonedesign.graph.components import components
 from zonedesign.records import Areas, Bounds, Graph, Problem
-from zonedesign.rules import TierRules
+from zonedesign.rules import TierRules, overridden_fences, tier_in_fence
 from zonedesign.verify.checks import audit, encode_labels, tier_bounds, zone_members
 from zonedesign.verify.cpsat import (
     integer_scale,
@@ -134,6 +137,7 @@ def minimal_repair(
     max_candidates: int = 12,
     max_units: int = 150,
     deterministic_time: float | None = None,
+    locks: Mapping[str, np.ndarray] | None = None,
 ) -> RepairResult:
     """Relabel the fewest areas so that every bound, contiguity, nesting and fence rule holds.
 
@@ -142,7 +146,9 @@ def minimal_repair(
     it; max_units: the most movable units per tier in one model (see the module notes);
     deterministic_time: when given, the budget is this much CP-SAT deterministic time (work
     counted by the solver, not the clock) and time_limit is only a safety cap, so the same
-    input gives the same repair on a busy machine as on an idle one.
+    input gives the same repair on a busy machine as on an idle one; locks: the locked zone
+    code per area for each locked tier ("" where free): those areas keep their zone, no
+    other area joins it, and a bound it breaks is left as the lock forces it.
 
     >>> result = minimal_repair(areas, graph, lookup, rules.tiers, time_limit=30)
     >>> result.status, result.repair_frame()
@@ -152,10 +158,12 @@ def minimal_repair(
     tiers = list(tiers)
     names = [t.name for t in tiers]
     report = audit(areas, graph, {t.name: labels[t.name] for t in tiers}, tiers)
-    ctx = _context(areas, graph, labels, tiers, report, workers, max_candidates)
+    ctx = _context(areas, graph, labels, tiers, report, workers, max_candidates, locks or {})
     copied = {t.name: np.asarray(labels[t.name], dtype=object).copy() for t in tiers}
     if not any(ctx.broken) and not any(n.any() for n in ctx.nulls):
-        return RepairResult([], copied, "optimal", "nothing to repair: every rule holds", [], time.perf_counter() - start)
+        why = "nothing to repair: every rule holds" + (
+            ", but for bounds the locked zones break (the lock forces them)" if not report.ok else "")
+        return RepairResult([], copied, "optimal", why, [], time.perf_counter() - start)
     _regions(ctx)
     roots, cluster_ids = _clusters(ctx)
 
@@ -191,6 +199,11 @@ def minimal_repair(
     # the checker checks its own repair: whatever still breaks a rule is reported
     after = audit(areas, graph, new_labels, tiers)
     remaining = [v for v in after.violations if v.kind in REPAIRED_KINDS or (v.kind == "coverage" and v.tier)]
+    forced = [v for v in remaining if v.kind == "bounds" and v.zone in ctx.locked_zones.get(v.tier, set())]
+    remaining = [v for v in remaining if v not in forced]
+    if forced:
+        reason += "; " + "; ".join(f"locked zone {v.zone} of tier {v.tier} keeps its break: the lock forces it"
+                                   for v in forced[:3])
     if remaining and status in ("optimal", "feasible"):
         status = "undecided"
         reason = f"{len(remaining)} rule breaks remain after the repair: " + "; ".join(
@@ -260,9 +273,11 @@ def repair_labelling(
 
 
 def _context(
-    areas: Areas, graph: Graph, labels: Mapping, tiers: list[TierRules], report, workers: int, max_candidates: int
+    areas: Areas, graph: Graph, labels: Mapping, tiers: list[TierRules], report, workers: int, max_candidates: int,
+    locks: Mapping[str, np.ndarray],
 ) -> RepairContext:
-    """What every cluster shares: codes, bounds, scaled counts, and the faults per tier."""
+    """What every cluster shares: codes, bounds per fence, scaled counts, locked areas and
+    the faults per tier."""
     names = [t.name for t in tiers]
     enc = [encode_labels(labels[t.name]) for t in tiers]
     ctx = RepairContext(
@@ -276,6 +291,15 @@ def _context(
         max_candidates=max_candidates,
     )
     ctx.counts = scaled_counts(areas.counts, ctx.scale)
+    ctx.tier_fence = [areas.in_tier(t.name).fence.astype(str) for t in tiers]
+    ctx.fence_bounds = [
+        {f: tier_bounds(tier_in_fence(t, f), areas.count_names) for f in overridden_fences(t)} for t in tiers
+    ]
+    ctx.locked = [np.asarray(locks.get(t.name, np.full(areas.n, "", dtype=object)), dtype=object) != ""
+                  for t in tiers]
+    ctx.locked_zones = {
+        t.name: {str(z) for z in np.asarray(labels[t.name], dtype=object)[ctx.locked[k]]} for k, t in enumerate(tiers)
+    }
     ctx.broken, ctx.hot = _faults(ctx, report, names)
     ctx.fence_broken = [set() for _ in tiers]
     ctx.nest_broken = [set() for _ in tiers]
@@ -300,8 +324,10 @@ def _regions(ctx: RepairContext) -> None:
             zone_set.update(np.unique(b[near_broken]).tolist())
             near_null = (a < 0) & (b >= 0)
             zone_set.update(np.unique(b[near_null]).tolist())
+        # a locked zone neither gives nor takes areas
+        zone_set -= set(np.unique(e.codes[ctx.locked[t] & (e.codes >= 0)]).tolist()) if ctx.locked else set()
         ctx.region.append(zone_set)
-        ctx.movable.append(np.isin(e.codes, list(zone_set)) | ctx.nulls[t])
+        ctx.movable.append((np.isin(e.codes, list(zone_set)) | ctx.nulls[t]) & ~ctx.locked[t])
 
 
 def _clusters(ctx: RepairContext) -> tuple[np.ndarray, np.ndarray]:
@@ -377,6 +403,8 @@ def _faults(ctx: RepairContext, report, names: list[str]) -> tuple[list[set[int]
     for v in report.violations:
         if v.kind not in REPAIRED_KINDS or v.tier not in names:
             continue
+        if v.kind == "bounds" and v.zone in ctx.locked_zones.get(v.tier, set()):
+            continue  # a locked zone keeps its areas and its code: its break is the lock's
         t = names.index(v.tier)
         z = lookup[t][v.zone]
         broken[t].add(z)
@@ -389,8 +417,9 @@ def _faults(ctx: RepairContext, report, names: list[str]) -> tuple[list[set[int]
             big = np.argmax(np.bincount(comp))
             hot[t][members[comp != big]] = True
         elif v.kind == "fence":
-            codes, cnt = np.unique(ctx.fence[members], return_counts=True)
-            hot[t][members[ctx.fence[members] != codes[np.argmax(cnt)]]] = True
+            fence = ctx.fence_of(t)
+            codes, cnt = np.unique(fence[members], return_counts=True)
+            hot[t][members[fence[members] != codes[np.argmax(cnt)]]] = True
         elif v.kind == "nesting":
             upper = ctx.enc[t + 1].codes[members]
             vals, cnt = np.unique(upper[upper >= 0], return_counts=True)
@@ -497,7 +526,8 @@ def _infeasible_reason(
     for f in sorted(set(fence[units])):
         idx = np.flatnonzero(fence == f)
         sub = graph.subgraph(idx)
-        for t, b in zip(tiers, bounds):
+        for t in tiers:
+            b = tier_bounds(tier_in_fence(t, f), areas.count_names)  # the fence's own bounds
             problem = Problem(
                 graph=sub, counts=areas.counts[idx], bounds=b, attrs=np.zeros((idx.size, 0)),
                 weight=areas.weight[idx], area=areas.area[idx], perimeter=areas.perimeter[idx],

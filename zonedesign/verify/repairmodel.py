@@ -24,6 +24,7 @@ from zonedesign.verify.cpsat import (
     add_one_fence,
     add_roots,
     add_used,
+    bound_limits,
     holders_of,
     verdict,
 )
@@ -101,6 +102,26 @@ class RepairContext:
     movable: list[np.ndarray] = field(default_factory=list)
     fence_broken: list[set[int]] = field(default_factory=list)
     nest_broken: list[set[int]] = field(default_factory=list)
+    # per tier: its own fence code per area, and the bounds of fences an override names
+    tier_fence: list[np.ndarray] = field(default_factory=list)
+    fence_bounds: list[dict[str, Bounds]] = field(default_factory=list)
+    locked: list[np.ndarray] = field(default_factory=list)  # per tier: the area is in a locked zone
+    locked_zones: dict[str, set[str]] = field(default_factory=dict)
+
+    def fence_of(self, t: int) -> np.ndarray:
+        return self.tier_fence[t] if self.tier_fence else self.fence
+
+    def loosest(self, t: int) -> Bounds:
+        """The lowest floor and highest ceiling of tier t over its fences (for counting spares)."""
+        if not (self.fence_bounds and self.fence_bounds[t]):
+            return self.bounds[t]
+        all_b = [self.bounds[t], *self.fence_bounds[t].values()]
+        return Bounds(self.bounds[t].count_names, np.min([b.lo for b in all_b], axis=0),
+                      np.max([b.hi for b in all_b], axis=0), self.bounds[t].target)
+
+    def bounds_in(self, t: int, fence: str) -> Bounds:
+        """Tier t's bounds in one fence ([[tier.override]]), its own elsewhere."""
+        return self.fence_bounds[t].get(fence, self.bounds[t]) if self.fence_bounds else self.bounds[t]
 
 
 class ClusterModel:
@@ -154,7 +175,7 @@ class ClusterModel:
         codes = ctx.enc[t].codes
         mov = self.units[ctx.movable[t][self.units]]
         zones = sorted(z for z in ctx.region[t] if in_cluster[codes == z].any())
-        spares = _spare_count(ctx.areas, ctx.counts, ctx.bounds[t], ctx.scale, mov, zones, ctx.broken[t],
+        spares = _spare_count(ctx.areas, ctx.counts, ctx.loosest(t), ctx.scale, mov, zones, ctx.broken[t],
                               codes, ctx.nulls[t], ctx.graph)
         spare_codes = list(range(ctx.enc[t].k, ctx.enc[t].k + spares))
         near = None
@@ -188,13 +209,16 @@ class ClusterModel:
             if s0 in used and s1 in used:
                 m.AddImplication(used[s1], used[s0])
 
-        # bounds: every zone that can change meets the tier's min and max when used
+        # fences: a zone holds units of one fence only
+        in_fence = add_one_fence(m, tu.fences, xt, holders, tag=str(t))
+
+        # bounds: every zone that can change meets the min and max of its fence when used
         unit_counts = np.stack([ctx.counts[ms].sum(axis=0) for ms in tu.members]) if tu.members else \
             np.zeros((0, ctx.counts.shape[1]), dtype=np.int64)
-        add_bounds(m, unit_counts, ctx.bounds[t], ctx.scale, xt, holders, used)
-
-        # fences: a zone holds units of one fence only
-        add_one_fence(m, tu.fences, xt, holders, tag=str(t))
+        if not (ctx.fence_bounds and ctx.fence_bounds[t]):
+            add_bounds(m, unit_counts, ctx.bounds[t], ctx.scale, xt, holders, used)
+        else:
+            _fence_bounds(m, ctx, t, unit_counts, tu.fences, xt, holders, used, in_fence)
 
         # contiguity: flow inside each zone from its root reaches every other member
         root = add_roots(m, xt, holders, used, tag=str(t))
@@ -413,11 +437,32 @@ def _tier_units(ctx: RepairContext, t: int, units: np.ndarray, reach: int | None
         members=members,
         free=is_free,
         old=[int(codes[ms[0]]) for ms in members],
-        fences=[set(ctx.fence[ms].tolist()) for ms in members],
+        fences=[set(ctx.fence_of(t)[ms].tolist()) for ms in members],
         area_unit=area_unit,
         edges=sorted(edges),
         all_movable=all_movable,
     )
+
+
+def _fence_bounds(
+    m: cp_model.CpModel, ctx: RepairContext, t: int, unit_counts: np.ndarray, fences: list[set[str]],
+    xt: dict, holders: dict[int, list[int]], used: dict, in_fence: dict[int, dict],
+) -> None:
+    """Bounds per fence: a zone in one fence meets that fence's bounds; a zone that could lie
+    in several meets the bounds of the one it ends in."""
+    for z, us in holders.items():
+        codes = sorted({f for u in us for f in fences[u]})
+        for f in codes:
+            b = ctx.bounds_in(t, f)
+            lit = in_fence.get(z, {}).get(f) if len(codes) > 1 else None
+            for c in range(len(b.count_names)):
+                lo, hi = bound_limits(b, c, ctx.scale)
+                total = sum(int(unit_counts[u, c]) * xt[u, z] for u in us)
+                for row in ([total >= lo * used[z]] if lo is not None else []) + \
+                        ([total <= hi * used[z]] if hi is not None else []):
+                    ct = m.Add(row)
+                    if lit is not None:
+                        ct.OnlyEnforceIf(lit)
 
 
 def _spare_count(
