@@ -586,6 +586,29 @@ def test_a_locked_zone_survives_a_redraw_after_a_count_shock_unchanged(tmp_path)
     assert summary["locks"]["kept"] is True
 
 
+def test_every_sweep_variant_keeps_a_locked_zone_and_a_ceiling_below_it_is_a_proven_locked_break(tmp_path):
+    import json
+
+    areas, rules = locked_inputs(tmp_path, "area,tier1\nU0,AGREED-1\nU1,AGREED-1\n")
+    out = tmp_path / "sweep"
+    # the agreed zone holds 50 persons: a ceiling of 40 breaks it, one of 100 does not
+    code = main(["sweep", str(areas), "--rules", str(rules), "--vary", "tier.1.max.persons,tier.1.target.persons=40/30,100/50",
+                 "--out", str(out), "--quiet", "--no-report"])
+    assert code == 1  # one variant holds a break, however forced
+    rows = {r["tier.1.max.persons"]: r for r in json.loads((out / "summary.json").read_text())["sweep"]["variants"]}
+    assert rows[100]["locks_kept"] is True and rows[100]["bound_breaks"] == 0
+    assert rows[40]["locks_kept"] is True and rows[40]["bound_breaks"] == 1
+    for folder in sorted((out / "variants").iterdir()):
+        lookup = pd.read_csv(folder / "lookup.csv", dtype=str).set_index("area")
+        assert sorted(lookup.index[lookup["tier1"] == "AGREED-1"]) == ["U0", "U1"], folder.name
+    tight = [f for f in (out / "variants").iterdir() if "40" in f.name]
+    summary = json.loads((tight[0] / "summary.json").read_text())
+    (brk,) = summary["bound_breaks"]
+    assert brk["zone"] == "AGREED-1" and brk["locked"] is True
+    (proof,) = summary["proofs"]
+    assert proof["kind"] == "lock" and "the lock forces the break" in proof["text"]
+
+
 def test_the_audit_reports_a_locked_zone_the_lookup_does_not_keep(tmp_path):
     import json
 

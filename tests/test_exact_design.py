@@ -219,6 +219,19 @@ def test_a_locked_zone_is_kept_when_its_fence_is_solved_exactly():
     assert any(r["proof"] == "optimal" for r in rows)
 
 
+def test_an_area_no_valid_zone_can_hold_is_named_by_its_id_in_the_fence_reason():
+    # an area alone above the tier's ceiling (households max 250) lies in no valid zone
+    gdf = grid_with_holes(8, 6, 0.0, 3, n_fences=2)
+    first = gdf.index[gdf["fence"] == sorted(set(gdf["fence"]))[0]][0]
+    gdf.loc[first, "households"] = 1000
+    areas, graph = areas_from_frame(gdf)
+    result = build_hierarchy(areas, graph, two_tier_rules(seed=3))
+    (row,) = [r for r in fence_figures(result) if r["tier"] == "block" and r["fence"] == gdf.loc[first, "fence"]]
+    assert row["proof"] == "none"
+    assert f"area {gdf.loc[first, 'id']} lies in no connected zone" in row["proof_reason"]
+    assert "unit " not in row["proof_reason"]
+
+
 # ---------------------------------------------------------------- rules
 
 

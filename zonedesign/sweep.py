@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from zonedesign.errors import InputError, RulesError
+from zonedesign.locks import Locks
 from zonedesign.plain import plain
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import Rules, apply_overrides, override_key, rules_to_toml
@@ -59,6 +60,7 @@ class VariantTask:
     graph: Graph
     previous: dict[str, np.ndarray] | None
     proof_seconds: float = PROOF_SECONDS
+    locks: Locks | None = None  # agreed zones every variant keeps as they are
 
 
 @dataclass
@@ -205,7 +207,7 @@ def run_variant(task: VariantTask) -> VariantResult:
     from zonedesign.tiers.executors import serial_executor
     from zonedesign.tiers.redraw import redraw_hierarchy
     from zonedesign.verify.checks import audit
-    from zonedesign.zonetables import all_tables, tier_figures
+    from zonedesign.zonetables import all_tables, table_breaks, tier_figures
 
     t0 = time.perf_counter()
     v = task.variant
@@ -217,18 +219,23 @@ def run_variant(task: VariantTask) -> VariantResult:
         return VariantResult(row=row)
     rules = v.rules
     if task.previous is None:
-        result = build_hierarchy(task.areas, task.graph, rules, executor=serial_executor)
+        result = build_hierarchy(task.areas, task.graph, rules, executor=serial_executor, locks=task.locks)
     else:
-        result = redraw_hierarchy(task.areas, task.graph, rules, task.previous, executor=serial_executor)
+        result = redraw_hierarchy(task.areas, task.graph, rules, task.previous, executor=serial_executor,
+                                  locks=task.locks)
     lookup = result.lookup()
     failures = [{"fence": f.fence, "tier": t.name, "error": f.error} for t in result.tiers for f in t.fences if f.error]
     tables = all_tables(task.areas, task.graph, lookup, rules.tiers)
     checked = audit(task.areas, task.graph, lookup, list(rules.tiers))
-    breaks = []
-    for tier in rules.tiers:
-        df = tables[tier.name]
-        for _, r in df[df["bound_break"]].iterrows():
-            breaks.append({"tier": tier.name, "zone": r["zone"], "fence": r["fence"], "breaks": r["breaks"]})
+    breaks = table_breaks(rules.tiers, tables)
+    lock_faults = []
+    if task.locks:
+        from zonedesign.locks import lock_breaks
+
+        # a locked zone that breaks a bound stays as agreed; its break and proof say so
+        for b in breaks:
+            b["locked"] = b["zone"] in task.locks.zones(b["tier"])
+        lock_faults = lock_breaks(task.locks, lookup, task.areas)
     proofs = _proofs(task, lookup, breaks)
     figures = {t.name: tier_figures(tables[t.name], t, task.areas.count_names) for t in rules.tiers}
     row["valid"] = True
@@ -244,11 +251,13 @@ def run_variant(task: VariantTask) -> VariantResult:
     row["bound_breaks"] = len(breaks)
     row["fences_infeasible"] = sum(1 for p in proofs if p.get("status") == "INFEASIBLE")
     row["fence_failures"] = len(failures)
-    row["audit_ok"] = bool(checked.ok)
+    if task.locks:
+        row["locks_kept"] = not lock_faults
+    row["audit_ok"] = bool(checked.ok) and not lock_faults
     row["seconds"] = round(time.perf_counter() - t0, 3)
-    violations = [plain(x) for x in getattr(checked, "violations", [])]
+    violations = [plain(x) for x in getattr(checked, "violations", [])] + lock_faults
     return VariantResult(
-        row=row, lookup=lookup, tables=tables, audit={"ok": bool(checked.ok), "violations": violations},
+        row=row, lookup=lookup, tables=tables, audit={"ok": row["audit_ok"], "violations": violations},
         tiers=figures, breaks=breaks, proofs=proofs, failures=failures,
     )
 
@@ -276,7 +285,7 @@ def _proofs(task: VariantTask, lookup, breaks: list[dict]) -> list[dict]:
     from zonedesign.breakproofs import explain_breaks
 
     found = explain_breaks(task.areas, task.graph, task.variant.rules.tiers, lookup, breaks,
-                           time_limit=task.proof_seconds)
+                           time_limit=task.proof_seconds, locks=task.locks or None)
     return [plain(p) for p in found]
 
 

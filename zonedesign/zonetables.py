@@ -158,3 +158,13 @@ def all_tables(
             units = per.reindex(here[first]).to_numpy()
         out[tier.name] = zone_table(areas, graph, lookup[tier.name], tier, parent=parent, units_per_zone=units)
     return out
+
+
+def table_breaks(tiers: Sequence[TierRules], tables: Mapping[str, pd.DataFrame]) -> list[dict]:
+    """One entry per zone that breaks a bound, from the zone tables."""
+    breaks = []
+    for t in tiers:
+        df = tables[t.name]
+        for _, row in df[df["bound_break"]].iterrows():
+            breaks.append({"tier": t.name, "zone": row["zone"], "fence": row["fence"], "breaks": row["breaks"]})
+    return breaks

@@ -31,10 +31,10 @@ from zonedesign.jobs.summary import (
     explain_breaks,
     mark_locked_breaks,
     run_certificate,
-    table_breaks,
 )
 from zonedesign.plain import plain
 from zonedesign.rules import Rules
+from zonedesign.zonetables import table_breaks
 
 AUDIT_REPAIR_WORK = 15.0  # CP-SAT deterministic time for audit --repair (about a minute on 2 cores)
 

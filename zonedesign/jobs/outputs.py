@@ -19,10 +19,10 @@ from zonedesign.jobs.summary import (
     explain_breaks,
     mark_locked_breaks,
     run_certificate,
-    table_breaks,
     violations_of,
 )
 from zonedesign.plain import plain
+from zonedesign.zonetables import table_breaks
 
 
 def finish(

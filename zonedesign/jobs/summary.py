@@ -150,15 +150,5 @@ def explain_breaks(prep: Prepared, lookup: Mapping[str, np.ndarray], breaks: lis
     return [plain(p) for p in found]
 
 
-def table_breaks(tiers: list, tables: Mapping[str, Any]) -> list[dict]:
-    """One entry per zone that breaks a bound, from the zone tables."""
-    breaks = []
-    for t in tiers:
-        df = tables[t.name]
-        for _, row in df[df["bound_break"]].iterrows():
-            breaks.append({"tier": t.name, "zone": row["zone"], "fence": row["fence"], "breaks": row["breaks"]})
-    return breaks
-
-
 def violations_of(checked: Any) -> list:
     return list(getattr(checked, "violations", []))

@@ -74,7 +74,7 @@ def sweep(
                                                    "edges": built.graph.n_edges, "links": built.links,
                                                    "islands": [plain(x) for x in built.islands]})
         graph = graphs[v.rules.graph][0] if v.rules is not None else prep.graph
-        tasks.append(VariantTask(variant=v, areas=prep.areas, graph=graph, previous=prev))
+        tasks.append(VariantTask(variant=v, areas=prep.areas, graph=graph, previous=prev, locks=prep.locks or None))
     say(progress, f"sweeping {len(vs)} variant(s)")
     with closing(run):
         results = run(tasks, run_variant)

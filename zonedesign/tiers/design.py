@@ -34,7 +34,7 @@ def design_fence(task: FenceTask) -> FenceResult:
     t0 = time.perf_counter()
     try:
         # exact where it is cheap: a proven optimum stands in for the search
-        proof = prove_fence(task.problem, task.search)
+        proof = prove_fence(task.problem, task.search, task.names)
         if proof.labels is not None:
             return scored_result(task, proof.labels, t0, proof.info())
         sol = solve(
@@ -81,6 +81,7 @@ class DesignStrategy(Strategy):
             problem=fence_problem(units, index, tier_in_fence(tier, fence), self.count_names),
             search=self.rules.search,
             seed=task_seed(self.rules.search.seed, fence, t),
+            names=None if units.names is None else units.names[index],
         )
 
     def name_zones(self, t: int, tier: TierRules, units: Units, zones: TierZones) -> tuple[np.ndarray, dict]:

@@ -132,7 +132,8 @@ def run_tiers(
         if on_tier is not None:
             on_tier(tier.name, t + 1, len(rules.tiers))
         if t + 1 < len(rules.tiers):
-            units = next_units(units, zones.zone_of_unit, zones.zone_fence)
+            named = np.array([f"{tier.name} zone {z}" for z in zone_ids], dtype=object)
+            units = next_units(units, zones.zone_of_unit, zones.zone_fence, named)
             units, full = refenced(units, full, zones.zone_of_unit, areas, rules.tiers[t + 1].name)
     return HierarchyResult(tiers=tiers, units=all_units, seconds=seconds)
 

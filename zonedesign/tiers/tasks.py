@@ -29,6 +29,7 @@ class FenceTask:
     seed: int
     start: np.ndarray | None = None
     anchors: np.ndarray | None = None
+    names: np.ndarray | None = None  # how messages name each unit ("area X", "tier1 zone Y")
 
 
 @dataclass

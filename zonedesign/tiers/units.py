@@ -32,6 +32,7 @@ class Units:
     perimeter: np.ndarray
     fence: np.ndarray  # fence code per unit
     of_area: np.ndarray  # unit index of every base area
+    names: np.ndarray | None = None  # how messages name each unit: "area X" or "<tier> zone Y"
 
 
 def base_units(areas: Areas, graph: Graph) -> Units:
@@ -48,11 +49,14 @@ def base_units(areas: Areas, graph: Graph) -> Units:
         perimeter=areas.perimeter.astype(np.float64),
         fence=areas.fence,
         of_area=np.arange(areas.n, dtype=np.int64),
+        names=np.array([f"area {x}" for x in areas.ids], dtype=object),
     )
 
 
-def next_units(units: Units, zone_of_unit: np.ndarray, zone_fence: np.ndarray) -> Units:
-    """Collapse one tier's zones into the units of the next tier."""
+def next_units(units: Units, zone_of_unit: np.ndarray, zone_fence: np.ndarray,
+               names: np.ndarray | None = None) -> Units:
+    """Collapse one tier's zones into the units of the next tier; `names` says how
+    messages name each zone ("tier1 zone D01-001")."""
     k = int(zone_fence.shape[0])
     w = zone_sums(zone_of_unit, k, units.weight)
     wx = zone_sums(zone_of_unit, k, units.weight[:, None] * units.attrs)
@@ -70,6 +74,7 @@ def next_units(units: Units, zone_of_unit: np.ndarray, zone_fence: np.ndarray) -
         perimeter=zone_perimeter(units.graph, zone_of_unit, k, units.perimeter),
         fence=zone_fence,
         of_area=zone_of_unit[units.of_area],
+        names=names,
     )
 
 

@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -80,11 +81,13 @@ def solve_exact(
     time_limit: float = 60.0,
     max_zones_enumerated: int = 2_000_000,
     solver: str = "highs",
+    unit_names: Sequence[str] | None = None,
 ) -> ExactResult:
     """The least-cost valid zoning of one fence, proven, or a stated reason why not.
 
     solver: "highs" (scipy.optimize.milp) or "cp-sat" (integer costs in millionths, so a
-    CP-SAT proof is exact for those rounded costs).
+    CP-SAT proof is exact for those rounded costs). unit_names: how a reason names each
+    unit ("area 36007014300"); "unit i" when None.
 
     >>> result = solve_exact(problem, time_limit=30)
     >>> result.status, result.labels
@@ -107,7 +110,8 @@ def solve_exact(
         i = int(np.flatnonzero(covered == 0)[0])
         return ExactResult(
             None, math.nan, True,
-            f"infeasible: unit {i} lies in no connected zone that meets the bounds",
+            f"infeasible: {unit_names[i] if unit_names is not None else f'unit {i}'} lies in no "
+            "connected zone that meets the bounds",
             zones.n, time.perf_counter() - start,
         )
     remaining = max(time_limit - (time.perf_counter() - start), 0.1)
