@@ -84,6 +84,29 @@ def test_zone_over_the_ceiling_is_split_into_a_new_zone():
     assert result.ok and audit(areas, graph, result.labels, TIERS).ok
 
 
+def test_two_apart_repairs_that_each_open_new_zones_never_share_one():
+    # fences W (cols 0-3), M (cols 4-6) and E (cols 7-10) of a 4 x 11 grid; tier 1 pairs rows.
+    # W and E each lumped into one zone of 160 persons (ceiling 40): each needs new zones, and
+    # M's middle column keeps the two repairs apart (two clusters, solved one after the other)
+    rows, cols = 4, 11
+    n = rows * cols
+    col, row = np.arange(n) % cols, np.arange(n) // cols
+    fence = np.where(col < 4, "W", np.where(col < 7, "M", "E"))
+    areas = make_areas(np.full(n, 10.0), fence=fence)
+    labels = {
+        "block": np.array([f"b{c}-{r // 2}" for r, c in zip(row, col)], dtype=object),
+        "ward": np.array([f"w{f}" for f in fence], dtype=object),
+    }
+    labels["block"][fence == "W"] = "lumpW"
+    labels["block"][fence == "E"] = "lumpE"
+    result = minimal_repair(areas, grid_graph(rows, cols), labels, TIERS, time_limit=60)
+    assert result.ok, result.reason
+    assert audit(areas, grid_graph(rows, cols), result.labels, TIERS).ok
+    opened = {m.new for m in result.moves if m.tier == "block"} - set(labels["block"])
+    fences_of = {z: {str(fence[a]) for a in np.flatnonzero(result.labels["block"] == z)} for z in opened}
+    assert len(opened) >= 6 and all(len(f) == 1 for f in fences_of.values()), fences_of
+
+
 def test_unrepairable_region_says_why():
     graph, areas, labels = healthy_grid(2, 4, np.full(8, 10.0))
     broken = {k: v.copy() for k, v in labels.items()}

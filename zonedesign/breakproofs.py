@@ -163,7 +163,7 @@ def explain_breaks(
         if all(str(x.get("zone")) in locked for x in here):
             continue  # every break here is a locked zone's
         # the free zones are designed around the locked ones: argue over the rest
-        lock_here = locks if locked or _upper_locks(locks, tiers, b["tier"]) else None
+        lock_here = locks if _locks_in_fence(locks, areas, tiers, b["tier"], b["fence"]) else None
         problem = units_problem(areas, graph, tiers, lookup, b["tier"], b["fence"], locks=lock_here)
         ids = unit_names(areas, tiers, lookup, b["tier"], b["fence"], locks=lock_here)
         where = f"fence {b['fence']} outside its locked zones" if lock_here else ""
@@ -176,9 +176,13 @@ def explain_breaks(
     return out
 
 
-def _upper_locks(locks: Locks | None, tiers: Sequence[TierRules], tier_name: str) -> bool:
-    """Some tier above `tier_name` has a locked zone (its rims cut the graph below)."""
+def _locks_in_fence(locks: Locks | None, areas: Areas, tiers: Sequence[TierRules], tier_name: str,
+                    fence: str) -> bool:
+    """Some locked zone of tier `tier_name` or above (whose rims cut the graph below) holds
+    an area of this fence of that tier: only then does the proof argue around locks."""
     if not locks:
         return False
+    inside = areas.in_tier(tier_name).fence == fence
     names = [t.name for t in tiers]
-    return any(bool(locks.zones(n)) for n in names[names.index(tier_name) + 1 :])
+    return any(bool(inside[members].any()) for n in names[names.index(tier_name):]
+               for members in locks.zones(n).values())

@@ -44,7 +44,12 @@ def show(folder: str | Path) -> str:
     lines = [f"{folder}  ({s.get('command', '?')}, zonedesign {s.get('zonedesign', '?')}{seed})"]
     areas = s.get("areas") or {}
     if areas:
-        lines.append(f"  areas: {areas.get('count')} in {areas.get('fences')} fence(s), CRS {areas.get('crs')}")
+        per_tier = areas.get("fences_per_tier") or {}
+        if len(set(per_tier.values())) > 1:  # tiers keep to fences of their own
+            fences = "fences per tier: " + ", ".join(f"{t} {k}" for t, k in per_tier.items())
+            lines.append(f"  areas: {areas.get('count')}, {fences}, CRS {areas.get('crs')}")
+        else:
+            lines.append(f"  areas: {areas.get('count')} in {areas.get('fences')} fence(s), CRS {areas.get('crs')}")
         repaired = areas.get("repaired_polygons") or []
         if repaired:
             lines.append(f"  repaired polygons: {len(repaired)} ({_first(repaired)})")

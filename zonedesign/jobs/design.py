@@ -39,7 +39,9 @@ def design(
     def on_tier(name: str, i: int, n: int) -> None:
         say(progress, f"tier {i}/{n} '{name}' designed")
 
-    say(progress, f"designing {len(prep.rules.tiers)} tiers over {len(set(prep.areas.fence))} fences")
+    per_tier = [len(set(prep.areas.in_tier(t.name).fence.tolist())) for t in prep.rules.tiers]
+    fences = f"{per_tier[0]} fences" if len(set(per_tier)) == 1 else "fences per tier " + ", ".join(map(str, per_tier))
+    say(progress, f"designing {len(prep.rules.tiers)} tiers over {fences}")
     with closing(run):
         result = build_hierarchy(prep.areas, prep.graph, prep.rules, executor=run, on_tier=on_tier, locks=prep.locks)
     lookup = result.lookup()

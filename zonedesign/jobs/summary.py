@@ -73,6 +73,7 @@ def base_summary(prep: Prepared, command: str) -> dict:
             "crs_choice": prep.crs_note,
             "fences": len(set(prep.areas.fence.tolist())),
             "fence_codes": sorted(set(prep.areas.fence.tolist())),
+            "fences_per_tier": {t.name: len(set(prep.areas.in_tier(t.name).fence.tolist())) for t in prep.rules.tiers},
             "repaired_polygons": list(prep.areas.repaired),
             "overlaps_cut": prep.overlaps_cut,
             "duplicates_merged": prep.duplicates_merged,

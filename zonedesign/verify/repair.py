@@ -353,11 +353,17 @@ def _apply(
     ctx: RepairContext, result: list[dict[int, int]], new_codes: list[np.ndarray], spare_names: list[list[str]],
     taken: list[set[str]], names: list[str],
 ) -> None:
-    """Write one cluster's assignment into new_codes, naming the new zones it opens."""
+    """Write one cluster's assignment into new_codes, naming the new zones it opens.
+
+    Every cluster's model numbers its new zones from k (the tier's zone count); clusters are
+    apart, so each cluster's new zones are numbered after those earlier clusters opened,
+    never shared with them."""
     for t, assign in enumerate(result):
         k = ctx.enc[t].k
+        offset = len(spare_names[t])
         for area, code in assign.items():
             if code >= k:
+                code += offset
                 while len(spare_names[t]) <= code - k:
                     spare_names[t].append(_fresh_name(names[t], taken[t]))
             new_codes[t][area] = code
