@@ -625,6 +625,31 @@ def test_the_audit_reports_a_locked_zone_the_lookup_does_not_keep(tmp_path):
     assert lock["zone"] == "AGREED-1" and "1 of its areas elsewhere ('U1')" in lock["message"]
 
 
+def test_audit_repair_mends_what_it_can_and_says_the_locked_break_left_is_forced(tmp_path):
+    import json
+
+    areas = two_fences(tmp_path)
+    (tmp_path / "locked.csv").write_text("area,tier1\nU0,AGREED-1\nU1,AGREED-1\n")
+    tiers = ('[[tier]]\nname = "tier1"\nmin = { persons = 20 }\nmax = { persons = 45 }\n\n'
+             '[[tier]]\nname = "tier2"\nmin = { persons = 20 }\nmax = { persons = 1000 }\n')
+    rules = rules_file(tmp_path, AREAS, tiers + '\n[lock]\nfile = "locked.csv"\n')
+    # AGREED-1 holds 50 persons (ceiling 45): the lock forces that break; Z2 (50) can be split
+    (tmp_path / "lookup.csv").write_text(
+        "area,tier1,tier2\nU0,AGREED-1,T1\nU1,AGREED-1,T1\nU2,Z2,T1\nU3,Z2,T1\nR0,Z3,T2\nR1,Z3,T2\nR2,Z3,T2\n"
+    )
+    out = tmp_path / "out"
+    code = main(["audit", str(areas), "--rules", str(rules), "--lookup", str(tmp_path / "lookup.csv"),
+                 "--out", str(out), "--quiet", "--no-report", "--no-certificate", "--repair"])
+    assert code == 1
+    summary = json.loads((out / "summary.json").read_text())
+    rep = summary["repair"]
+    assert rep["method"].startswith("cp-sat") and rep["moves"] == 1  # U2 or U3 leaves Z2
+    assert rep["breaks_left"] == rep["breaks_left_forced"] == 1
+    fixed = pd.read_csv(out / "repaired" / "lookup.csv", dtype=str).set_index("area")
+    assert sorted(fixed.index[fixed["tier1"] == "AGREED-1"]) == ["U0", "U1"]
+    assert fixed.loc["U2", "tier1"] != fixed.loc["U3", "tier1"]
+
+
 @pytest.mark.parametrize(
     "lock_csv, message",
     [

@@ -169,6 +169,11 @@ def _repair_line(s: dict) -> list[str]:
         return []
     proven = "proven fewest" if rep.get("proven_fewest") else "not proven fewest"
     passes = "passes" if rep.get("repaired_lookup_passes") else "does not pass"
+    left, forced = rep.get("breaks_left"), rep.get("breaks_left_forced")
+    if left and forced == left:
+        passes = f"keeps only the {left} break(s) proven forced (see the proofs); it does not pass"
+    elif left and forced:
+        passes = f"keeps {left} break(s), {forced} of them proven forced; it does not pass"
     where = f", in {rep['folder']}/" if rep.get("folder") else ""
     word = solve_word(rep.get("status", ""))
     return [f"  repair: {word}, {rep.get('method', '?')}, {rep.get('moves', '?')} area move(s) ({proven}); "

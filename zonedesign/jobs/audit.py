@@ -169,6 +169,8 @@ def audit(
         if breaks:
             say(progress, f"seeking proofs for {len({(b['tier'], b['fence']) for b in breaks})} fence(s) with bound breaks")
             summary["proofs"] = explain_breaks(prep, labels, breaks)
+    if repaired is not None:
+        summary["repair"].update(breaks_left(prep, repaired, tiers, summary.get("proofs") or []))
     rc = 0 if summary["audit"]["ok"] and not overlay_flags and all(c.ok for c in certs) else 1
     summary["exit_code"] = rc
     if out is not None:
@@ -200,6 +202,21 @@ def audit(
                 write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers)
             write_json(tmp / "summary.json", summary)
     return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=rc, lookup=labels)
+
+
+def breaks_left(prep: Prepared, repaired: Mapping[str, np.ndarray], tiers: list, proofs: list[dict]) -> dict:
+    """What the repaired hierarchy still breaks, and how much of it is proven forced: a
+    bound break in a fence-tier the proofs show no zoning can mend, or a locked zone's."""
+    from zonedesign.verify.checks import audit as run_audit
+
+    after = run_audit(prep.areas, prep.graph, repaired, tiers)
+    locked = {name: set(prep.locks.zones(name)) for name in prep.locks.codes} if prep.locks else {}
+    proven = {(p.get("tier"), p.get("fence")) for p in proofs if p.get("status") == "INFEASIBLE"}
+    forced = [
+        v for v in after.violations
+        if v.kind == "bounds" and (v.zone in locked.get(v.tier, set()) or any((v.tier, f) in proven for f in v.fences))
+    ]
+    return {"breaks_left": len(after.violations), "breaks_left_forced": len(forced)}
 
 
 def search_repair(prep: Prepared, labels: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:

@@ -123,7 +123,9 @@ def repair_section(run: Any) -> str:
            if proven else "The number of moves is <strong>not</strong> proven the fewest.")
         + f" {esc(num(rep.get('moves', 0)))} area move(s) in all; the repaired hierarchy "
         + ("passes" if rep.get("repaired_lookup_passes") else "does <strong>not</strong> pass")
-        + " the independent audit.</p>"
+        + " the independent audit"
+        + _left_words(rep)
+        + ".</p>"
     ]
     moved = rep.get("moved_per_tier") if isinstance(rep.get("moved_per_tier"), dict) else {}
     if moved:
@@ -139,3 +141,13 @@ def repair_section(run: Any) -> str:
             "report draws the moves on a map, zone by zone, by kind of change.</p>"
         )
     return "".join(out)
+
+
+def _left_words(rep: dict) -> str:
+    """What the repaired hierarchy still breaks, and how much of it the proofs show forced."""
+    left, forced = rep.get("breaks_left"), rep.get("breaks_left_forced") or 0
+    if not left:
+        return ""
+    if forced == left:
+        return f": it keeps only the {esc(num(left))} break(s) the proofs show no zoning can mend"
+    return f": it keeps {esc(num(left))} break(s), {esc(num(forced))} of them shown forced by the proofs"
