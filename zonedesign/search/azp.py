@@ -15,6 +15,7 @@ from zonedesign.search.kernels import (
     IV_NB,
     IV_STAMP,
     better,
+    inner,
     key_less,
 )
 from zonedesign.search.moves import (
@@ -94,17 +95,23 @@ def local_descent(st, seed, zones, stats):
     Used to repair the labelling around a forced merge or split. stats as descent_sweep.
     """
     np.random.seed(seed)
+    units = np.empty(st.labels.shape[0], dtype=np.int64)
+    nu = descent_units(st, zones, zones.shape[0], units)
+    descend_units(st, units, nu, stats)
+
+
+@inner
+def descent_units(st, zones, nz, units):
+    """The members of zones[:nz] (entries < 0 skipped) and their neighbours, into units;
+    returns how many. Only these units can move in `descend_units`."""
     indptr = st.indptr
     indices = st.indices
-    labels = st.labels
     nxt = st.nxt
     mark = st.mark
-    n = labels.shape[0]
-    units = np.empty(n, dtype=np.int64)
     st.iv[IV_STAMP] += 2
     stamp = st.iv[IV_STAMP]
     nu = 0
-    for k in range(zones.shape[0]):
+    for k in range(nz):
         z = zones[k]
         if z < 0:
             continue
@@ -121,6 +128,14 @@ def local_descent(st, seed, zones, stats):
                     units[nu] = v
                     nu += 1
             u = nxt[u]
+    return nu
+
+
+@inner
+def descend_units(st, units, nu, stats):
+    """Sweeps over units[:nu] in random order (the kernels' generator) until one moves
+    nothing: each boundary unit goes to the neighbouring zone that improves most."""
+    labels = st.labels
     pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
     brk = st.brk
     cost = st.cost

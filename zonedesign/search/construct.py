@@ -18,6 +18,7 @@ from numba import njit
 
 from zonedesign.search.kernels import (
     IV_ZSTAMP,
+    inner,
     key_less,
     pop_free,
 )
@@ -41,6 +42,30 @@ def grow_zones(st, seed, alpha, beta, labels, units, k0, aim_lo, aim_hi):
     grows towards an aim drawn between aim_lo and aim_hi times the target (1, 1 for the
     target itself).
     """
+    np.random.seed(seed)
+    n = labels.shape[0]
+    fr = np.empty(n, dtype=np.int64)
+    flen = np.zeros(n)
+    fmark = np.full(n, -1, dtype=np.int64)
+    mem = np.empty(n, dtype=np.int64)
+    perm = units.copy()
+    made, _ = grow_region(st, alpha, beta, labels, perm, perm.shape[0], k0, aim_lo, aim_hi, fr, flen, fmark, mem, 0)
+    # a zone may have grown into units labelled -1 outside `units`
+    for i in range(n):
+        if labels[i] == -2:
+            labels[i] = -1
+    return made
+
+
+@inner
+def grow_region(st, alpha, beta, labels, perm, m_units, k0, aim_lo, aim_hi, fr, flen, fmark, mem, stamp):
+    """grow_zones over perm[:m_units] (shuffled in place) with the kernels' generator as
+    it stands and caller-owned scratch: fr, flen, fmark, mem (n,) each, fmark holding
+    values below `stamp` only. Returns (zones made, the last stamp used), so a caller
+    can grow again and again over the same scratch at a cost proportional to the region.
+    Units of zones that missed a floor are set back to -1 when they are in perm[:m_units]
+    (left at -2 otherwise), so every unit labelled -1 should be there.
+    """
     indptr = st.indptr
     indices = st.indices
     length = st.length
@@ -51,8 +76,6 @@ def grow_zones(st, seed, alpha, beta, labels, units, k0, aim_lo, aim_hi):
     target = st.target
     perim = st.perim
     tmask = st.tmask
-    np.random.seed(seed)
-    n = labels.shape[0]
     nc = counts.shape[1]
     na = x.shape[1]
     enclave = -2
@@ -63,20 +86,15 @@ def grow_zones(st, seed, alpha, beta, labels, units, k0, aim_lo, aim_hi):
             break
     tc = np.zeros(nc)
     xs = np.zeros(na)
-    fr = np.empty(n, dtype=np.int64)
-    flen = np.zeros(n)
-    fmark = np.full(n, -1, dtype=np.int64)
-    mem = np.empty(n, dtype=np.int64)
-    perm = units.copy()
-    for t in range(perm.shape[0] - 1, 0, -1):
+    for t in range(m_units - 1, 0, -1):
         r = np.random.randint(t + 1)
         tmp = perm[t]
         perm[t] = perm[r]
         perm[r] = tmp
     k = k0
-    stamp = 0
     aim = 0.0
-    for s in perm:
+    for ps in range(m_units):
+        s = perm[ps]
         if labels[s] != -1:
             continue
         stamp += 1
@@ -158,10 +176,10 @@ def grow_zones(st, seed, alpha, beta, labels, units, k0, aim_lo, aim_hi):
         else:
             for q in range(m):
                 labels[mem[q]] = enclave
-    for i in range(n):
-        if labels[i] == enclave:
-            labels[i] = -1
-    return k - k0
+    for ps in range(m_units):
+        if labels[perm[ps]] == enclave:
+            labels[perm[ps]] = -1
+    return k - k0, stamp
 
 
 @njit(cache=True)

@@ -77,6 +77,7 @@ from zonedesign.search.mergesplit import (
 from zonedesign.search.multilevel import coarsen, uses_multilevel
 from zonedesign.search.pairs import pair_pass
 from zonedesign.search.reshape import MOVES, growth_weights, reshape
+from zonedesign.search.reshape import warm as warm_move
 from zonedesign.search.schedule import fence_schedule
 from zonedesign.search.state import ZoneState, check_problem, full_score, search_normalisers
 from zonedesign.search.tabu import tabu_block
@@ -378,9 +379,9 @@ def warm_up() -> float:
     sample_uphill(st, 1, 1)
     anneal_block(st, 1, 1.0, 1, best, log, ctl, cti)
     tabu_block(st, 1, 0, 1, 4, 1, 1, np.full(4, -1, dtype=np.int64), np.zeros(4, dtype=np.int64), best, log, ctl, cti)
-    for move in MOVES:
+    for kind in range(len(MOVES)):
         state.load(np.array([0, 0, 1, 1]))
-        move.warm(state)
+        warm_move(state, kind)
     K.exact_totals(st)
     state.load(np.array([0, 0, 1, 1]))
     pair_pass(st, 1, 4, np.ones(4, dtype=np.int64), stats)
