@@ -357,7 +357,7 @@ def refresh_readme(folder: Path | None = None, readme: Path = README) -> None:
     if LATEST_MARK not in text:
         return
     parts = [text.split(LATEST_MARK, 1)[0].rstrip() + "\n\n" + LATEST_MARK + "\n"]
-    for name in ("quality", "quality-scale", "speed", "scale", "baseline", "redraw"):
+    for name in ("quality", "quality-scale", "speed", "scale", "baseline", "redraw", "reshape"):
         md = folder / f"{name}.md"
         if not md.is_file():
             continue

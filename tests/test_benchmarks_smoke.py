@@ -25,6 +25,7 @@ quality = importlib.import_module("benchmarks.quality")
 scale = importlib.import_module("benchmarks.scale")
 speed = importlib.import_module("benchmarks.speed")
 redraw_bench = importlib.import_module("benchmarks.redraw")
+reshape_bench = importlib.import_module("benchmarks.reshape")
 common = importlib.import_module("benchmarks.common")
 grown_subset, largest_component = common.grown_subset, common.largest_component
 md_table, write_results = common.md_table, common.write_results
@@ -109,6 +110,24 @@ def test_speed_three_implementations_make_the_same_decisions(toy_moves):
     assert after.key() < before.key()
     assert _zones_connected(p.graph, lab_n)
     assert np.unique(lab_n).shape[0] == np.unique(labels).shape[0]
+
+
+# ---------------------------------------------------------------- reshape
+
+
+def test_reshape_both_implementations_keep_zones_connected_and_never_worsen():
+    inst = quality.grid_instance(9, 9, 0.05, 3)
+    p = inst.problem
+    start = reshape_bench.start_labelling(p, seed=1)
+    before = measures.score(p, measures.compact_labels(start[0])[0])
+    for previous in (True, False):
+        row, labels = reshape_bench.time_reshape(p, start, 2, previous)
+        assert row["tries"] > 0 and row["per_try_s"] > 0
+        assert _zones_connected(p.graph, labels)  # networkx as the reference for connectivity
+        after = measures.score(p, labels)
+        assert abs(after.total - row["objective"]) <= 1e-9 and after.breaks == pytest.approx(row["breaks"])
+        # (breaks, objective) of the phase's end is never behind its start
+        assert (row["breaks"], row["objective"]) <= (before.breaks + 1e-9, before.total + 1e-9)
 
 
 # ---------------------------------------------------------------- scale
