@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import pandas as pd
 import pyogrio
+import pytest
 from cli_support import write_inputs
 
 from zonedesign import api
@@ -31,6 +32,7 @@ def _broken_lookup(tmp_path):
     return areas, rules, path
 
 
+@pytest.mark.slow
 def test_repair_gives_a_lookup_that_passes(tmp_path):
     areas, rules, broken = _broken_lookup(tmp_path)
     res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, report=False)
@@ -84,6 +86,7 @@ def test_an_unproven_cp_sat_repair_gives_way_to_a_search_repair_with_fewer_moves
     assert len(moves) == repair["moves"] < wasted
 
 
+@pytest.mark.slow
 def test_the_repaired_hierarchy_is_a_full_output_that_the_report_and_show_describe(tmp_path):
     from zonedesign.cli.show import show
 

@@ -51,6 +51,7 @@ def kill_at(proc: subprocess.Popen, seconds: float, sig: int) -> bool:
         return True
 
 
+@pytest.mark.slow
 def test_a_killed_run_leaves_the_previous_output_or_none(tmp_path: Path) -> None:
     areas, rules = write_inputs(tmp_path / "in")
     target = tmp_path / "out"
@@ -280,6 +281,7 @@ PHASES = [
 ]
 
 
+@pytest.mark.slow
 def test_an_interrupt_in_any_phase_exits_130_or_143_and_keeps_the_previous_output(tmp_path: Path) -> None:
     """The README's promise (exit codes): 130 for SIGINT, 143 for SIGTERM (128 + the signal,
     common practice of shells), no temporary folder left, the previous output byte for byte."""

@@ -14,6 +14,7 @@ from pathlib import Path
 import geopandas as gpd
 import numpy as np
 import pyogrio
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -100,6 +101,7 @@ def regions(draw) -> tuple[gpd.GeoDataFrame, str]:
 
 @settings(max_examples=6, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
 @given(regions())
+@pytest.mark.slow
 def test_random_designs_pass_the_audit_and_explain_every_break(region: tuple[gpd.GeoDataFrame, str]) -> None:
     check_design(*region)
 

@@ -25,6 +25,7 @@ from zonedesign.tiers.naming import moved_areas
 from zonedesign.tiers.redraw import redraw_hierarchy
 
 
+@pytest.mark.slow
 def test_moved_areas_agree_across_summary_changes_area_changes_and_the_benchmark(tmp_path):
     from benchmarks.redraw import moved_three_ways
     from zonedesign.demo.scenarios import write_demo_input
@@ -138,6 +139,7 @@ def ny8(spdata_dir, tmp_path_factory):
 
 
 @pytest.mark.opendata
+@pytest.mark.slow
 def test_ny8_shock_keeps_untouched_counties_and_gives_every_change_a_reason(ny8):
     prep, rules, first, shocked, (up, down) = ny8
     result = redraw_hierarchy(shocked, prep.graph, rules, first)

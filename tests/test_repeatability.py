@@ -46,6 +46,7 @@ def test_two_local_workers_give_what_one_gives(capsys, inputs, baseline, tmp_pat
     assert comparable(summary) == comparable(baseline[1])
 
 
+@pytest.mark.slow
 def test_a_dask_cluster_gives_what_one_local_worker_gives(capsys, tmp_path: Path) -> None:
     pytest.importorskip("dask.distributed", reason="dask[distributed] is a test dependency")
     # one tier keeps it small: the dask executor starts a local cluster for every tier

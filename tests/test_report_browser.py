@@ -468,6 +468,7 @@ def test_the_sweep_maps_share_one_scale_zoom_together_and_name_a_zone_on_hover(b
     assert f"zone {zone}" in browser.eval(sid, "document.getElementById('tip').textContent")
 
 
+@pytest.mark.slow
 def test_the_report_of_a_200k_area_run_loads_within_its_budget_and_its_maps_zoom(browser, tmp_path):
     from zonedesign.report.html import REPORT_BYTES
 

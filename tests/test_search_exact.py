@@ -13,6 +13,7 @@ from dataclasses import replace
 
 import networkx as nx
 import numpy as np
+import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from search_support import grid_graph, make_problem, nx_graph, voronoi_problem
@@ -85,6 +86,7 @@ def tiny_problem(shape: str, seed: int, lo_share: float, hi_share: float):
     lo_share=st.floats(0.08, 0.3),
     hi_share=st.floats(0.35, 0.7),
 )
+@pytest.mark.slow
 def test_engine_reaches_the_brute_force_optimum(shape, seed, lo_share, hi_share):
     base, rng = tiny_problem(shape, seed, lo_share, hi_share)
     total = float(base.counts.sum())

@@ -81,6 +81,7 @@ def test_the_flat_path_is_kept_when_asked_and_for_small_fences(problem) -> None:
     assert solve(problem, seed=5).info["path"] == ("multilevel" if N >= multilevel.MULTILEVEL_UNITS else "flat")
 
 
+@pytest.mark.slow
 def test_a_hierarchy_on_the_multilevel_path_is_nested_and_passes_the_audit(monkeypatch) -> None:
     monkeypatch.setattr(multilevel, "MULTILEVEL_UNITS", 100)
     monkeypatch.setattr(multilevel, "MIN_COARSE", 30)

@@ -23,6 +23,7 @@ count nothing may join it).
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from search_support import (
@@ -90,6 +91,7 @@ def check_result(problem, labels: np.ndarray, lo: float, hi: float) -> None:
     hi=st.integers(10, 80),
     with_target=st.booleans(),
 )
+@pytest.mark.slow
 def test_grids_with_holes(rows, cols, holes, kind, method, seed, lo, hi, with_target):
     rng = np.random.default_rng(seed)
     keep = rng.random((rows, cols)) >= holes

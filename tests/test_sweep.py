@@ -264,6 +264,7 @@ def test_ny8_show_lists_each_variant_with_its_folder(tied_sweep, capsys):
 
 
 @pytest.mark.opendata
+@pytest.mark.slow
 def test_ny8_a_redraw_sweep_keeps_every_zone_under_the_rules_it_was_drawn_by(ny8, tied_sweep):
     out, _ = tied_sweep
     first = out / "variants" / "tier2-min-POP8-20000_tier2-target-POP8-30000"
