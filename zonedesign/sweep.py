@@ -16,6 +16,7 @@ so they run through the same executors as fences.
 
 from __future__ import annotations
 
+import dataclasses
 import re
 import time
 from collections.abc import Sequence
@@ -31,6 +32,15 @@ from zonedesign.locks import Locks
 from zonedesign.plain import plain
 from zonedesign.records import Areas, Graph
 from zonedesign.rules import Rules, apply_overrides, override_key, rules_to_toml
+from zonedesign.summaryparts import (
+    AuditPart,
+    BoundBreak,
+    FenceFailure,
+    GraphPart,
+    ProofEntry,
+    TierFigures,
+)
+from zonedesign.summaryrecord import RunSummary
 
 MAX_VARIANTS = 1000  # a sweep beyond this is a typo (a range step too small), not a plan
 PROOF_SECONDS = 5.0  # CP-SAT time per failing fence when seeking its proof
@@ -330,34 +340,35 @@ def sweep_table(results: Sequence[VariantResult], tiers: Sequence[str]) -> pd.Da
     return table
 
 
-def variant_summary(head: dict, variant: Variant, result: VariantResult, graph_head: dict | None = None) -> dict:
+def variant_summary(head: RunSummary, variant: Variant, result: VariantResult,
+                    graph_head: dict | None = None) -> RunSummary:
     """The summary.json of one variant's folder: the run's head with the variant's own rules."""
+    from zonedesign.jobs.summary import tier_objectives
+
     rules = variant.rules
-    out = dict(head)
-    out["command"] = "sweep variant"
-    out["variant"] = {"number": variant.number, "name": variant.name,
-                      "values": {k: v for k, v in variant.values}}
-    if graph_head is not None:
-        out["graph"] = graph_head
-    out["rules"] = rules.text
-    out["tier_order"] = [t.name for t in rules.tiers]
-    out["objective"] = {
-        t.name: {"homogeneity": t.homogeneity, "compactness": t.compactness, "weights": dict(t.weights)}
-        for t in rules.tiers
-    }
-    out["audit"] = result.audit
-    out["certificate"] = []  # variants are audited; run `design` on the chosen rules to certify
-    out["tiers"] = result.tiers
-    out["bound_breaks"] = result.breaks
-    out["proofs"] = result.proofs
-    out["fence_failures"] = result.failures
-    out["sweep_row"] = {k: v for k, v in result.row.items()}
     failed = bool(result.breaks) or not result.audit.get("ok", False) or bool(result.failures)
-    out["exit_code"] = 1 if failed else 0
-    return out
+    out = dataclasses.replace(
+        head,
+        command="sweep variant",
+        variant={"number": variant.number, "name": variant.name, "values": {k: v for k, v in variant.values}},
+        rules=rules.text,
+        tier_order=[t.name for t in rules.tiers],
+        objective=tier_objectives(rules.tiers),
+        audit=AuditPart.of(result.audit),
+        certificate=[],  # variants are audited; run `design` on the chosen rules to certify
+        tiers={name: TierFigures.of(f) for name, f in result.tiers.items()},
+        bound_breaks=[BoundBreak.of(b) for b in result.breaks],
+        proofs=[ProofEntry.of(p) for p in result.proofs],
+        fence_failures=[FenceFailure.of(f) for f in result.failures],
+        sweep_row=dict(result.row),
+        exit_code=1 if failed else 0,
+    )
+    if graph_head is not None:
+        out.graph = GraphPart.of(graph_head)
+    return out.settle()
 
 
-def write_variant(folder: Path, geometry, ids: np.ndarray, result: VariantResult, summary: dict) -> dict:
+def write_variant(folder: Path, geometry, ids: np.ndarray, result: VariantResult, summary: RunSummary) -> dict:
     """lookup.csv, zones.gpkg, rules.toml and summary.json of one variant; returns its layers."""
     from zonedesign.dissolve import zone_layers
     from zonedesign.io.lookup import write_lookup
@@ -367,6 +378,6 @@ def write_variant(folder: Path, geometry, ids: np.ndarray, result: VariantResult
     write_lookup(folder / "lookup.csv", ids, result.lookup)
     layers = zone_layers(geometry, result.lookup, result.tables)
     write_layers_gpkg(folder / "zones.gpkg", layers)
-    (folder / "rules.toml").write_text(summary["rules"], encoding="utf-8")
+    (folder / "rules.toml").write_text(summary.rules or "", encoding="utf-8")
     write_json(folder / "summary.json", summary)
     return layers

@@ -457,46 +457,32 @@ def _rules(args: argparse.Namespace) -> int:
 
 
 def _done(res, say) -> int:
-    """Log how the run ended; the exit code is the api's (0 ok, 1 a rule is broken)."""
-    s = res.summary
+    """Log how the run ended; the exit code is the api's (0 ok, 1 a rule is broken), and the
+    break counts are the summary's own, counted once when it was built."""
+    s = res.record
     if res.out is not None:
         say(f"wrote {res.out}")
-    failed = s.get("fence_failures", [])
+    failed = s.fence_failures or []
     if failed:
         # shown even with --quiet, on one line: the run is incomplete there
         f = failed[0]
         more = f"; and {len(failed) - 1} more (see summary.json)" if len(failed) > 1 else ""
         print(
-            f"zonedesign: fence {f['fence']} of tier {f['tier']} failed: {_one_line(str(f['error']))} (its units "
+            f"zonedesign: fence {f.fence} of tier {f.tier} failed: {_one_line(str(f.error))} (its units "
             f"form one zone per connected piece; every other fence is written){more}",
             file=sys.stderr,
         )
-    violations = [v for v in s.get("audit", {}).get("violations", []) if isinstance(v, dict)]
-    if "bound_breaks" in s:
-        brk = len(s["bound_breaks"])
-    else:  # an audit: a zone that breaks bounds of two counts is one break
-        brk = len({(v.get("tier"), v.get("zone")) for v in violations if v.get("kind") == "bounds"})
-    # bound breaks are counted once, above; the audit adds what else it found
-    viol = sum(1 for v in violations if v.get("kind") != "bounds")
-    viol += len((s.get("audit", {}).get("overlay") or {}).get("flags") or [])  # areas split between zones
-    fails = len(s.get("fence_failures", []))
-    if s.get("command") == "sweep":
-        rows = [r for r in s.get("sweep", {}).get("variants", []) if r.get("valid")]
-        brk = sum(int(r.get("bound_breaks") or 0) for r in rows)
-        viol = sum(1 for r in rows if not r.get("audit_ok", True))
-        for bad in s.get("sweep", {}).get("invalid", []):
-            say(f"variant {bad['name']} not run: {bad['problem']}")
+    for bad in s.sweep.invalid if s.sweep is not None else []:
+        say(f"variant {bad.name} not run: {bad.problem}")
     code = int(res.exit_code)
-    from zonedesign.status import certificate_verdict
-
-    cert = [c for c in s.get("certificate") or [] if isinstance(c, dict)]
-    verdict = certificate_verdict(cert)[0] if cert else None
+    done = s.outcome or s.settle().outcome
     # an undecided (or refuted) certificate is never reported as a pass
-    if code == 0 and verdict in (None, "confirmed"):
-        say("finished: every rule holds" + (", certificate confirmed" if verdict else ""))
+    if code == 0 and done.certificate in (None, "confirmed"):
+        say("finished: every rule holds" + (", certificate confirmed" if done.certificate else ""))
     else:
-        said = f"finished with {brk} bound break(s), {viol} audit violation(s), {fails} failed fence(s)"
-        say(said + (f", certificate {verdict}" if verdict else "") + f": exit {code}")
+        said = (f"finished with {done.bound_breaks} bound break(s), {done.violations} audit violation(s), "
+                f"{done.failed_fences} failed fence(s)")
+        say(said + (f", certificate {done.certificate}" if done.certificate else "") + f": exit {code}")
     return code
 
 

@@ -10,6 +10,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from zonedesign.errors import InputError
+from zonedesign.summaryrecord import RunSummary
 
 if TYPE_CHECKING:
     from zonedesign import api
@@ -67,8 +68,10 @@ def run_demo(
         else:
             res = api.later_scenario(staging / "input", out, written=written, **common)
         demo = {"region_seed": seed, "areas_asked": n, "areas": made, "scenario": scenario}
-        res.summary.update(_replaced(res.summary, str(staging / "input"), shown))
-        res.summary["demo"] = demo
+        # every path in the record names OUT/input/ as the written summary.json does
+        res.record = RunSummary.from_json(_replaced(res.summary, str(staging / "input"), shown),
+                                          source="the demo's summary")
+        res.record.demo = demo
         _relabel_outputs(out, str(staging / "input"), shown, demo)
         return res
     finally:

@@ -27,14 +27,15 @@ from zonedesign.jobs.outputs import repair_moves, write_repaired
 from zonedesign.jobs.summary import (
     RunResult,
     add_lock_checks,
-    base_summary,
+    bound_breaks,
     explain_breaks,
     mark_locked_breaks,
     run_certificate,
+    run_head,
 )
 from zonedesign.plain import plain
 from zonedesign.rules import Rules
-from zonedesign.zonetables import table_breaks
+from zonedesign.summaryparts import AuditPart, Overlay, ProofEntry, RepairPart
 
 AUDIT_REPAIR_WORK = 15.0  # CP-SAT deterministic time for audit --repair (about a minute on 2 cores)
 
@@ -85,12 +86,12 @@ def audit(
     stage = Stages(progress, "auditing", 1 + int(certify) + int(repair))
     stage("checking coverage, nesting, contiguity, fences and bounds")
     checked = run_audit(prep.areas, prep.graph, labels, tiers, lookup_problems=problems)
-    summary = base_summary(prep, "audit")
-    summary["audit"] = plain(checked.to_json())
-    summary["audit"]["source"] = str(lookup or tiers_from)
+    summary = run_head(prep, "audit")
+    summary.audit = AuditPart.of(checked.to_json())
+    summary.audit.source = str(lookup or tiers_from)
     add_lock_checks(prep, labels, summary)
     if tiers_from is not None:
-        summary["audit"]["overlay"] = {"tolerance_share": tolerance, "flags": plain(overlay_flags)}
+        summary.audit.overlay = Overlay(tolerance_share=tolerance, flags=plain(overlay_flags))
     certs = []
     if certify:
         stage("building the CP-SAT certificate per fence and tier")
@@ -116,20 +117,20 @@ def audit(
 
             if lock_breaks(prep.locks, repaired, prep.areas):
                 recheck = None  # a repair that moves a locked zone is none (a safeguard)
-        summary["repair"] = {
-            "method": "cp-sat (fewest moves)",
-            "status": res.status,
-            "proven_fewest": res.status == "optimal",
-            "moves": int(len(moves)),
-            "repaired_lookup_passes": bool(recheck.ok) if recheck is not None else False,
-        }
+        summary.repair = RepairPart(
+            method="cp-sat (fewest moves)",
+            status=res.status,
+            proven_fewest=res.status == "optimal",
+            moves=int(len(moves)),
+            repaired_lookup_passes=bool(recheck.ok) if recheck is not None else False,
+        )
         if recheck is None or not recheck.ok or res.status != "optimal":
             # not proven fewest: the redraw search may mend with fewer moves, or mend at all
             stage("the CP-SAT repair is not proven fewest; trying the redraw search as well")
             mended = search_repair(prep, labels)
             again = run_audit(prep.areas, prep.graph, mended, tiers)
             search_moves = repair_moves(prep.areas.ids, labels, mended)
-            summary["repair"]["redraw_search_moves"] = int(len(search_moves)) if again.ok else None
+            summary.repair.extra["redraw_search_moves"] = int(len(search_moves)) if again.ok else None
             cp_sat_failed = recheck is None or not recheck.ok
             mends_with_fewer = again.ok and (cp_sat_failed or len(search_moves) < len(moves))
             leaves_fewer_faults = not again.ok and (
@@ -138,23 +139,22 @@ def audit(
             if mends_with_fewer or leaves_fewer_faults:
                 repaired = mended
                 moves = search_moves
-                summary["repair"] = {
-                    "method": "redraw search (not proven fewest moves)",
+                summary.repair = RepairPart(
+                    method="redraw search (not proven fewest moves)",
                     # a solve word: valid, proven impossible, or neither
-                    "status": "feasible" if again.ok else ("infeasible" if res.status == "infeasible" else "undecided"),
-                    "mends_every_break": bool(again.ok),
-                    "cp_sat_status": res.status,
-                    "proven_fewest": False,
-                    "moves": int(len(moves)),
-                    "repaired_lookup_passes": bool(again.ok),
-                }
+                    status="feasible" if again.ok else ("infeasible" if res.status == "infeasible" else "undecided"),
+                    proven_fewest=False,
+                    moves=int(len(moves)),
+                    repaired_lookup_passes=bool(again.ok),
+                    extra={"mends_every_break": bool(again.ok), "cp_sat_status": res.status},
+                )
         if repaired is not None:
             from zonedesign.tiers.naming import moved_areas
 
-            summary["repair"]["moved_per_tier"] = {
+            summary.repair.moved_per_tier = {
                 n: int(moved_areas(codes_of(labels[n]), repaired[n]).sum()) for n in names
             }
-            summary["repair"]["folder"] = "repaired"
+            summary.repair.folder = "repaired"
         seconds["repair"] = time.perf_counter() - t0
     stage.close()
     tables = {}
@@ -163,25 +163,27 @@ def audit(
 
         tables = all_tables(prep.areas, prep.graph, labels, tiers)
         # a bound no zoning could meet is proven so, with the highest floor it could meet
-        breaks = table_breaks(tiers, tables)
+        breaks = bound_breaks(tiers, tables)
         mark_locked_breaks(prep, breaks)
-        summary["bound_breaks"] = breaks
+        summary.bound_breaks = breaks
         if breaks:
-            say(progress, f"seeking proofs for {len({(b['tier'], b['fence']) for b in breaks})} fence(s) with bound breaks")
-            summary["proofs"] = explain_breaks(prep, labels, breaks)
+            say(progress, f"seeking proofs for {len({(b.tier, b.fence) for b in breaks})} fence(s) with bound breaks")
+            summary.proofs = explain_breaks(prep, labels, breaks)
+    rc = 0 if summary.audit.ok and not overlay_flags and all(c.ok for c in certs) else 1
     if repaired is not None:
-        summary["repair"].update(breaks_left(prep, repaired, tiers, summary.get("proofs") or []))
-    rc = 0 if summary["audit"]["ok"] and not overlay_flags and all(c.ok for c in certs) else 1
-    summary["exit_code"] = rc
+        summary.repair.breaks_left, summary.repair.breaks_left_forced = breaks_left(
+            prep, repaired, tiers, summary.proofs or [])
+    summary.exit_code = rc
+    summary.settle()
     if out is not None:
         from zonedesign.io.output import atomic_output, write_json
 
         with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
             say(progress, f"writing {out}")
-            write_json(tmp / "audit.json", summary["audit"])
+            write_json(tmp / "audit.json", summary.audit)
             checked.violations_frame().to_csv(tmp / "violations.csv", index=False, lineterminator="\n")
             if certify:
-                write_json(tmp / "certificate.json", summary["certificate"])
+                write_json(tmp / "certificate.json", summary.certificate)
             if moves is not None:
                 moves.to_csv(tmp / "repair.csv", index=False, lineterminator="\n")
                 if repaired is not None:
@@ -195,28 +197,29 @@ def audit(
                 layers = zone_layers(prep.geometry, labels, tables)
                 write_layers_gpkg(tmp / "zones.gpkg", layers)
             seconds["total"] = time.perf_counter() - t_start
-            summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
+            summary.seconds = {k: round(v, 3) for k, v in seconds.items()}
             if report:
                 from zonedesign.report.html import write_report
 
                 write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers)
             write_json(tmp / "summary.json", summary)
-    return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=rc, lookup=labels)
+    return RunResult(out=None if out is None else Path(out), record=summary, exit_code=rc, lookup=labels)
 
 
-def breaks_left(prep: Prepared, repaired: Mapping[str, np.ndarray], tiers: list, proofs: list[dict]) -> dict:
+def breaks_left(prep: Prepared, repaired: Mapping[str, np.ndarray], tiers: list,
+                proofs: list[ProofEntry]) -> tuple[int, int]:
     """What the repaired hierarchy still breaks, and how much of it is proven forced: a
     bound break in a fence-tier the proofs show no zoning can mend, or a locked zone's."""
     from zonedesign.verify.checks import audit as run_audit
 
     after = run_audit(prep.areas, prep.graph, repaired, tiers)
     locked = {name: set(prep.locks.zones(name)) for name in prep.locks.codes} if prep.locks else {}
-    proven = {(p.get("tier"), p.get("fence")) for p in proofs if p.get("status") == "INFEASIBLE"}
+    proven = {(p.tier, p.fence) for p in proofs if p.status == "INFEASIBLE"}
     forced = [
         v for v in after.violations
         if v.kind == "bounds" and (v.zone in locked.get(v.tier, set()) or any((v.tier, f) in proven for f in v.fences))
     ]
-    return {"breaks_left": len(after.violations), "breaks_left_forced": len(forced)}
+    return len(after.violations), len(forced)
 
 
 def search_repair(prep: Prepared, labels: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:

@@ -50,7 +50,7 @@ def later_scenario(
         res = redraw(later, rules, work / "design" / "lookup.csv", out, overwrite=overwrite,
                      executor=executor, workers=workers, scheduler=scheduler, report=report, certify=certify,
                      progress=progress, extra_files=files)
-        res.summary["first_design_exit_code"] = first.exit_code
+        res.record.first_design_exit_code = first.exit_code
         return res
     finally:
         shutil.rmtree(work, ignore_errors=True)

@@ -10,8 +10,9 @@ from pathlib import Path
 from zonedesign.cli.progress import TaskBars
 from zonedesign.jobs.inputs import Progress, check_out, prepare, say
 from zonedesign.jobs.outputs import finish
-from zonedesign.jobs.summary import RunResult, fence_figures, run_summary
+from zonedesign.jobs.summary import RunResult, fence_rows, run_summary
 from zonedesign.rules import Rules
+from zonedesign.summaryparts import FenceFailure
 
 
 def design(
@@ -46,11 +47,9 @@ def design(
         result = build_hierarchy(prep.areas, prep.graph, prep.rules, executor=run, on_tier=on_tier, locks=prep.locks)
     lookup = result.lookup()
     seconds, summary = run_summary(prep, "design", result, executor, workers)
-    summary["fences"] = fence_figures(result)
-    failures = [
-        {"fence": f.fence, "tier": f.tier, "error": f.error} for f in result.failures
-    ]
-    summary["fence_failures"] = failures
+    summary.fences = fence_rows(result)
+    failures = [FenceFailure(fence=f.fence, tier=f.tier, error=f.error) for f in result.failures]
+    summary.fence_failures = failures
     return finish(
         prep,
         lookup,

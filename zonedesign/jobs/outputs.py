@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from collections.abc import Mapping
 from pathlib import Path
@@ -15,20 +16,21 @@ from zonedesign.jobs.inputs import Prepared, Progress, codes_of, say
 from zonedesign.jobs.summary import (
     RunResult,
     add_lock_checks,
-    base_summary,
+    bound_breaks,
     explain_breaks,
     mark_locked_breaks,
     run_certificate,
+    run_head,
     violations_of,
 )
-from zonedesign.plain import plain
-from zonedesign.zonetables import table_breaks
+from zonedesign.summaryparts import AuditPart, RedrawPart, TierChanges, TierFigures, Violation
+from zonedesign.summaryrecord import RunSummary
 
 
 def finish(
     prep: Prepared,
     lookup: dict[str, np.ndarray],
-    summary: dict,
+    summary: RunSummary,
     out: str | Path | None,
     *,
     overwrite: bool,
@@ -50,10 +52,7 @@ def finish(
     stage("auditing the result independently")
     tiers = list(prep.rules.tiers)
     checked = run_audit(prep.areas, prep.graph, lookup, tiers)
-    summary["audit"] = {
-        "ok": bool(checked.ok),
-        "violations": [plain(v) for v in violations_of(checked)],
-    }
+    summary.audit = AuditPart(ok=bool(checked.ok), violations=[Violation.of(v) for v in violations_of(checked)])
     add_lock_checks(prep, lookup, summary)
     uncertified = False
     if certify:
@@ -63,18 +62,19 @@ def finish(
 
     stage("measuring every zone")
     tables = all_tables(prep.areas, prep.graph, lookup, tiers)
-    summary["tiers"] = {
-        t.name: tier_figures(tables[t.name], t, prep.areas.count_names) for t in tiers
+    summary.tiers = {
+        t.name: TierFigures.of(tier_figures(tables[t.name], t, prep.areas.count_names)) for t in tiers
     }
-    breaks = table_breaks(tiers, tables)
+    breaks = bound_breaks(tiers, tables)
     mark_locked_breaks(prep, breaks)
-    summary["bound_breaks"] = breaks
-    stage(f"seeking proofs for {len({(b['tier'], b['fence']) for b in breaks})} fence(s) with bound breaks")
-    summary["proofs"] = explain_breaks(prep, lookup, breaks)
+    summary.bound_breaks = breaks
+    stage(f"seeking proofs for {len({(b.tier, b.fence) for b in breaks})} fence(s) with bound breaks")
+    summary.proofs = explain_breaks(prep, lookup, breaks)
     stage.close()
-    summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
-    rc = 1 if (breaks or not summary["audit"]["ok"] or failed or uncertified) else 0
-    summary["exit_code"] = rc
+    summary.seconds = {k: round(v, 3) for k, v in seconds.items()}
+    rc = 1 if (breaks or not summary.audit.ok or failed or uncertified) else 0
+    summary.exit_code = rc
+    summary.settle()
     if out is not None:
         write_outputs(
             prep,
@@ -91,14 +91,14 @@ def finish(
             extra_tables=extra_tables,
             audit_result=checked,
         )
-    return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=rc, lookup=lookup)
+    return RunResult(out=None if out is None else Path(out), record=summary, exit_code=rc, lookup=lookup)
 
 
 def write_outputs(
     prep: Prepared,
     lookup: dict[str, np.ndarray],
     tables: dict[str, pd.DataFrame],
-    summary: dict,
+    summary: RunSummary,
     out: Path,
     *,
     overwrite: bool,
@@ -137,7 +137,7 @@ def write_outputs(
             write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers, changes=changes)
             seconds["report"] = time.perf_counter() - t0
         seconds["total"] = time.perf_counter() - t_start
-        summary["seconds"] = {k: round(v, 3) for k, v in seconds.items()}
+        summary.seconds = {k: round(v, 3) for k, v in seconds.items()}
         write_json(tmp / "summary.json", summary)
 
 
@@ -154,7 +154,7 @@ def repair_moves(ids: np.ndarray, before: Mapping[str, np.ndarray], after: Mappi
 
 def write_repaired(
     folder: Path, prep: Prepared, before: Mapping[str, np.ndarray], repaired: Mapping[str, np.ndarray],
-    summary: dict, *, id_column: str, report: bool,
+    summary: RunSummary, *, id_column: str, report: bool,
 ) -> None:
     """OUT/repaired/: the repaired hierarchy as a full output (lookup.csv with the input's id
     column name, zones.gpkg, changes.csv, area_changes.csv, and a report drawing the moves)."""
@@ -175,14 +175,16 @@ def write_repaired(
     from zonedesign.report.changelist import repair_effects
 
     changes, per_area, figures = redraw_tables(prep, prev, now, policy=prep.rules.redraw.codes)
-    if isinstance(summary.get("repair"), dict):
-        summary["repair"]["zones"] = repair_effects(changes)  # drawn in the audit's report
+    if summary.repair is not None:
+        summary.repair.zones = repair_effects(changes)  # drawn in the audit's report
     changes.to_csv(folder / "changes.csv", index=False, lineterminator="\n")
     per_area.to_csv(folder / "area_changes.csv", index=False, lineterminator="\n")
     if report:
         from zonedesign.report.html import write_report
 
-        inner = {**base_summary(prep, "audit --repair"), "changes": figures,
-                 "repair": {k: v for k, v in (summary.get("repair") or {}).items() if k not in ("folder", "zones")},
-                 "redraw": {"code_policy": prep.rules.redraw.codes}}
+        inner = run_head(prep, "audit --repair")
+        inner.changes = {name: TierChanges.of(f) for name, f in figures.items()}
+        if summary.repair is not None:
+            inner.repair = dataclasses.replace(summary.repair, folder=None, zones=None)
+        inner.redraw = RedrawPart(code_policy=prep.rules.redraw.codes)
         write_report(folder / "report.html", summary=inner, tables=tables, layers=layers, changes=changes)

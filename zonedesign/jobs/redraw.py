@@ -11,6 +11,7 @@ from zonedesign.jobs.inputs import Progress, read_previous, say
 from zonedesign.jobs.outputs import finish
 from zonedesign.jobs.summary import RunResult, run_summary
 from zonedesign.rules import Rules
+from zonedesign.summaryparts import FenceFailure, PreviousPart, RedrawPart, TierChanges
 
 
 def redraw(
@@ -61,16 +62,18 @@ def redraw(
         retired={t.name: t.succession.retired for t in result.tiers},
     )
     seconds, summary = run_summary(prep, "redraw", result, executor, workers)
-    summary["previous"] = {"lookup": str(previous), "counts": None if previous_counts is None else str(previous_counts),
-                           **problems}
-    summary["redraw"] = {
-        "code_policy": result.policy,
-        "stability": {t.name: t.stability for t in result.tiers},
-        "moved_areas": "areas whose zone's code changed under the code policy",
-    }
-    summary["changes"] = figures
-    failures = [{"fence": f.fence, "tier": t.name, "error": f.error} for t in result.tiers for f in t.fences if f.error]
-    summary["fence_failures"] = failures
+    summary.previous = PreviousPart.of({"lookup": str(previous),
+                                        "counts": None if previous_counts is None else str(previous_counts),
+                                        **problems})
+    summary.redraw = RedrawPart(
+        code_policy=result.policy,
+        stability={t.name: t.stability for t in result.tiers},
+        moved_areas="areas whose zone's code changed under the code policy",
+    )
+    summary.changes = {name: TierChanges.of(f) for name, f in figures.items()}
+    failures = [FenceFailure(fence=f.fence, tier=t.name, error=f.error) for t in result.tiers for f in t.fences
+                if f.error]
+    summary.fence_failures = failures
     return finish(
         prep, lookup, summary, out, overwrite=overwrite, seconds=seconds, t_start=t_start,
         certify=certify, report=report, progress=progress, extra_files=extra_files,

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from pathlib import Path
 
@@ -9,9 +10,10 @@ from zonedesign.cli.progress import TaskBars
 from zonedesign.errors import InputError
 from zonedesign.jobs.design import closing
 from zonedesign.jobs.inputs import Progress, check_out, prepare, read_previous, say
-from zonedesign.jobs.summary import RunResult, base_summary
+from zonedesign.jobs.summary import RunResult, run_head
 from zonedesign.plain import plain
 from zonedesign.rules import Rules
+from zonedesign.summaryparts import InvalidVariant, SweepPart, VaryAxis
 
 
 def sweep(
@@ -80,17 +82,18 @@ def sweep(
         results = run(tasks, run_variant)
     tiers = [t.name for t in prep.rules.tiers]
     table = sweep_table(results, tiers)
-    head = base_summary(prep, "sweep")
-    summary = dict(head)
-    summary["sweep"] = {
-        "vary": [{"keys": list(a.keys), "values": [list(g) for g in a.values]} for a in axes],
-        "variants": plain(table.to_dict("records")),
-        "invalid": [{"variant": v.number, "name": v.name, "problem": v.error} for v in vs if v.rules is None],
-    }
-    summary["seconds"] = {"total": round(time.perf_counter() - t_start, 3)}
+    summary = run_head(prep, "sweep")
+    head = dataclasses.replace(summary)
+    summary.sweep = SweepPart(
+        vary=[VaryAxis(keys=list(a.keys), values=[list(g) for g in a.values]) for a in axes],
+        variants=plain(table.to_dict("records")),
+        invalid=[InvalidVariant(variant=v.number, name=v.name, problem=v.error) for v in vs if v.rules is None],
+    )
+    summary.seconds = {"total": round(time.perf_counter() - t_start, 3)}
     failed = any(r.row.get("valid") is False or r.row.get("audit_ok") is False or r.breaks or r.failures
                  for r in results)
-    summary["exit_code"] = 1 if failed else 0
+    summary.exit_code = 1 if failed else 0
+    summary.settle()
     if out is not None:
         with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
             say(progress, f"writing {out}")
@@ -106,4 +109,4 @@ def sweep(
                 from zonedesign.report.sweepreport import write_sweep_report
 
                 write_sweep_report(tmp, summary=summary, table=table, variants=vs, results=results, layers=layers)
-    return RunResult(out=None if out is None else Path(out), summary=summary, exit_code=summary["exit_code"])
+    return RunResult(out=None if out is None else Path(out), record=summary, exit_code=summary.exit_code)

@@ -10,6 +10,8 @@ import pandas as pd
 from zonedesign.report.format import esc, html_table, num
 from zonedesign.report.style import KIND_STYLE, KIND_WORDS
 from zonedesign.report.svgmap import MAP_BYTES, MAX_ZONES_PER_MAP, element_id, zone_map
+from zonedesign.summaryparts import RepairPart
+from zonedesign.summaryrecord import RunSummary
 
 POLICY_WORDS = {
     "successor": (
@@ -28,14 +30,14 @@ NEW_CODES = (
 )
 
 
-def policy_note(summary: dict) -> str:
+def policy_note(summary: RunSummary) -> str:
     """The code policy and the stability weights the redraw used, in words."""
-    info = summary.get("redraw") if isinstance(summary.get("redraw"), dict) else None
-    if not info:
+    info = summary.redraw
+    if info is None:
         return ""
-    policy = str(info.get("code_policy", ""))
+    policy = str(info.code_policy or "")
     out = [f'<p id="code-policy">{esc(POLICY_WORDS.get(policy, f"Code policy: {policy}."))} {esc(NEW_CODES)}</p>']
-    weights = info.get("stability") if isinstance(info.get("stability"), dict) else {}
+    weights = info.stability or {}
     if weights:
         parts = ", ".join(f"tier {t}: {'off' if float(w) == 0 else num(w)}" for t, w in weights.items())
         out.append(f"<p>Stability weight used: {esc(parts)} (0 switches stability off).</p>")
@@ -112,40 +114,39 @@ def repair_maps(run: Any, effects: dict) -> str:
 def repair_section(run: Any) -> str:
     """An audit's repair: method, whether its moves are proven fewest, moves per tier, and
     the audited zones it touches on a map."""
-    summary = run.summary
-    rep = summary.get("repair") if isinstance(summary.get("repair"), dict) else None
-    if not rep:
+    rep = run.summary.repair
+    if rep is None:
         return ""
-    proven = bool(rep.get("proven_fewest"))
+    proven = bool(rep.proven_fewest)
     out = [
-        f"<p>Method: {esc(rep.get('method', '?'))}. Status: {esc(rep.get('status', '?'))}. "
+        f"<p>Method: {esc(rep.method or '?')}. Status: {esc(rep.status or '?')}. "
         + ("The number of moves is proven the fewest that mend every break."
            if proven else "The number of moves is <strong>not</strong> proven the fewest.")
-        + f" {esc(num(rep.get('moves', 0)))} area move(s) in all; the repaired hierarchy "
-        + ("passes" if rep.get("repaired_lookup_passes") else "does <strong>not</strong> pass")
+        + f" {esc(num(rep.moves or 0))} area move(s) in all; the repaired hierarchy "
+        + ("passes" if rep.repaired_lookup_passes else "does <strong>not</strong> pass")
         + " the independent audit"
         + _left_words(rep)
         + ".</p>"
     ]
-    moved = rep.get("moved_per_tier") if isinstance(rep.get("moved_per_tier"), dict) else {}
+    moved = rep.moved_per_tier or {}
     if moved:
         out.append(html_table("Areas moved by the repair, per tier", ["tier", "areas moved"],
                               [[t, n] for t, n in moved.items()]))
-    effects = rep.get("zones") if isinstance(rep.get("zones"), dict) else {}
+    effects = rep.zones or {}
     if effects and getattr(run, "layers", None):
         out.append(repair_maps(run, effects))
-    if rep.get("folder"):
+    if rep.folder:
         out.append(
-            f'<p>The repaired hierarchy is a full output in <a href="{esc(rep["folder"])}/report.html">'
-            f"{esc(rep['folder'])}/</a> (lookup.csv, zones.gpkg, changes.csv, area_changes.csv); its "
+            f'<p>The repaired hierarchy is a full output in <a href="{esc(rep.folder)}/report.html">'
+            f"{esc(rep.folder)}/</a> (lookup.csv, zones.gpkg, changes.csv, area_changes.csv); its "
             "report draws the moves on a map, zone by zone, by kind of change.</p>"
         )
     return "".join(out)
 
 
-def _left_words(rep: dict) -> str:
+def _left_words(rep: RepairPart) -> str:
     """What the repaired hierarchy still breaks, and how much of it the proofs show forced."""
-    left, forced = rep.get("breaks_left"), rep.get("breaks_left_forced") or 0
+    left, forced = rep.breaks_left, rep.breaks_left_forced or 0
     if not left:
         return ""
     if forced == left:

@@ -17,18 +17,11 @@ from zonedesign.report.plan import ReportPlan
 
 def violations(run: ReportPlan) -> str:
     out = []
-    breaks = dicts(run.summary.get("bound_breaks"))
+    breaks = run.summary.bound_breaks or []
     if breaks:
         rows = []
         for b in breaks:
-            rows.append(
-                [
-                    b.get("tier"),
-                    zone_link(run, b.get("tier"), b.get("zone")),
-                    b.get("fence"),
-                    b.get("breaks"),
-                ]
-            )
+            rows.append([b.tier, zone_link(run, b.tier, b.zone), b.fence, b.breaks])
         out.append(
             html_table(
                 "Zones outside their bounds",
@@ -37,12 +30,12 @@ def violations(run: ReportPlan) -> str:
                 row_class="violation",
             )
         )
-    audit = run.summary.get("audit")
-    viol = dicts(audit.get("violations")) if isinstance(audit, dict) else []
+    audit = run.summary.audit
+    viol = run.summary.violations
     if viol:
         rows = []
         for v in viol:
-            areas = v.get("areas")
+            areas = v.areas
             areas = (
                 ", ".join(map(str, areas[:5])) + (" …" if len(areas) > 5 else "")
                 if isinstance(areas, list)
@@ -50,12 +43,12 @@ def violations(run: ReportPlan) -> str:
             )
             rows.append(
                 [
-                    v.get("kind"),
-                    v.get("tier"),
-                    zone_link(run, v.get("tier"), v.get("zone")),
-                    ", ".join(map(str, v.get("fences") or [])),
+                    v.kind,
+                    v.tier,
+                    zone_link(run, v.tier, v.zone),
+                    ", ".join(map(str, v.fences or [])),
                     areas,
-                    v.get("message"),
+                    v.message,
                 ]
             )
         out.append(
@@ -66,13 +59,13 @@ def violations(run: ReportPlan) -> str:
                 row_class="violation",
             )
         )
-    elif isinstance(audit, dict):
+    elif audit is not None:
         out.append(
             "<p>The independent audit found no problem.</p>"
-            if audit.get("ok")
+            if audit.ok
             else "<p>The audit did not pass.</p>"
         )
-    if not out and "bound_breaks" in run.summary:
+    if not out and run.summary.bound_breaks is not None:
         out.append("<p>Every zone is within its bounds.</p>")
     return "".join(out)
 
@@ -128,24 +121,21 @@ def floors_cell(floors: Any) -> str:
 
 def certificate(run: ReportPlan) -> str:
     out = []
-    certs = dicts(run.summary.get("certificate"))
+    certs = run.summary.certificate or []
     if certs:
         rows = []
         for c in certs:
-            status = str(c.get("status", ""))
+            status = str(c.status)
             words = _CERT_WORDS.get(status.upper(), status)
-            extra = ", ".join(
-                f"{k} {text_of(v)}"
-                for k, v in c.items()
-                if k not in ("tier", "fence", "status", "seconds", "text", "message")
-            )
+            # the model's size, as the certificate gives it
+            details = ", ".join(f"{k} {text_of(v)}" for k, v in c.extra.items() if k != "message")
             rows.append(
                 [
-                    c.get("tier"),
-                    c.get("fence"),
-                    words + (f" ({c['text']})" if c.get("text") else ""),
-                    num(c.get("seconds")),
-                    extra,
+                    c.tier,
+                    c.fence,
+                    words + (f" ({c.text})" if c.text else ""),
+                    num(c.seconds),
+                    details,
                 ]
             )
         out.append(
@@ -155,13 +145,13 @@ def certificate(run: ReportPlan) -> str:
                 rows,
             )
         )
-    proofs = dicts(run.summary.get("proofs"))
+    proofs = run.summary.proofs or []
     if proofs:
         rows = []
         for p in proofs:
-            status = str(p.get("status", ""))
-            verdict = _LOCK_WORDS if p.get("kind") == "lock" else _PROOF_WORDS.get(status, status)
-            rows.append([p.get("tier"), p.get("fence"), verdict, floors_cell(p.get("floors")), p.get("text", "")])
+            status = str(p.status or "")
+            verdict = _LOCK_WORDS if p.kind == "lock" else _PROOF_WORDS.get(status, status)
+            rows.append([p.tier, p.fence, verdict, floors_cell(p.floors), p.text or ""])
         out.append(
             html_table(
                 "Why some bounds could not be met",

@@ -35,6 +35,7 @@ from zonedesign.report.format import esc
 from zonedesign.report.plan import MAPS_BYTES, REPORT_BYTES, ReportPlan
 from zonedesign.report.sections import SECTIONS, headline
 from zonedesign.report.style import SCRIPT, SCRIPT_HASH, css, defs
+from zonedesign.summaryrecord import RunSummary
 
 __all__ = ["DEFAULT_CAUTION", "MAPS_BYTES", "REPORT_BYTES", "render_report", "write_report"]
 
@@ -44,7 +45,7 @@ DEFAULT_CAUTION = CAUTION  # a summary without its own caution still carries it
 def write_report(
     path: Path | str,
     *,
-    summary: Mapping[str, Any],
+    summary: RunSummary | Mapping[str, Any],
     tables: Mapping[str, pd.DataFrame],
     layers: Mapping[str, Any],
     graph: Mapping[str, Iterable[tuple[str, str]]] | None = None,
@@ -52,7 +53,8 @@ def write_report(
 ) -> None:
     """Write the run's report to `path` (UTF-8 HTML, self-contained).
 
-    summary: the run's summary.json dict; tables: zone table per tier, bottom first;
+    summary: the run's summary record (a mapping, such as summary.json's content, is read
+    as a partial summary: what it lacks is left out of the report); tables: zone table per tier, bottom first;
     layers: the same zones with geometry (projected CRS); graph: optional extra
     (zone, zone) pairs per tier that count as neighbours when colouring (declared links);
     changes: a redraw's change table. A sweep has its own page (report.sweepreport).
@@ -69,7 +71,7 @@ def write_report(
 
 def render_report(
     *,
-    summary: Mapping[str, Any],
+    summary: RunSummary | Mapping[str, Any],
     tables: Mapping[str, pd.DataFrame],
     layers: Mapping[str, Any],
     graph: Mapping[str, Iterable[tuple[str, str]]] | None = None,
@@ -77,7 +79,8 @@ def render_report(
 ) -> str:
     """The report as one HTML string (see `write_report`)."""
     plan = ReportPlan(
-        summary=dict(summary or {}),
+        summary=summary if isinstance(summary, RunSummary)
+        else RunSummary.from_json(summary or {}, source="the report's summary", partial=True),
         tables=dict(tables or {}),
         layers=dict(layers or {}),
         links=dict(graph or {}),
@@ -85,8 +88,8 @@ def render_report(
     )
     plan.prepare()
     contents, body = render_sections(SECTIONS, plan)
-    command = str(plan.summary.get("command") or "run")
-    caution = str(plan.summary.get("caution") or DEFAULT_CAUTION)
+    command = str(plan.summary.command or "run")
+    caution = str(plan.summary.caution or DEFAULT_CAUTION)
     return page(command, caution, headline(plan), contents, body, plan.n_colours)
 
 

@@ -16,7 +16,7 @@ import shapely
 
 from zonedesign.report import charts
 from zonedesign.report.colouring import PALETTE, colour_by_code, zone_neighbours
-from zonedesign.report.format import dicts, get, isnan, natural, num, pct, slug
+from zonedesign.report.format import isnan, natural, num, pct, slug
 from zonedesign.report.style import KIND_STYLE, KIND_WORDS
 from zonedesign.report.svgmap import (
     MAP_BYTES,
@@ -26,6 +26,8 @@ from zonedesign.report.svgmap import (
     frame_for,
     zone_map,
 )
+from zonedesign.summaryparts import TierFigures
+from zonedesign.summaryrecord import RunSummary
 
 REPORT_BYTES = 8_000_000
 MAPS_BYTES = 6_000_000
@@ -51,7 +53,7 @@ class TierMaps:
 class ReportPlan:
     """The run's inputs to the report and every decision taken on them (`prepare`)."""
 
-    summary: dict
+    summary: RunSummary
     tables: dict[str, pd.DataFrame]
     layers: dict[str, Any]
     links: dict
@@ -69,7 +71,7 @@ class ReportPlan:
     def prepare(self) -> None:
         """Collect problems and change kinds per zone, then choose lists and maps."""
         self.tiers = list(dict.fromkeys(list(self.tables) + list(self.layers)))
-        self.limits = charts.limits_from_rules(self.summary.get("rules"), self.tiers)
+        self.limits = charts.limits_from_rules(self.summary.rules, self.tiers)
         self.counts = count_columns(self.tables)
         self._collect_problems()
         self._collect_kinds()
@@ -116,10 +118,10 @@ class ReportPlan:
                 texts = broken["breaks"] if "breaks" in broken else [""] * len(broken)
                 for z, t in zip(broken["zone"].astype(str), texts):
                     add(tier, z, t or "outside its bounds")
-        for b in dicts(self.summary.get("bound_breaks")):
-            add(b.get("tier"), b.get("zone"), b.get("breaks") or "outside its bounds")
-        for v in dicts(get(self.summary, "audit", "violations")):
-            add(v.get("tier"), v.get("zone"), v.get("message") or v.get("kind"))
+        for b in self.summary.bound_breaks or []:
+            add(b.tier, b.zone, b.breaks or "outside its bounds")
+        for v in self.summary.violations:
+            add(v.tier, v.zone, v.message or v.kind)
 
     def _collect_kinds(self) -> None:
         for tier in self.tiers:
@@ -399,10 +401,10 @@ def count_columns(tables: Mapping[str, pd.DataFrame]) -> list[str]:
     return out
 
 
-def tier_figures(table: pd.DataFrame | None, counts: Sequence[str]) -> dict:
+def tier_figures(table: pd.DataFrame | None, counts: Sequence[str]) -> TierFigures:
     """Summary figures of one tier from its zone table, for runs whose summary lacks them."""
     if table is None:
-        return {}
+        return TierFigures()
     out: dict = {"zones": len(table)}
     if "bound_break" in table:
         out["bound_breaks"] = int(table["bound_break"].fillna(False).astype(bool).sum())
@@ -424,7 +426,7 @@ def tier_figures(table: pd.DataFrame | None, counts: Sequence[str]) -> dict:
                 "p10": float(np.nanquantile(x, 0.1)),
                 "p90": float(np.nanquantile(x, 0.9)),
             }
-    return out
+    return TierFigures.of(out)
 
 
 def bounds(geoms: np.ndarray) -> np.ndarray:

@@ -11,27 +11,28 @@ from zonedesign.report.format import (
     text_of,
 )
 from zonedesign.report.plan import ReportPlan
+from zonedesign.summaryparts import AreasPart, GraphPart, Override
 
 
-def _mended(areas: dict) -> list[str]:
+def _mended(areas: AreasPart) -> list[str]:
     """Every duplicate merged and every overlap cut under overlaps = "cut"."""
     out = []
-    merged = areas.get("duplicates_merged") or []
+    merged = areas.duplicates_merged
     if merged:
         rows = "".join(
-            f"<tr><td>{esc(d.get('kept'))}</td><td>{esc(', '.join(map(str, d.get('merged', []))))}</td>"
-            f"<td>{esc(_counts_before(d.get('counts') or {}))}</td></tr>"
+            f"<tr><td>{esc(d.kept)}</td><td>{esc(', '.join(map(str, d.merged or [])))}</td>"
+            f"<td>{esc(_counts_before(d.counts or {}))}</td></tr>"
             for d in merged[:TABLE_ROWS]
         )
         out.append(
             '<h3 id="input-duplicates">Duplicate polygons merged</h3><table><thead><tr><th>kept id</th>'
             f"<th>merged into it</th><th>counts before</th></tr></thead><tbody>{rows}</tbody></table>"
         )
-    cut = areas.get("overlaps_cut") or []
+    cut = areas.overlaps_cut
     if cut:
         rows = "".join(
-            f"<tr><td>{esc(c.get('kept_by'))}</td><td>{esc(c.get('cut_from'))}</td>"
-            f"<td>{float(c.get('overlap_m2') or 0.0):.6g}</td></tr>"
+            f"<tr><td>{esc(c.kept_by)}</td><td>{esc(c.cut_from)}</td>"
+            f"<td>{float(c.overlap_m2 or 0.0):.6g}</td></tr>"
             for c in cut[:TABLE_ROWS]
         )
         out.append(
@@ -45,20 +46,20 @@ def _counts_before(counts: dict) -> str:
     return "; ".join(f"{k}: " + ", ".join(f"{c} {num(x)}" for c, x in v.items()) for k, v in counts.items())
 
 
-def _overrides(overrides: object) -> list[str]:
+def _overrides(overrides: dict[str, list[Override]] | None) -> list[str]:
     """The per-fence bounds of [[tier.override]], beside the tiers' own."""
-    if not isinstance(overrides, dict) or not overrides:
+    if not overrides:
         return []
     rows = []
     for tier, items in overrides.items():
-        for o in items if isinstance(items, list) else []:
+        for o in items:
             given = "; ".join(
-                f"{key} " + ", ".join(f"{c} {num(v)}" for c, v in (o.get(key) or {}).items())
-                for key in ("min", "max", "target", "weights")
-                if o.get(key)
+                f"{name} " + ", ".join(f"{c} {num(v)}" for c, v in (values or {}).items())
+                for name, values in (("min", o.min), ("max", o.max), ("target", o.target), ("weights", o.weights))
+                if values
             )
             rows.append(
-                f"<tr><td>{esc(tier)}</td><td>{esc(', '.join(map(str, o.get('fences', []))))}</td>"
+                f"<tr><td>{esc(tier)}</td><td>{esc(', '.join(map(str, o.fences or [])))}</td>"
                 f"<td>{esc(given)}</td></tr>"
             )
     return [
@@ -77,25 +78,25 @@ def _codes_text(codes: object) -> str | None:
 def input_section(run: ReportPlan) -> str:
     s = run.summary
     out = []
-    areas = s.get("areas") if isinstance(s.get("areas"), dict) else {}
-    graph = s.get("graph") if isinstance(s.get("graph"), dict) else {}
+    areas = s.areas or AreasPart()
+    graph = s.graph or GraphPart()
     facts = []
     for label, value in (
-        ("Input files", ", ".join(map(str, s.get("inputs") or [])) if s.get("inputs") else None),
-        ("Areas", num(areas.get("count")) if "count" in areas else None),
-        ("Coordinate reference system", areas.get("crs")),
-        ("Why this CRS", areas.get("crs_choice")),
-        ("Fences", num(areas.get("fences")) if "fences" in areas else None),
-        ("Fence codes", _codes_text(areas.get("fence_codes"))),
-        ("Contiguity", graph.get("contiguity")),
-        ("Neighbour pairs", num(graph.get("edges")) if "edges" in graph else None),
-        ("Declared links", num(graph.get("links")) if "links" in graph else None),
+        ("Input files", ", ".join(map(str, s.inputs)) if s.inputs else None),
+        ("Areas", num(areas.count) if areas.count is not None else None),
+        ("Coordinate reference system", areas.crs),
+        ("Why this CRS", areas.crs_choice),
+        ("Fences", num(areas.fences) if areas.fences is not None else None),
+        ("Fence codes", _codes_text(areas.fence_codes)),
+        ("Contiguity", graph.contiguity),
+        ("Neighbour pairs", num(graph.edges) if graph.edges is not None else None),
+        ("Declared links", num(graph.links) if graph.links is not None else None),
     ):
         if value not in (None, ""):
             facts.append(f"<dt>{esc(label)}</dt><dd>{esc(value)}</dd>")
     if facts:
         out.append(f'<dl class="facts">{"".join(facts)}</dl>')
-    notes = areas.get("notes") or []
+    notes = areas.notes or []
     if notes:
         out.append(
             '<h3 id="input-notes">Notes from reading the input</h3><ul>'
@@ -103,8 +104,8 @@ def input_section(run: ReportPlan) -> str:
             + "</ul>"
         )
     out += _mended(areas)
-    out += _overrides(s.get("overrides"))
-    repaired = areas.get("repaired_polygons")
+    out += _overrides(s.overrides)
+    repaired = areas.repaired_polygons
     if repaired:
         shown = ", ".join(map(str, repaired[:200])) + (
             f" and {len(repaired) - 200:,} more" if len(repaired) > 200 else ""
@@ -112,7 +113,7 @@ def input_section(run: ReportPlan) -> str:
         out.append(
             f'<h3 id="input-repaired">Repaired polygons</h3><p>{len(repaired):,} invalid polygon(s) were repaired before use: {esc(shown)}.</p>'
         )
-    islands = dicts(graph.get("islands"))
+    islands = dicts(graph.islands)
     if islands:
         cols = list(dict.fromkeys(k for d in islands for k in d))
         rows = [[text_of(d.get(k)) for k in cols] for d in islands]
@@ -120,13 +121,13 @@ def input_section(run: ReportPlan) -> str:
             '<h3 id="input-islands">Islands</h3><p>Parts of a fence with no neighbour path to the rest of it.</p>'
         )
         out.append(html_table("Islands found in the area graph", cols, rows))
-    elif "islands" in graph:
+    elif graph.islands is not None:
         out.append("<p>No islands: every fence's areas are connected.</p>")
     return "".join(out)
 
 
 def rules_section(run: ReportPlan) -> str:
-    text = run.summary.get("rules")
+    text = run.summary.rules
     if not text:
         return ""
     return f'<pre class="rules" aria-label="Rules file">{esc(text)}</pre>'
@@ -135,11 +136,11 @@ def rules_section(run: ReportPlan) -> str:
 def run_details(run: ReportPlan) -> str:
     s = run.summary
     out = []
-    search = s.get("search")
-    if isinstance(search, dict) and search:
+    search = s.search.to_json() if s.search is not None else {}
+    if search:
         rows = "".join(f"<dt>{esc(k)}</dt><dd>{esc(text_of(v))}</dd>" for k, v in search.items())
         out.append(f'<h3 id="run-search">Search</h3><dl class="facts">{rows}</dl>')
-    versions = s.get("versions")
+    versions = s.versions
     if isinstance(versions, dict) and versions:
         out.append('<h3 id="run-versions">Software</h3>')
         out.append(
@@ -150,7 +151,7 @@ def run_details(run: ReportPlan) -> str:
                 row_headers=True,
             )
         )
-    seconds = s.get("seconds")
+    seconds = s.seconds
     if isinstance(seconds, dict) and seconds:
         out.append('<h3 id="run-times">Run times</h3>')
         out.append(

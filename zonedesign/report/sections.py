@@ -12,7 +12,6 @@ from zonedesign.report.changelist import change_list, policy_note, repair_sectio
 from zonedesign.report.checksections import certificate, violations
 from zonedesign.report.format import (
     Raw,
-    dicts,
     esc,
     get,
     html_table,
@@ -28,20 +27,22 @@ from zonedesign.report.plan import ZONE_LIST_ROWS, ReportPlan, tier_figures
 from zonedesign.report.runsections import input_section, rules_section, run_details
 from zonedesign.report.style import CHANGE_KINDS, KIND_WORDS
 from zonedesign.report.svgmap import element_id
+from zonedesign.summaryparts import FenceRow
 
 
 def headline(run: ReportPlan) -> str:
     """One line under the title: areas, fences and zones per tier."""
     s = run.summary
     parts = []
-    n_areas = get(s, "areas", "count")
+    n_areas = s.areas.count if s.areas else None
     if n_areas is not None:
         parts.append(f"{num(n_areas)} areas")
-    n_fences = get(s, "areas", "fences")
+    n_fences = s.areas.fences if s.areas else None
     if n_fences is not None:
         parts.append(f"{num(n_fences)} fences")
     for t in run.tiers:
-        n = len(run.tables[t]) if t in run.tables else get(s, "tiers", t, "zones")
+        figures = (s.tiers or {}).get(t)
+        n = len(run.tables[t]) if t in run.tables else figures.zones if figures else None
         if n is not None:
             parts.append(f"tier {t}: {num(n)} zones")
     return f'<p class="lede">{esc(" · ".join(parts))}</p>' if parts else ""
@@ -50,9 +51,9 @@ def headline(run: ReportPlan) -> str:
 def _overview(run: ReportPlan) -> str:
     s = run.summary
     items = []
-    if "command" in s:
-        items.append(("Command", str(s["command"])))
-    rc = s.get("exit_code")
+    if s.command is not None:
+        items.append(("Command", str(s.command)))
+    rc = s.exit_code
     if rc is not None:
         meaning = {
             0: "every rule holds",
@@ -60,23 +61,21 @@ def _overview(run: ReportPlan) -> str:
             2: "bad input or usage",
         }.get(rc, "")
         items.append(("Exit code", f"{rc} ({meaning})" if meaning else str(rc)))
-    audit = s.get("audit")
-    if isinstance(audit, dict):
-        n = len(dicts(audit.get("violations")))
-        ok = audit.get("ok")
+    audit = s.audit
+    if audit is not None:
+        n = len(audit.violations)
+        ok = audit.ok
         items.append(
             (
                 "Independent audit",
                 "passed" if ok else f"found {n:,} problem(s)" if n else "did not pass",
             )
         )
-    breaks = dicts(s.get("bound_breaks"))
-    if "bound_breaks" in s:
-        items.append(("Zones outside their bounds", f"{len(breaks):,}"))
-    failures = dicts(s.get("fence_failures"))
-    if "fence_failures" in s:
-        items.append(("Fences that failed", f"{len(failures):,}"))
-    seconds = s.get("seconds")
+    if s.bound_breaks is not None:
+        items.append(("Zones outside their bounds", f"{len(s.bound_breaks):,}"))
+    if s.fence_failures is not None:
+        items.append(("Fences that failed", f"{len(s.fence_failures):,}"))
+    seconds = s.seconds
     if isinstance(seconds, dict) and "total" in seconds:
         items.append(("Run time", f"{num(seconds['total'])} s"))
     if not items:
@@ -145,7 +144,7 @@ def _figure(svg: str, caption: str) -> str:
 
 
 def _changes(run: ReportPlan) -> str:
-    shares = run.summary.get("changes") if isinstance(run.summary.get("changes"), dict) else {}
+    shares = run.summary.changes or {}
     ch = run.changes if isinstance(run.changes, pd.DataFrame) else None
     if not shares and (ch is None or ch.empty) and not run.kinds:
         return ""
@@ -167,8 +166,8 @@ def _changes(run: ReportPlan) -> str:
         out.append("</section>")
     unchanged = {}
     for tier in run.tiers:
-        if isinstance(shares.get(tier), dict) and "share_unchanged" in shares[tier]:
-            unchanged[tier] = float(shares[tier]["share_unchanged"])
+        if tier in shares and shares[tier].share_unchanged is not None:
+            unchanged[tier] = float(shares[tier].share_unchanged)
         elif tier in run.kinds and run.kinds[tier]:
             ks = list(run.kinds[tier].values())
             unchanged[tier] = ks.count("kept") / len(ks)
@@ -183,8 +182,8 @@ def _changes(run: ReportPlan) -> str:
     per_tier: dict[str, dict[str, int]] = {}
     for tier in run.tiers:
         counts: dict[str, int] = {}
-        if isinstance(shares.get(tier), dict) and isinstance(shares[tier].get("kinds"), dict):
-            counts = {str(k): int(v) for k, v in shares[tier]["kinds"].items()}
+        if tier in shares and shares[tier].kinds is not None:
+            counts = {str(k): int(v) for k, v in shares[tier].kinds.items()}
         elif ch is not None and not ch.empty and "tier" in ch and "kind" in ch:
             counts = ch[ch["tier"].astype(str) == tier]["kind"].astype(str).value_counts().to_dict()
         elif tier in run.kinds:
@@ -200,13 +199,13 @@ def _changes(run: ReportPlan) -> str:
     ]
     if order:
         for tier in run.tiers:
-            info = shares.get(tier, {}) if isinstance(shares.get(tier), dict) else {}
+            moved = shares[tier].areas_moved if tier in shares else None
             rows.append(
                 [tier]
                 + [per_tier[tier].get(k, 0) for k in order]
                 + [
                     pct_plain(unchanged[tier]) if tier in unchanged else "–",
-                    info.get("areas_moved", "–"),
+                    "–" if moved is None else moved,
                 ]
             )
         out.append(
@@ -279,7 +278,7 @@ def _distributions(run: ReportPlan) -> str:
 
 
 def _tiers(run: ReportPlan) -> str:
-    figures = run.summary.get("tiers") if isinstance(run.summary.get("tiers"), dict) else {}
+    figures = run.summary.tiers or {}
     names = [t for t in run.tiers] or list(figures)
     if not names:
         return ""
@@ -289,38 +288,31 @@ def _tiers(run: ReportPlan) -> str:
     cols += ["Polsby-Popper median (p10–p90)", "within-zone spread median (p10–p90)"]
     rows = []
     for t in names:
-        f = (
-            figures.get(t)
-            if isinstance(figures.get(t), dict)
-            else tier_figures(run.tables.get(t), run.counts)
-        )
-        row = [t, num(f.get("zones")), num(f.get("bound_breaks"))]
+        f = figures.get(t) or tier_figures(run.tables.get(t), run.counts)
+        row = [t, num(f.zones), num(f.bound_breaks)]
         for c in run.counts:
-            cf = get(f, "counts", c) or {}
+            cf = get(f.counts or {}, c) or {}
             row.append(
                 f"{num(cf.get('mean'))} ({num(cf.get('min'))}–{num(cf.get('max'))})" if cf else "–"
             )
-            share = get(f, "share_within_10pct_of_target", c)
+            share = get(f.share_within_10pct_of_target or {}, c)
             row.append(pct_plain(share) if share is not None else "no target")
-        for key in ("polsby_popper", "within_spread"):
-            q = f.get(key) or {}
+        for q in (f.polsby_popper or {}, f.within_spread or {}):
             row.append(
                 f"{num(q.get('median'))} ({num(q.get('p10'))}–{num(q.get('p90'))})" if q else "–"
             )
         rows.append(row)
     out = [html_table("Figures per tier", cols, rows, row_headers=True)]
-    obj = run.summary.get("objective")
-    if isinstance(obj, dict) and obj:
+    obj = run.summary.objective
+    if obj:
         orows = []
         for t, o in obj.items():
-            if not isinstance(o, dict):
-                continue
-            w = o.get("weights") if isinstance(o.get("weights"), dict) else {}
+            w = o.weights if isinstance(o.weights, dict) else {}
             orows.append(
                 [
                     t,
-                    o.get("homogeneity", "–"),
-                    o.get("compactness", "–"),
+                    o.homogeneity or "–",
+                    o.compactness or "–",
                     ", ".join(f"{k} {num(v)}" for k, v in w.items()) or "–",
                 ]
             )
@@ -400,8 +392,8 @@ def _zones(run: ReportPlan) -> str:
 
 
 def _fences(run: ReportPlan) -> str:
-    fences = dicts(run.summary.get("fences"))
-    failures = dicts(run.summary.get("fence_failures"))
+    fences = run.summary.fences or []
+    failures = run.summary.fence_failures or []
     out = []
     if fences:
         cols = [
@@ -419,7 +411,7 @@ def _fences(run: ReportPlan) -> str:
         ]
         rows = []
         for f in fences:
-            terms = f.get("terms")
+            terms = f.terms
             terms = (
                 ", ".join(f"{k} {num(v)}" for k, v in terms.items())
                 if isinstance(terms, dict)
@@ -427,20 +419,20 @@ def _fences(run: ReportPlan) -> str:
             )
             rows.append(
                 [
-                    f.get("tier"),
-                    f.get("fence"),
-                    num(f.get("zones")),
-                    num(f.get("units")),
-                    num(f.get("breaks")),
-                    num(f.get("objective")),
+                    f.tier,
+                    f.fence,
+                    num(f.zones),
+                    num(f.units),
+                    num(f.breaks),
+                    num(f.objective),
                     terms,
-                    num(f.get("seconds")),
+                    num(f.seconds),
                     _proof(f),
-                    num(f.get("bound")) if f.get("bound") is not None else "",
-                    f.get("error") or "",
+                    num(f.bound) if f.bound is not None else "",
+                    f.error or "",
                 ]
             )
-        proven = sum(1 for f in fences if f.get("proof") == "optimal")
+        proven = sum(1 for f in fences if f.proof == "optimal")
         out.append(
             f"<p>{proven:,} of {len(fences):,} fence-tiers solved exactly and proven optimal (proof "
             "optimal; bound: the solver's lower bound on the objective, equal to it when proven); "
@@ -448,7 +440,7 @@ def _fences(run: ReportPlan) -> str:
         )
         out.append(html_table("Figures per fence and tier", cols, rows))
     if failures:
-        rows = [[f.get("tier"), f.get("fence"), f.get("error")] for f in failures]
+        rows = [[f.tier, f.fence, f.error] for f in failures]
         out.append(
             html_table(
                 "Fences that failed (no zoning written for them)", ["tier", "fence", "error"], rows
@@ -457,10 +449,10 @@ def _fences(run: ReportPlan) -> str:
     return "".join(out)
 
 
-def _proof(f: dict) -> str:
+def _proof(f: FenceRow) -> str:
     """"optimal" (proven by the exact step), or "none" with the reason."""
-    proof = text_of(f.get("proof") or "none")
-    reason = text_of(f.get("proof_reason") or "")
+    proof = text_of(f.proof or "none")
+    reason = text_of(f.proof_reason or "")
     return proof if proof == "optimal" or not reason else f"{proof}: {reason}"
 
 

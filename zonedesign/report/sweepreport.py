@@ -23,21 +23,22 @@ from zonedesign.report.plan import MAPS_BYTES
 from zonedesign.report.svgmap import MAX_ZONES_PER_MAP, element_id, zone_map
 from zonedesign.report.sweepcharts import Measure, change_bars, small_multiples
 from zonedesign.status import solve_word
+from zonedesign.summaryrecord import RunSummary
 
 
 class SweepPage:
     """What the sweep report shows, computed once from the run's figures."""
 
-    def __init__(self, summary: Mapping[str, Any], table: pd.DataFrame, variants: Sequence[Any],
+    def __init__(self, summary: RunSummary, table: pd.DataFrame, variants: Sequence[Any],
                  results: Sequence[Any], layers: Mapping[int, Mapping[str, Any]]):
-        self.summary = dict(summary)
+        self.summary = summary
         self.table = table.reset_index(drop=True)
         self.variants = list(variants)
         self.results = list(results)
         self.layers = dict(layers)
-        self.tiers = [str(t) for t in self.summary.get("tier_order") or []]
+        self.tiers = [str(t) for t in summary.tier_order or []]
         self.keys = [k for v in self.variants[:1] for k, _ in v.values]
-        self.n_vary = len(self.summary.get("sweep", {}).get("vary") or [])
+        self.n_vary = len(summary.sweep.vary) if summary.sweep is not None else 0
         self.valid = [v for v in self.variants if v.rules is not None]
         self.measures = decision_measures(self.table, self.tiers)
         self.charts: dict[str, bytes] = {}
@@ -302,12 +303,12 @@ def _changes(p: SweepPage) -> str:
 
 def _rules(p: SweepPage) -> str:
     items = []
-    for axis in p.summary.get("sweep", {}).get("vary") or []:
-        keys = ", ".join(p.key_words(k) for k in axis["keys"])
-        vals = ", ".join(" / ".join(g) for g in axis["values"])
+    for axis in p.summary.sweep.vary if p.summary.sweep is not None else []:
+        keys = ", ".join(p.key_words(k) for k in axis.keys)
+        vals = ", ".join(" / ".join(g) for g in axis.values)
         items.append(f"<li>{esc(keys)}: {esc(vals)}</li>")
     return (f"<p>Varied (every combination is one variant):</p><ul>{''.join(items)}</ul>"
-            f'<details><summary>Base rules</summary><pre class="rules">{esc(p.summary.get("rules", ""))}</pre></details>')
+            f'<details><summary>Base rules</summary><pre class="rules">{esc(p.summary.rules or "")}</pre></details>')
 
 
 SECTIONS = [
@@ -326,13 +327,13 @@ def render_sweep_report(page_data: SweepPage) -> str:
     contents, body = render_sections(SECTIONS, p)
     ran = len(p.valid)
     clean = sum(1 for v, r in zip(p.variants, p.results) if v.rules is not None and r.row.get("audit_ok"))
-    lede = (f'<p class="lede">{num(len(p.variants))} variants of the rules on {num(p.summary.get("areas", {}).get("count"))} '
+    lede = (f'<p class="lede">{num(len(p.variants))} variants of the rules on {num(p.summary.areas.count if p.summary.areas else None)} '
             f"areas: {num(ran)} ran, {num(clean)} meet every rule.</p>")
-    caution = str(p.summary.get("caution") or DEFAULT_CAUTION)
+    caution = str(p.summary.caution or DEFAULT_CAUTION)
     return page("sweep", caution, lede, contents, body, p.n_colours, wide=True)
 
 
-def write_sweep_report(folder: Path, *, summary: Mapping[str, Any], table: pd.DataFrame, variants: Sequence[Any],
+def write_sweep_report(folder: Path, *, summary: RunSummary, table: pd.DataFrame, variants: Sequence[Any],
                        results: Sequence[Any], layers: Mapping[int, Mapping[str, Any]]) -> None:
     """report.html and its charts under charts/ (the same SVGs the page holds inline)."""
     p = SweepPage(summary, table, variants, results, layers)
