@@ -66,7 +66,7 @@ class Outcome:
 class RunSummary(Part):
     """Every figure of one run. Parts that a command does not make are None."""
 
-    command: str = key(need=REQUIRED, kind=str, default="run")
+    command: str | None = key(need=REQUIRED, kind=str)
     exit_code: int | None = key(need=REQUIRED, kind=int)
     # the head: what went in
     caution: str | None = key(kind=str)

@@ -475,7 +475,7 @@ def _done(res, say) -> int:
     for bad in s.sweep.invalid if s.sweep is not None else []:
         say(f"variant {bad.name} not run: {bad.problem}")
     code = int(res.exit_code)
-    done = s.outcome or s.settle().outcome
+    done = s.outcome
     # an undecided (or refuted) certificate is never reported as a pass
     if code == 0 and done.certificate in (None, "confirmed"):
         say("finished: every rule holds" + (", certificate confirmed" if done.certificate else ""))

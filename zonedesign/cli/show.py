@@ -119,7 +119,8 @@ def summary_lines(folder: Path, s: RunSummary) -> list[str]:
     report = folder / "report.html"
     if report.exists():
         lines.append(f"  report: {report}")
-    lines.append(f"  exit code of the run: {_or_q(s.exit_code)}")
+    why = s.outcome.reasons if s.outcome is not None and s.exit_code else ()
+    lines.append(f"  exit code of the run: {_or_q(s.exit_code)}" + (f" ({', '.join(why)})" if why else ""))
     return lines
 
 
