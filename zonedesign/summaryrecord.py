@@ -9,6 +9,7 @@ its exit code) is counted once, when the record is built, and read by the CLI an
 
 from __future__ import annotations
 
+import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -131,8 +132,6 @@ class RunSummary(Part):
         """Tier names bottom first, as the rules list them."""
         if self.tier_order:
             return [str(x) for x in self.tier_order]
-        import tomllib
-
         try:
             tiers = tomllib.loads(self.rules or "").get("tier") or []
             names = [str(t["name"]) for t in tiers if isinstance(t, dict) and "name" in t]

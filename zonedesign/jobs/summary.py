@@ -42,6 +42,10 @@ class RunResult:
     exit_code: int
     lookup: dict[str, np.ndarray] = field(default_factory=dict)
 
+    def __post_init__(self) -> None:
+        if isinstance(self.record, Mapping):  # a summary's JSON form, as a caller may hold it
+            self.record = RunSummary.from_json(self.record, source="the run's summary", partial=True)
+
     @property
     def summary(self) -> dict:
         """The summary as summary.json holds it (plain values; NaN kept as NaN)."""
