@@ -41,7 +41,8 @@ def measure(n: int, work: Path, log=print) -> dict:
     made = make_input(n, work / f"in{n}")
     paths = made["paths"]
     res = run_cli_measured(paths["parquet"], paths["rules"], work / f"out{n}")
-    design_s = float(res["summary"].get("seconds", {}).get("total", res["wall_s"]))
+    seconds = (res["summary"].seconds if res["summary"] is not None else None) or {}
+    design_s = float(seconds.get("total", res["wall_s"]))
     log(f"  {n:,} areas: designed in {design_s:.1f} s ({made['fences']} fences)")
     prep = api.prepare(paths["parquet"], paths["rules"])
     tiers = list(prep.rules.tiers)

@@ -36,6 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from benchmarks.common import Clock, code_snapshot, md_table, write_results
+from zonedesign.summaryrecord import RunSummary
 
 NAME = "scale"
 TITLE = "scale (end to end through the CLI)"
@@ -159,7 +160,8 @@ def run_cli_measured(
         cmd.append("--no-certificate")
     done = subprocess.run([sys.executable, "-c", _RSS_SCRIPT, *cmd], capture_output=True, text=True, env=env)
     info = json.loads(done.stdout.strip().splitlines()[-1])
-    summary = json.loads((out / "summary.json").read_text()) if (out / "summary.json").is_file() else {}
+    path = out / "summary.json"
+    summary = RunSummary.from_json(json.loads(path.read_text()), source=str(path)) if path.is_file() else None
     return {
         "wall_s": info["wall"],
         "cpu_s": info["cpu"],
@@ -240,8 +242,9 @@ def main(quick: bool = False, folder: Path | None = None, log=print, sizes: list
             paths = made["paths"]
             log(f"  {n:,} areas: generated in {made['generate_s']:.1f} s ({made['fences']} fences); running the CLI ...")
             res = run_cli_measured(paths["parquet"], paths["rules"], work / f"out{n}", report=True, certificate=True, env=env)
-            sec = res["summary"].get("seconds", {})
-            floor = io_floor(paths["parquet"], work / f"out{n}", work / f"floor{n}") if res["summary"] else {}
+            summary = res["summary"]
+            sec = (summary.seconds if summary is not None else None) or {}
+            floor = io_floor(paths["parquet"], work / f"out{n}", work / f"floor{n}") if summary is not None else {}
             gpkg_read = read_gpkg_seconds(paths["gpkg"])
             total = float(sec.get("total", res["wall_s"]))
             row = {
@@ -262,14 +265,14 @@ def main(quick: bool = False, folder: Path | None = None, log=print, sizes: list
                 "x_floor": total / floor["floor_s"] if floor else math.nan,
                 "x_floor_cpu": res["cpu_s"] / floor["floor_cpu_s"] if floor else math.nan,
                 "zones": ", ".join(f"{k} {v:,}" for k, v in floor.get("zones", {}).items()),
-                "bound_breaks": len(res["summary"].get("bound_breaks", [])),
-                "audit_ok": res["summary"].get("audit", {}).get("ok"),
+                "bound_breaks": summary.outcome.bound_breaks if summary is not None else None,
+                "audit_ok": summary.audit.ok if summary is not None and summary.audit is not None else None,
             }
             rows.append(row)
             log(f"  {n:,} areas: {total:.1f} s end to end, {row['cpu_s']:.1f} CPU s ({row['x_floor_cpu']:.1f} x the I/O floor by CPU), peak RSS {row['peak_rss_gb']:.2f} GB")
             if n == sizes[0] and not quick:
                 plain = run_cli_measured(paths["parquet"], paths["rules"], work / f"plain{n}", env=env)
-                ps = plain["summary"].get("seconds", {})
+                ps = (plain["summary"].seconds if plain["summary"] is not None else None) or {}
                 extra.append({"run": f"{n:,} areas without the certificate and the report", "total_s": float(ps.get("total", plain["wall_s"])),
                               "audit_s": float(ps.get("audit", math.nan)), "peak_rss_gb": plain["peak_rss_gb"],
                               "x_full_run": float(ps.get("total", plain["wall_s"])) / total,
