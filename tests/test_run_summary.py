@@ -114,6 +114,30 @@ def test_show_the_report_and_the_record_give_the_same_break_counts(broken) -> No
     assert f"<dt>Exit code</dt><dd>{res.exit_code} (ran, but a rule is broken)</dd>" in html
 
 
+@pytest.mark.parametrize(("summary", "reasons"), [
+    ({"command": "design", "exit_code": 0, "audit": {"ok": True, "violations": []}, "bound_breaks": []}, ()),
+    ({"command": "design", "exit_code": 1, "audit": {"ok": True, "violations": []}, "bound_breaks": [],
+      "certificate": [{"tier": "t1", "fence": "F0", "status": "confirmed"},
+                      {"tier": "t1", "fence": "F1", "status": "undecided"}]}, ("certificate undecided",)),
+    ({"command": "audit", "exit_code": 1,
+      "audit": {"ok": False, "violations": [{"kind": "bounds", "tier": "t1", "zone": "z1"},
+                                            {"kind": "bounds", "tier": "t1", "zone": "z1"},
+                                            {"kind": "contiguity", "tier": "t1", "zone": "z2"}]}},
+     ("1 bound break(s)", "1 audit violation(s)")),
+    ({"command": "sweep", "exit_code": 1,
+      "sweep": {"vary": [], "invalid": [{"variant": 2, "name": "b", "problem": "min above max"}],
+                "variants": [{"variant": 1, "valid": True, "bound_breaks": 3, "audit_ok": True, "fence_failures": 1},
+                             {"variant": 2, "valid": False, "audit_ok": False}]}},
+     ("1 variant(s) not run", "1 variant(s) with failed fences", "3 bound break(s)")),
+])
+def test_the_outcome_names_every_reason_for_the_exit_code(summary: dict, reasons: tuple) -> None:
+    # an audit counts a zone that breaks bounds of two counts once; the certificate is a
+    # pass only when every model confirms
+    done = RunSummary.from_json(summary).outcome
+    assert done.reasons == reasons
+    assert done.holds == (not reasons)
+
+
 def test_the_cli_prints_the_counts_the_record_holds(capsys, tmp_path: Path) -> None:
     areas, rules = write_inputs(tmp_path / "in", rules=BROKEN_RULES)
     ran = run_cli(capsys, "design", areas, "--rules", rules, "--out", tmp_path / "out", "--no-report")

@@ -173,6 +173,9 @@ def outcome_of(s: RunSummary) -> Outcome:
         viol = sum(1 for r in rows if not r.get("audit_ok", True))
         if s.sweep.invalid:
             reasons.append(f"{len(s.sweep.invalid)} variant(s) not run")
+        failing = sum(1 for r in rows if r.get("fence_failures"))
+        if failing:
+            reasons.append(f"{failing} variant(s) with failed fences")
     counts = s.certificate_counts
     verdict = counts[0] if counts else None
     if bound:
