@@ -430,6 +430,11 @@ def test_auckland_runs_end_to_end_with_overlaps_cut_and_row_ids(spdata_dir, tmp_
     a, b = shapely.STRtree(z).query(z, predicate="intersects")
     common = shapely.area(shapely.intersection(z[a[a < b]], z[b[a < b]]))
     assert common.size == 0 or common.max() < 1e-9 * shapely.area(z).min()
+    # show says what was mended, never silently
+    capsys.readouterr()
+    assert main(["show", str(out)]) == 0
+    shown = capsys.readouterr().out
+    assert "overlaps cut: 16 pair(s)" in shown and "duplicates merged: 1 (" in shown
 
 
 # ---------------------------------------------------------------- per-fence overrides

@@ -196,6 +196,13 @@ class AreasPart(Part):
     notes: list = key(need=WRITTEN, kind=list, factory=list)
     extra: dict = extra()
 
+    def fences_said(self) -> str:
+        """The fences in words: "10 fences", or per tier where tiers keep to fences of their own."""
+        per_tier = self.fences_per_tier or {}
+        if len(set(per_tier.values())) > 1:
+            return "fences per tier: " + ", ".join(f"{t} {k:,}" for t, k in per_tier.items())
+        return f"{self.fences:,} fence(s)" if self.fences is not None else "fences unknown"
+
 
 @dataclass
 class GraphPart(Part):

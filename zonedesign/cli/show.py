@@ -51,12 +51,13 @@ def summary_lines(folder: Path, s: RunSummary) -> list[str]:
     lines = [f"{folder}  ({s.command or '?'}, zonedesign {s.version or '?'}{seed})"]
     if s.areas is not None:
         a = s.areas
-        per_tier = a.fences_per_tier or {}
-        if len(set(per_tier.values())) > 1:  # tiers keep to fences of their own
-            fences = "fences per tier: " + ", ".join(f"{t} {k}" for t, k in per_tier.items())
-            lines.append(f"  areas: {a.count}, {fences}, CRS {a.crs}")
-        else:
-            lines.append(f"  areas: {a.count} in {a.fences} fence(s), CRS {a.crs}")
+        lines.append(f"  areas: {a.count}, {a.fences_said()}, CRS {a.crs}")
+        if a.overlaps_cut:
+            lines.append(f"  overlaps cut: {len(a.overlaps_cut)} pair(s) "
+                         f"({_first([f'{o.cut_from} gave to {o.kept_by}' for o in a.overlaps_cut])})")
+        if a.duplicates_merged:
+            merged = [f"{d.kept} took in " + " + ".join(map(str, d.merged)) for d in a.duplicates_merged]
+            lines.append(f"  duplicates merged: {len(a.duplicates_merged)} ({_first(merged)})")
         if a.repaired_polygons:
             lines.append(f"  repaired polygons: {len(a.repaired_polygons)} ({_first(a.repaired_polygons)})")
     tiers = s.tiers or {}

@@ -86,7 +86,7 @@ def input_section(run: ReportPlan) -> str:
         ("Areas", num(areas.count) if areas.count is not None else None),
         ("Coordinate reference system", areas.crs),
         ("Why this CRS", areas.crs_choice),
-        ("Fences", num(areas.fences) if areas.fences is not None else None),
+        ("Fences", areas.fences_said() if areas.fences is not None else None),
         ("Fence codes", _codes_text(areas.fence_codes)),
         ("Contiguity", graph.contiguity),
         ("Neighbour pairs", num(graph.edges) if graph.edges is not None else None),

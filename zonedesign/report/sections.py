@@ -37,9 +37,8 @@ def headline(run: ReportPlan) -> str:
     n_areas = s.areas.count if s.areas else None
     if n_areas is not None:
         parts.append(f"{num(n_areas)} areas")
-    n_fences = s.areas.fences if s.areas else None
-    if n_fences is not None:
-        parts.append(f"{num(n_fences)} fences")
+    if s.areas and s.areas.fences is not None:
+        parts.append(s.areas.fences_said())
     for t in run.tiers:
         figures = (s.tiers or {}).get(t)
         n = len(run.tables[t]) if t in run.tables else figures.zones if figures else None
