@@ -182,25 +182,23 @@ def grow_region(st, alpha, beta, labels, perm, m_units, k0, aim_lo, aim_hi, fr, 
     return k - k0, stamp
 
 
-@njit(cache=True)
-def absorb_enclaves(st, seed):
-    """Give every unassigned unit a zone; returns the number of zones made for lone components.
+@inner
+def attach_to_neighbours(st, units, m, cand):
+    """Give every unit of units[:m] still labelled -1 that touches a zone the neighbouring
+    zone that takes it at least cost (breaks first), in random order, until none is left
+    touching a zone; what stays -1 are whole parts that no zone touches.
 
-    st must hold the partial labelling (unassigned units labelled -1).
-    """
+    cand: scratch of at least m entries. Draws from numba's generator (seed it first)."""
     indptr = st.indptr
     indices = st.indices
     labels = st.labels
-    queue = st.queue
-    np.random.seed(seed)
-    n = labels.shape[0]
-    cand = np.empty(n, dtype=np.int64)
     pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
     # typed, not literal, so callees compile once (numba specialises on literal ints)
     none = np.int64(-1)
     while True:
         nc = 0
-        for i in range(n):
+        for k in range(m):
+            i = units[k]
             if labels[i] >= 0:
                 continue
             for p in range(indptr[i], indptr[i + 1]):
@@ -219,7 +217,7 @@ def absorb_enclaves(st, seed):
             i = cand[t]
             if labels[i] >= 0:
                 continue
-            la, nda, nt = unit_links(st, i, none)
+            _, _, nt = unit_links(st, i, none)
             bb = none
             bdb = 0.0
             bdo = 0.0
@@ -236,6 +234,24 @@ def absorb_enclaves(st, seed):
                     bdo = do
                     blen = st.zacc[b]
             apply_move(st, i, bb, 0.0, blen)
+
+
+@njit(cache=True)
+def absorb_enclaves(st, seed):
+    """Give every unassigned unit a zone; returns the number of zones made for lone components.
+
+    st must hold the partial labelling (unassigned units labelled -1).
+    """
+    indptr = st.indptr
+    indices = st.indices
+    labels = st.labels
+    queue = st.queue
+    np.random.seed(seed)
+    n = labels.shape[0]
+    cand = np.empty(n, dtype=np.int64)
+    # typed, not literal, so callees compile once (numba specialises on literal ints)
+    none = np.int64(-1)
+    attach_to_neighbours(st, np.arange(n, dtype=np.int64), n, cand)
     # what is left are whole components without a zone: one zone each
     made = 0
     for s in range(n):

@@ -21,13 +21,12 @@ from collections import namedtuple
 
 import numpy as np
 
-from zonedesign.search.construct import grow_region
+from zonedesign.search.construct import attach_to_neighbours, grow_region
 from zonedesign.search.kernels import (
     FV_BRK,
     FV_TOTAL,
     IV_NFREE,
     inner,
-    key_less,
     link,
     pop_free,
     push_free,
@@ -41,7 +40,7 @@ from zonedesign.search.mergesplit import (
     zone_neighbours,
 )
 from zonedesign.search.moves import apply_move, donor_ok, unit_links
-from zonedesign.search.valuation import dist_to_zone, recompute_zone, recount, value_with
+from zonedesign.search.valuation import recompute_zone, recount
 
 REGROW_NEIGHBOURS = 3  # zones dissolved with the chosen one in a regrowth
 REGROW_AIM = (0.6, 1.4)  # regrown zones aim at a random share of the target in this range
@@ -327,58 +326,6 @@ def _next_slot(st, w, old, no):
 
 
 @inner
-def _absorb_region(st, w, region, m):
-    """Give every unit of region[:m] still labelled -1 the neighbouring zone that takes it
-    at least cost (breaks first), as `construct.absorb_enclaves` does, then make one zone
-    of each part that no zone touches."""
-    labels = st.labels
-    indptr = st.indptr
-    indices = st.indices
-    cand = w.cand
-    pairwise = st.kind[0] == 1 and st.coef[1] != 0.0
-    none = np.int64(-1)
-    while True:
-        nc = 0
-        for k in range(m):
-            i = region[k]
-            if labels[i] >= 0:
-                continue
-            for p in range(indptr[i], indptr[i + 1]):
-                if labels[indices[p]] >= 0:
-                    cand[nc] = i
-                    nc += 1
-                    break
-        if nc == 0:
-            break
-        for t in range(nc - 1, 0, -1):
-            r = np.random.randint(t + 1)
-            tmp = cand[t]
-            cand[t] = cand[r]
-            cand[r] = tmp
-        for t in range(nc):
-            i = cand[t]
-            if labels[i] >= 0:
-                continue
-            _, _, nt = unit_links(st, i, none)
-            bb = none
-            bdb = 0.0
-            bdo = 0.0
-            blen = 0.0
-            for q in range(nt):
-                b = st.ztouch[q]
-                hb = dist_to_zone(st, i, b) if pairwise else 0.0
-                cb, kb = value_with(st, b, i, 1.0, st.zacc[b], hb)
-                db = kb - st.brk[b]
-                do = cb - st.cost[b]
-                if bb < 0 or key_less(db, do, bdb, bdo):
-                    bb = b
-                    bdb = db
-                    bdo = do
-                    blen = st.zacc[b]
-            apply_move(st, i, bb, 0.0, blen)
-
-
-@inner
 def _lone_parts(st, w, region, m, old, no):
     """One zone for each connected part of region[:m] left without a zone."""
     labels = st.labels
@@ -454,7 +401,7 @@ def regrow_change(st, w, a):
             link(st, u, z)
     for j in range(made):
         recompute_zone(st, w.fix[j])
-    _absorb_region(st, w, region, m)
+    attach_to_neighbours(st, region, m, w.cand)
     _lone_parts(st, w, region, m, old, no)
     # dissolved slots no regrown zone took go back on the free stack, after every take
     for j in range(w.cnt[C_NFIX], no):
