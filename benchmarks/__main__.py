@@ -11,7 +11,7 @@ import sys
 import time
 from pathlib import Path
 
-NAMES = ("quality", "quality-scale", "speed", "scale", "baseline", "redraw", "certificate", "exact-threshold", "reshape")
+NAMES = ("quality", "quality-scale", "speed", "scale", "baseline", "redraw", "certificate", "exact-threshold", "reshape", "first-run")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -295,6 +295,10 @@ def main(argv: list[str] | None = None) -> int:
             return _main(argv)
         except interrupts.Interrupted as exc:  # landed after the last handler below
             return _stopped(exc.signum)
+        finally:
+            from zonedesign.precompile import stop_background
+
+            stop_background()
 
 
 def _main(argv: list[str] | None) -> int:
@@ -371,12 +375,21 @@ def _note_warnings(caught: list[warnings.WarningMessage], args: argparse.Namespa
     )
 
 
+# the commands that search, and so compile the search's kernels on a first run
+SEARCHING = ("design", "demo", "redraw", "sweep")
+
+
 def _run(args: argparse.Namespace) -> int:
     from zonedesign import api
     from zonedesign.cli.progress import Progress
 
     say = Progress(quiet=getattr(args, "quiet", False))
     cmd = args.command
+    if cmd in SEARCHING:
+        from zonedesign.precompile import start_background
+
+        # a first run on an empty numba cache compiles in a second process meanwhile
+        start_background()
     if cmd == "design":
         res = api.design(
             args.areas, args.rules, args.out, layer=args.layer, crs=args.crs,

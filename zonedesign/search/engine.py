@@ -55,7 +55,6 @@ from zonedesign.measures import Score
 from zonedesign.records import Problem
 from zonedesign.rules import METHODS, SearchRules
 from zonedesign.search import kernels as K
-from zonedesign.search import moves as KM
 from zonedesign.search.anneal import (
     CT_ACCEPTED,
     CT_CHANGED,
@@ -66,7 +65,7 @@ from zonedesign.search.anneal import (
     anneal_block,
     sample_uphill,
 )
-from zonedesign.search.azp import descent_sweep, local_descent
+from zonedesign.search.azp import descent_sweep
 from zonedesign.search.construct import absorb_enclaves, grow_zones
 from zonedesign.search.mergesplit import (
     FAR_ABOVE_TARGET,
@@ -76,11 +75,11 @@ from zonedesign.search.mergesplit import (
 )
 from zonedesign.search.multilevel import coarsen, uses_multilevel
 from zonedesign.search.pairs import pair_pass
-from zonedesign.search.reshape import MOVES, growth_weights, reshape
-from zonedesign.search.reshape import warm as warm_move
+from zonedesign.search.reshape import growth_weights, reshape
 from zonedesign.search.schedule import fence_schedule
 from zonedesign.search.state import ZoneState, check_problem, full_score, search_normalisers
 from zonedesign.search.tabu import tabu_block
+from zonedesign.search.warm import warm_up
 
 # budgets (the primary stop criteria; see the module docstring)
 MAX_SWEEPS = 1000  # descent sweeps per call (a sweep that moves nothing ends it sooner)
@@ -175,7 +174,7 @@ def solve(
     if not time_limit > 0:
         raise InputError(f"time limit must be positive, got {time_limit}", where="search.time_limit_fence")
     # compile first: a first compile must not eat the restarts' share of the time limit
-    compile_seconds = warm_up()
+    compile_seconds = warm_up(rules.method if method is None else method)
     t0 = time.perf_counter()
     levels = []
     if start is None and uses_multilevel(problem.n, rules.method if method is None else method, multilevel):
@@ -281,7 +280,7 @@ def solve_once(
     if not time_limit > 0:
         raise InputError(f"time limit must be positive, got {time_limit}", where="search.time_limit_fence")
     check_problem(problem)
-    compile_seconds = warm_up()
+    compile_seconds = warm_up(method)
     n = problem.n
     t0 = time.perf_counter()
     if n == 0:
@@ -333,64 +332,6 @@ def solve_once(
     info["bounds_met"] = bool(sc.breaks == 0.0)
     info["seconds"] = time.perf_counter() - t0
     return Solution(labels=labels, score=sc, info=info, anchors=zone_anchors)
-
-
-# ---------------------------------------------------------------- compiling
-
-
-_WARM = False
-
-
-def warm_up() -> float:
-    """Compile (or load from cache) every kernel a search uses; seconds taken, 0 if done.
-
-    Runs each kernel once on a four-unit problem, so compile time is never counted against
-    a search's time limit.
-    """
-    global _WARM
-    if _WARM:
-        return 0.0
-    t0 = time.perf_counter()
-    from zonedesign.records import Bounds, Graph
-
-    g = Graph.from_edges(4, np.array([0, 1, 2]), np.array([1, 2, 3]), np.ones(3))
-    tiny = Problem(
-        graph=g,
-        counts=np.ones((4, 1)),
-        bounds=Bounds(("c",), np.array([1.0]), np.array([3.0]), np.array([2.0])),
-        attrs=np.zeros((4, 1)),
-        weight=np.ones(4),
-        area=np.ones(4),
-        perimeter=np.full(4, 4.0),
-    )
-    state = ZoneState(tiny)
-    st, zones = state.st, state.zones
-    everyone = np.arange(4, dtype=np.int64)
-    labels = np.full(4, -1, dtype=np.int64)
-    grow_zones(st, 1, 1.0, 1.0, labels, everyone, 0, 1.0, 1.0)
-    state.load(labels)
-    absorb_enclaves(st, 1)
-    KM.relabel(st, everyone, np.array([0, 0, 1, 1]), zones.anchor.copy(), everyone[:0])
-    state.load(np.array([0, 0, 1, 1]))
-    stats = np.zeros(2, dtype=np.int64)
-    descent_sweep(st, 1, np.empty(4, dtype=np.int64), stats)
-    local_descent(st, 1, everyone[:1], stats)
-    best, log, ctl, cti = _search_control(state)
-    sample_uphill(st, 1, 1)
-    anneal_block(st, 1, 1.0, 1, best, log, ctl, cti)
-    tabu_block(st, 1, 0, 1, 4, 1, 1, np.full(4, -1, dtype=np.int64), np.zeros(4, dtype=np.int64), best, log, ctl, cti)
-    for kind in range(len(MOVES)):
-        state.load(np.array([0, 0, 1, 1]))
-        warm_move(state, kind)
-    K.exact_totals(st)
-    state.load(np.array([0, 0, 1, 1]))
-    pair_pass(st, 1, 4, np.ones(4, dtype=np.int64), stats)
-    state.load(np.array([0, 0, 1, 1]))
-    KM.unit_links(st, 1, 0)
-    K.pair_total(np.zeros((2, 1)))
-    K.seed_rng(1)
-    _WARM = True
-    return time.perf_counter() - t0
 
 
 # ---------------------------------------------------------------- checks and starts

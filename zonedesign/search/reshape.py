@@ -11,7 +11,7 @@ labelling before the change (breaks first); otherwise the change's undo log
 Each kind of change is one `Move` in `MOVES`: its name and the compiled kernel that makes
 it (`make(st, w, zone)`, see `search.forced`). The blocks call the kernels through one
 dispatcher built from the registry, and `warm` runs a block of each kind on a tiny state
-(`engine.warm_up` calls it for every entry). A new move type is one entry here; the
+(`warm.warm_up` calls it for every entry). A new move type is one entry here; the
 reshape phase draws among the entries evenly.
 """
 

@@ -25,8 +25,8 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
-from zonedesign import measures
-from zonedesign.records import Problem
+from zonedesign import compilelock, measures
+from zonedesign.records import Bounds, Graph, Problem
 
 # frames of the walk per kernel call before the driver looks at the clock and the cap
 CHUNK_NODES = 200_000
@@ -61,6 +61,10 @@ class ZoneCount:
 
 
 # ---------------------------------------------------------------- bit sets
+
+# The kernels copy rows element by element, never by slice assignment (`a[i, :] = b[j]`):
+# numba compiles a formatted shape-mismatch error for every array-to-array slice
+# assignment, seconds of compile on a first run for no speed at all.
 
 
 @numba.njit(cache=True)
@@ -112,7 +116,8 @@ def _open_root(v, sets, sums, graph, counts, prune, hi) -> bool:
     for p in range(indptr[v], indptr[v + 1]):
         if indices[p] > v:
             _set(stX[0], indices[p])
-    sums[0, :] = counts[v, :]
+    for c in range(counts.shape[1]):
+        sums[0, c] = counts[v, c]
     return True
 
 
@@ -130,9 +135,10 @@ def _branch(top, sets, sums, graph, counts, prune, hi) -> int:
     if u < 0:
         return -1
     inc = top + 1
-    stS[inc, :] = stS[top, :]
-    stF[inc, :] = stF[top, :]
-    stX[inc, :] = stX[top, :]
+    for ww in range(stS.shape[1]):
+        stS[inc, ww] = stS[top, ww]
+        stF[inc, ww] = stF[top, ww]
+        stX[inc, ww] = stX[top, ww]
     _clear(stX[inc], u)
     _set(stS[inc], u)
     over = False
@@ -162,7 +168,8 @@ def _meets(sums_row, lo, hi) -> bool:
 @numba.njit(cache=True)
 def _root_figures(v, stats, stXS, unit) -> None:
     w, xw, xq, area, perimeter, _, _ = unit
-    stXS[0, :] = xw[v, :]
+    for a in range(xw.shape[1]):
+        stXS[0, a] = xw[v, a]
     stats[0, 0] = w[v]
     stats[0, 1] = xq[v]
     stats[0, 2] = area[v]
@@ -225,11 +232,14 @@ def _record(f, sets, sums, stats, stXS, unit, tally, out, n_out, n_mem):
     for p in range(start, n_mem):
         if prev[outMembers[p]] >= 0:
             tally[prev[outMembers[p]]] = 0
-    outSums[n_out, :] = sums[f]
-    outStats[n_out, :7] = stats[f, :7]
+    for c in range(sums.shape[1]):
+        outSums[n_out, c] = sums[f, c]
+    for j in range(7):
+        outStats[n_out, j] = stats[f, j]
     # stability: members outside the zone's anchor (the previous zone holding most of them)
     outStats[n_out, 7] = (stats[f, 6] - best) if any_prev else 0.0
-    outXS[n_out, :] = stXS[f]
+    for a in range(stXS.shape[1]):
+        outXS[n_out, a] = stXS[f, a]
     outPtr[n_out + 1] = n_mem
     return n_out + 1, n_mem
 
@@ -343,6 +353,7 @@ def count_feasible_zones(problem: Problem, cap: int, *, node_cap: int | None = N
     """
     if cap < 0:
         raise ValueError(f"cap must be >= 0, got {cap}")
+    warm_walk("count")
     node_cap = 50 * max(cap, 1_000) if node_cap is None else node_cap
     if problem.n == 0:
         return ZoneCount(0, True, 0)
@@ -397,6 +408,8 @@ def feasible_zones(
     problem: Problem, *, max_zones: int = 2_000_000, time_limit: float = 60.0
 ) -> FeasibleZones:
     """Every connected set of units meeting the bounds, priced like `measures.zone_cost`."""
+    # compiled (or loaded) before the clock starts: a compile must not eat the time limit
+    warm_walk("enumerate")
     start = time.perf_counter()
     n = problem.n
     graph, counts, bounds = _walk_inputs(problem)
@@ -461,3 +474,53 @@ def _price(problem: Problem, sums: np.ndarray, stats: np.ndarray, xs: np.ndarray
     for t in measures.TERMS:
         total += problem.term_weights.get(t, 0.0) * terms[t] / norm[t]
     return total
+
+
+# ---------------------------------------------------------------- compiling
+
+_WARM: set[str] = set()
+
+
+def _tiny_problem() -> Problem:
+    g = Graph.from_edges(3, np.array([0, 1]), np.array([1, 2]), np.ones(2))
+    return Problem(
+        graph=g,
+        counts=np.ones((3, 1)),
+        bounds=Bounds(("c",), np.array([1.0]), np.array([2.0]), np.array([np.nan])),
+        attrs=np.zeros((3, 1)),
+        weight=np.ones(3),
+        area=np.ones(3),
+        perimeter=np.full(3, 4.0),
+    )
+
+
+WALKS = {
+    "count": lambda: count_feasible_zones(_tiny_problem(), 10),
+    "enumerate": lambda: feasible_zones(_tiny_problem()),
+}
+
+
+def walk_folder():
+    """numba's cache folder of the walks (None when they are not cached)."""
+    return compilelock.cache_folder(_count)
+
+
+def walk_stamp() -> str:
+    return compilelock.sources_stamp([__file__])
+
+
+def warm_walk(name: str, *, wait: bool = True) -> bool:
+    """Compile (or load from cache) one walk's kernels, under its lock in the cache folder
+    (`zonedesign.compilelock`: a background process may be compiling it); once per process.
+    False when wait=False and another process holds it."""
+    if name in _WARM:
+        return True
+    _WARM.add(name)  # before running: the tiny run calls the walk's own driver
+    try:
+        done = compilelock.run_group(walk_folder(), f"walk-{name}", walk_stamp(), WALKS[name], wait=wait)
+    except BaseException:
+        _WARM.discard(name)
+        raise
+    if not done:
+        _WARM.discard(name)
+    return done
