@@ -15,6 +15,8 @@ import sys
 import time
 from pathlib import Path
 
+import numba
+import numpy as np
 from cli_support import write_inputs
 
 from zonedesign import compilelock
@@ -31,6 +33,35 @@ def test_a_group_held_by_another_is_skipped_then_run_once_released(tmp_path: Pat
     assert compilelock.is_done(tmp_path, "g", "s1")
     # another source stamp (edited kernels, another numba or CPU) is not done
     assert not compilelock.is_done(tmp_path, "g", "s2")
+
+
+def test_a_holder_past_the_wait_limit_is_not_waited_for(tmp_path: Path, monkeypatch) -> None:
+    monkeypatch.setattr(compilelock, "WAIT_LIMIT_SECONDS", 0.2)
+    ran = []
+    with compilelock.claimed(tmp_path, "g"):
+        assert compilelock.run_group(tmp_path, "g", "s", lambda: ran.append(1), wait=True)
+    assert ran == [1]
+
+
+@numba.njit
+def _draw() -> float:
+    return np.random.random()
+
+
+def test_warm_up_leaves_numbas_generator_seeded_alike_whatever_ran(monkeypatch) -> None:
+    # which groups a run compiles itself depends on the background process; what the
+    # search draws afterwards must not (numba keeps one generator of its own, apart from
+    # NumPy's: numba docs, "Supported NumPy features", random)
+    from zonedesign.search import kernels as K
+    from zonedesign.search import warm
+
+    draws = []
+    for names in (set(), {"search-state", "search-pairs"}, {"search-construct"}):
+        monkeypatch.setattr(warm, "_WARM", set(names))
+        warm.warm_up("annealing")
+        draws.append(_draw())
+    K.seed_rng(1)
+    assert draws == [_draw()] * 3
 
 
 def test_without_a_cache_folder_a_group_simply_runs(tmp_path: Path) -> None:

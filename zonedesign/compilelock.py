@@ -29,6 +29,10 @@ from zonedesign import interrupts
 
 # how often a process waiting for another's group looks again (it also checks the stop flag)
 POLL_SECONDS = 0.05
+# a group compiles in well under a minute even on a loaded machine; a holder past this
+# (a stopped or stuck process) is not waited for any longer: the group then runs
+# unguarded, which costs a second compile at worst (numba writes each cache file whole)
+WAIT_LIMIT_SECONDS = 600.0
 
 
 def cache_folder(dispatcher) -> Path | None:
@@ -92,10 +96,10 @@ def _mark_done(folder: Path, group: str, stamp: str) -> None:
 def claimed(folder: Path | None, group: str, *, wait: bool = True) -> Iterator[bool]:
     """Hold the group's lock for the block; yields whether it is held.
 
-    wait=True waits while another process holds it (checking the run's stop flag) and
-    always yields True, also when no lock can be taken (no cache folder, a folder that
-    cannot be written): then the block simply runs unguarded. wait=False yields False at
-    once when another process holds it.
+    wait=True waits while another process holds it (checking the run's stop flag, for at
+    most WAIT_LIMIT_SECONDS) and always yields True, also when no lock can be taken (no
+    cache folder, a folder that cannot be written): then the block simply runs unguarded.
+    wait=False yields False at once when another process holds it.
     """
     fh = None
     if folder is not None:
@@ -106,6 +110,7 @@ def claimed(folder: Path | None, group: str, *, wait: bool = True) -> Iterator[b
             fh = None
     try:
         if fh is not None:
+            give_up = time.monotonic() + WAIT_LIMIT_SECONDS
             while True:
                 try:
                     fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
@@ -115,6 +120,8 @@ def claimed(folder: Path | None, group: str, *, wait: bool = True) -> Iterator[b
                         yield False
                         return
                     interrupts.check()
+                    if time.monotonic() > give_up:
+                        break
                     time.sleep(POLL_SECONDS)
                 except OSError:
                     # a file system without locks: run unguarded

@@ -66,12 +66,14 @@ def _part_value(st, mask, units, m, eu, ev, el, ne, anchor, tc, sv):
     for t in range(a):
         sv[t] = 0.0
     W = 0.0
-    npos = 0
+    # int64 from the start: a plain 0 lets numba type the callee for the literal 0 first,
+    # a second compile of it (the same below)
+    npos = np.int64(0)
     Q = 0.0
     A = 0.0
     per = 0.0
     H = 0.0
-    nstab = 0
+    nstab = np.int64(0)
     stab = st.kind[2] == 1
     pairs = st.kind[0] == 1 and st.coef[1] != 0.0
     for j in range(m):
@@ -111,7 +113,7 @@ def best_pair_split(st, za, zb, loc, units, adj, eu, ev, el, tc, sv):
     loc: (n,) int64 all -1 (left so); units, adj: (MAX_PAIR_UNITS,) int64 scratch; eu, ev,
     el: scratch for the edges inside the pair; tc, sv: (c,) and (a,) float scratch.
     """
-    m = 0
+    m = np.int64(0)
     for z in (za, zb):
         u = st.head[z]
         while u >= 0:
@@ -122,7 +124,7 @@ def best_pair_split(st, za, zb, loc, units, adj, eu, ev, el, tc, sv):
     indptr = st.indptr
     indices = st.indices
     length = st.length
-    ne = 0
+    ne = np.int64(0)
     for j in range(m):
         adj[j] = 0
         u = units[j]

@@ -270,7 +270,8 @@ def _enumerate(v, sp, sets, sums, stats, stXS, graph, counts, bounds, unit, use_
             _root_figures(v, stats, stXS, unit)
             sp = 1
             if _meets(sums[0], lo, hi):
-                n_out, n_mem = _record(0, sets, sums, stats, stXS, unit, tally, out, n_out, n_mem)
+                # frame 0 as an int64, not the literal 0: one compile of _record, not two
+                n_out, n_mem = _record(np.int64(0), sets, sums, stats, stXS, unit, tally, out, n_out, n_mem)
         while sp > 0:
             if nodes >= budget:
                 return v, sp, n_out, n_mem, 2
