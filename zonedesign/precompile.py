@@ -1,12 +1,12 @@
 """Compile the kernels in a background process while a run reads its input.
 
 On an empty numba cache (a fresh install) a run's first search would compile every
-kernel itself, on one core. `start_background()` starts `python -m zonedesign.precompile`
-at the start of a command instead: it goes through the compile groups (the feasible-zone
-count, the search's groups from the first to the last, the feasible-zone enumeration),
-taking each group no other process holds and leaving numba's cache filled, while the run
-reads its input, builds its graph and then compiles the groups from the other end
-(`search.warm.warm_up`). See `zonedesign.compilelock` for how the two share the work.
+kernel itself, on one core. `start_background()`, called at the start of a command,
+starts a second Python process instead (`main`): it goes through the compile groups (the
+feasible-zone count, the search's groups from the first to the last, the feasible-zone
+enumeration), taking each group no other process holds and leaving numba's cache filled,
+while the run reads its input, builds its graph and then takes the groups from the other
+end (`search.warm.warm_up`). See `zonedesign.compilelock` for how the two share the work.
 
 The background process never changes what a run computes: the run always runs every group
 itself (loading it from the cache, or compiling it when the background process did not).
@@ -58,11 +58,14 @@ def start_background() -> bool:
         return False
     if all(compilelock.is_done(folder, name, stamp) for name, folder, stamp, _ in groups):
         return False
+    # this very package first on the path (not `-m`, which would put the working folder
+    # first, where another copy of the package may sit): the same sources, the same cache
+    here = str(Path(__file__).resolve().parent.parent)
+    code = f"import sys; sys.path.insert(0, {here!r}); from zonedesign.precompile import main; sys.exit(main(sys.argv[1:]))"
     try:
         _proc = subprocess.Popen(
-            [sys.executable, "-m", "zonedesign.precompile", str(os.getpid())],
+            [sys.executable, "-c", code, str(os.getpid())],
             stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-            # the same interpreter and import path, so the same sources and cache folders
             env=dict(os.environ),
         )
     except OSError:
