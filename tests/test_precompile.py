@@ -82,7 +82,7 @@ def _precompile_children(cache: Path) -> list[int]:
         if not pid.isdigit():
             continue
         try:
-            cmd = Path(f"/proc/{pid}/cmdline").read_bytes().split(b"\0")
+            cmd = Path(f"/proc/{pid}/cmdline").read_bytes()
             env = Path(f"/proc/{pid}/environ").read_bytes().split(b"\0")
         except OSError:
             continue
