@@ -370,7 +370,9 @@ def regrow_change(st, w, a):
     no = take + 1
     old = np.empty(no, dtype=np.int64)
     old[0] = a
-    old[1:] = near[:take]
+    # element by element: a slice assignment would compile numba's formatted shape error
+    for t in range(take):
+        old[1 + t] = near[t]
     region = w.perm
     m = 0
     for j in range(no):

@@ -116,14 +116,16 @@ def _warm_pairs() -> None:
     pair_pass(state.st, 1, 4, np.ones(4, dtype=np.int64), np.zeros(2, dtype=np.int64))
 
 
-# in the order a search first needs them; "state" comes first (every other group builds a
-# tiny state with its kernels)
+# the background process takes them in this order, a run from the last to the first:
+# "state" first (every other group builds a tiny state with its kernels), then the largest
+# compile by far (the reshape block), for the background process to start on it while the
+# run still reads its input
 GROUPS: dict[str, Callable[[], None]] = {
     "search-state": _warm_state,
+    "search-reshape": _warm_reshape,
     "search-construct": _warm_construct,
     "search-descent": _warm_descent,
     "search-anneal": _warm_anneal,
-    "search-reshape": _warm_reshape,
     "search-pairs": _warm_pairs,
     "search-tabu": _warm_tabu,
 }
