@@ -16,11 +16,19 @@ from zonedesign.report.svgmap import element_id
 from zonedesign.verify.repair import Move, RepairResult
 
 
-def _broken_lookup(tmp_path):
-    areas, rules = write_inputs(tmp_path / "in")
-    first = api.design(areas, rules, tmp_path / "designed", report=False, certify=False)
+@pytest.fixture(scope="module")
+def designed(tmp_path_factory):
+    """A valid design of the demo-shaped inputs (computed once for the module)."""
+    tmp = tmp_path_factory.mktemp("designed")
+    areas, rules = write_inputs(tmp / "in")
+    first = api.design(areas, rules, tmp / "designed", report=False, certify=False)
     assert first.exit_code == 0
-    lookup = pd.read_csv(tmp_path / "designed" / "lookup.csv", dtype=str)
+    return areas, rules, tmp / "designed" / "lookup.csv"
+
+
+def _broken_lookup(designed, tmp_path):
+    areas, rules, lookup_path = designed
+    lookup = pd.read_csv(lookup_path, dtype=str)
     # a far area put into another fence's block, and two blocks of one ward merged
     far = lookup.index[lookup["ward"] != lookup.loc[0, "ward"]][-1]
     lookup.loc[0, "block"] = lookup.loc[far, "block"]
@@ -32,20 +40,31 @@ def _broken_lookup(tmp_path):
     return areas, rules, path
 
 
+@pytest.fixture(scope="module")
+def repaired(designed, tmp_path_factory):
+    """One audit --repair of the broken lookup, its id column renamed, with the certificate
+    and the report: what a QA team runs (computed once for the module)."""
+    tmp = tmp_path_factory.mktemp("repaired")
+    areas, rules, broken = _broken_lookup(designed, tmp)
+    renamed = tmp / "renamed.csv"
+    pd.read_csv(broken, dtype=str).rename(columns={"area": "tract_code"}).to_csv(renamed, index=False)
+    res = api.audit(areas, rules, tmp / "audit", lookup=renamed, repair=True)
+    return areas, rules, res, tmp / "audit"
+
+
 @pytest.mark.slow
-def test_repair_gives_a_lookup_that_passes(tmp_path):
-    areas, rules, broken = _broken_lookup(tmp_path)
-    res = api.audit(areas, rules, tmp_path / "audit", lookup=broken, repair=True, report=False)
+def test_repair_gives_a_lookup_that_passes(repaired):
+    areas, rules, res, out = repaired
     assert res.exit_code == 1  # the input hierarchy breaks rules
     assert res.summary["repair"]["repaired_lookup_passes"]
-    again = api.audit(areas, rules, None, lookup=tmp_path / "audit" / "repaired" / "lookup.csv", report=False)
+    again = api.audit(areas, rules, None, lookup=out / "repaired" / "lookup.csv", report=False)
     assert again.exit_code == 0
-    moves = pd.read_csv(tmp_path / "audit" / "repair.csv")
+    moves = pd.read_csv(out / "repair.csv")
     assert len(moves) == res.summary["repair"]["moves"] > 0
 
 
-def test_when_the_cp_sat_repair_cannot_finish_the_search_mends_it_and_says_so(tmp_path, monkeypatch):
-    areas, rules, broken = _broken_lookup(tmp_path)
+def test_when_the_cp_sat_repair_cannot_finish_the_search_mends_it_and_says_so(designed, tmp_path, monkeypatch):
+    areas, rules, broken = _broken_lookup(designed, tmp_path)
 
     def gives_up(areas_, graph, labels, tiers, **kw):
         return RepairResult(moves=[], labels=None, status="undecided", reason="time limit")
@@ -58,9 +77,9 @@ def test_when_the_cp_sat_repair_cannot_finish_the_search_mends_it_and_says_so(tm
     assert again.exit_code == 0
 
 
-def test_an_unproven_cp_sat_repair_gives_way_to_a_search_repair_with_fewer_moves(tmp_path, monkeypatch):
-    areas, rules, broken = _broken_lookup(tmp_path)
-    designed = pd.read_csv(tmp_path / "designed" / "lookup.csv", dtype=str)
+def test_an_unproven_cp_sat_repair_gives_way_to_a_search_repair_with_fewer_moves(designed, tmp_path, monkeypatch):
+    areas, rules, broken = _broken_lookup(designed, tmp_path)
+    designed = pd.read_csv(designed[2], dtype=str)
     # a valid but wasteful "repair": the design itself with two blocks of a ward swapping names
     ward = designed.loc[0, "ward"]
     a, b = sorted(set(designed.loc[designed["ward"] == ward, "block"]))[:2]
@@ -87,14 +106,10 @@ def test_an_unproven_cp_sat_repair_gives_way_to_a_search_repair_with_fewer_moves
 
 
 @pytest.mark.slow
-def test_the_repaired_hierarchy_is_a_full_output_that_the_report_and_show_describe(tmp_path):
+def test_the_repaired_hierarchy_is_a_full_output_that_the_report_and_show_describe(repaired):
     from zonedesign.cli.show import show
 
-    areas, rules, broken = _broken_lookup(tmp_path)
-    renamed = tmp_path / "renamed.csv"
-    pd.read_csv(broken, dtype=str).rename(columns={"area": "tract_code"}).to_csv(renamed, index=False)
-    res = api.audit(areas, rules, tmp_path / "audit", lookup=renamed, repair=True, certify=False)
-    out = tmp_path / "audit"
+    _, _, res, out = repaired
     folder = out / "repaired"
     for name in ("lookup.csv", "zones.gpkg", "changes.csv", "area_changes.csv", "report.html"):
         assert (folder / name).is_file(), name
