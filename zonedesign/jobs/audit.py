@@ -4,9 +4,12 @@ from __future__ import annotations
 
 import time
 from collections.abc import Mapping
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from zonedesign.cli.progress import Stages
 from zonedesign.errors import InputError
@@ -100,61 +103,8 @@ def audit(
     repaired = None
     moves = None
     if repair and not checked.ok:
-        from zonedesign.verify.repair import minimal_repair
-
         t0 = time.perf_counter()
-        stage("searching for the fewest area moves that mend every break")
-        # the budget is solver work, not seconds, so the same lookup gets the same repair on
-        # any machine and under any load; the wall-clock cap only ends a runaway model
-        # the model keeps locked zones as they are and holds each fence to its own bounds
-        res = minimal_repair(prep.areas, prep.graph, labels, tiers, time_limit=AUDIT_REPAIR_CAP,
-                             deterministic_time=AUDIT_REPAIR_WORK, locks=prep.locks.codes if prep.locks else None)
-        moves = res.repair_frame()
-        repaired = res.labels
-        recheck = run_audit(prep.areas, prep.graph, repaired, tiers) if repaired is not None else None
-        if recheck is not None and prep.locks:
-            from zonedesign.locks import lock_breaks
-
-            if lock_breaks(prep.locks, repaired, prep.areas):
-                recheck = None  # a repair that moves a locked zone is none (a safeguard)
-        summary.repair = RepairPart(
-            method="cp-sat (fewest moves)",
-            status=res.status,
-            proven_fewest=res.status == "optimal",
-            moves=int(len(moves)),
-            repaired_lookup_passes=bool(recheck.ok) if recheck is not None else False,
-        )
-        if recheck is None or not recheck.ok or res.status != "optimal":
-            # not proven fewest: the redraw search may mend with fewer moves, or mend at all
-            stage("the CP-SAT repair is not proven fewest; trying the redraw search as well")
-            mended = search_repair(prep, labels)
-            again = run_audit(prep.areas, prep.graph, mended, tiers)
-            search_moves = repair_moves(prep.areas.ids, labels, mended)
-            summary.repair.extra["redraw_search_moves"] = int(len(search_moves)) if again.ok else None
-            cp_sat_failed = recheck is None or not recheck.ok
-            mends_with_fewer = again.ok and (cp_sat_failed or len(search_moves) < len(moves))
-            leaves_fewer_faults = not again.ok and (
-                recheck is None or len(again.violations) < len(recheck.violations)
-            )
-            if mends_with_fewer or leaves_fewer_faults:
-                repaired = mended
-                moves = search_moves
-                summary.repair = RepairPart(
-                    method="redraw search (not proven fewest moves)",
-                    # a solve word: valid, proven impossible, or neither
-                    status="feasible" if again.ok else ("infeasible" if res.status == "infeasible" else "undecided"),
-                    proven_fewest=False,
-                    moves=int(len(moves)),
-                    repaired_lookup_passes=bool(again.ok),
-                    extra={"mends_every_break": bool(again.ok), "cp_sat_status": res.status},
-                )
-        if repaired is not None:
-            from zonedesign.tiers.naming import moved_areas
-
-            summary.repair.moved_per_tier = {
-                n: int(moved_areas(codes_of(labels[n]), repaired[n]).sum()) for n in names
-            }
-            summary.repair.folder = "repaired"
+        summary.repair, repaired, moves = repair_policy(prep, labels, stage)
         seconds["repair"] = time.perf_counter() - t0
     stage.close()
     tables = {}
@@ -176,34 +126,120 @@ def audit(
     summary.exit_code = rc
     summary.settle()
     if out is not None:
-        from zonedesign.io.output import atomic_output, write_json
-
-        with atomic_output(Path(out), overwrite=overwrite, inputs=prep.inputs) as tmp:
-            say(progress, f"writing {out}")
-            write_json(tmp / "audit.json", summary.audit)
-            checked.violations_frame().to_csv(tmp / "violations.csv", index=False, lineterminator="\n")
-            if certify:
-                write_json(tmp / "certificate.json", summary.certificate)
-            if moves is not None:
-                moves.to_csv(tmp / "repair.csv", index=False, lineterminator="\n")
-                if repaired is not None:
-                    write_repaired(tmp / "repaired", prep, labels, repaired, summary,
-                                   id_column=id_column(lookup, prep), report=report)
-            layers = {}
-            if tables:
-                from zonedesign.dissolve import zone_layers
-                from zonedesign.io.output import write_layers_gpkg
-
-                layers = zone_layers(prep.geometry, labels, tables)
-                write_layers_gpkg(tmp / "zones.gpkg", layers)
-            seconds["total"] = time.perf_counter() - t_start
-            summary.seconds = {k: round(v, 3) for k, v in seconds.items()}
-            if report:
-                from zonedesign.report.html import write_report
-
-                write_report(tmp / "report.html", summary=summary, tables=tables, layers=layers)
-            write_json(tmp / "summary.json", summary)
+        written = AuditOutput(checked, labels, repaired, moves, tables, id_column(lookup, prep))
+        write_audit(Path(out), prep, summary, written, seconds, t_start,
+                    overwrite=overwrite, certify=certify, report=report, progress=progress)
     return RunResult(out=None if out is None else Path(out), record=summary, exit_code=rc, lookup=labels)
+
+
+def repair_policy(prep: Prepared, labels: Mapping[str, np.ndarray], stage: Stages
+                  ) -> tuple[RepairPart, dict[str, np.ndarray] | None, pd.DataFrame]:
+    """The repair of a broken hierarchy: CP-SAT's fewest moves first; when that is not
+    proven (or mends nothing), the redraw search too, keeping whichever mends with fewer
+    moves or leaves fewer faults. Returns the summary part, the repaired labels (None when
+    none) and the moves."""
+    from zonedesign.tiers.naming import moved_areas
+    from zonedesign.verify.checks import audit as run_audit
+    from zonedesign.verify.repair import minimal_repair
+
+    tiers = list(prep.rules.tiers)
+    stage("searching for the fewest area moves that mend every break")
+    # the budget is solver work, not seconds, so the same lookup gets the same repair on
+    # any machine and under any load; the wall-clock cap only ends a runaway model
+    # the model keeps locked zones as they are and holds each fence to its own bounds
+    res = minimal_repair(prep.areas, prep.graph, labels, tiers, time_limit=AUDIT_REPAIR_CAP,
+                         deterministic_time=AUDIT_REPAIR_WORK, locks=prep.locks.codes if prep.locks else None)
+    moves = res.repair_frame()
+    repaired = res.labels
+    recheck = run_audit(prep.areas, prep.graph, repaired, tiers) if repaired is not None else None
+    if recheck is not None and prep.locks:
+        from zonedesign.locks import lock_breaks
+
+        if lock_breaks(prep.locks, repaired, prep.areas):
+            recheck = None  # a repair that moves a locked zone is none (a safeguard)
+    part = RepairPart(
+        method="cp-sat (fewest moves)",
+        status=res.status,
+        proven_fewest=res.status == "optimal",
+        moves=int(len(moves)),
+        repaired_lookup_passes=bool(recheck.ok) if recheck is not None else False,
+    )
+    if recheck is None or not recheck.ok or res.status != "optimal":
+        # not proven fewest: the redraw search may mend with fewer moves, or mend at all
+        stage("the CP-SAT repair is not proven fewest; trying the redraw search as well")
+        mended = search_repair(prep, labels)
+        again = run_audit(prep.areas, prep.graph, mended, tiers)
+        search_moves = repair_moves(prep.areas.ids, labels, mended)
+        part.extra["redraw_search_moves"] = int(len(search_moves)) if again.ok else None
+        cp_sat_failed = recheck is None or not recheck.ok
+        mends_with_fewer = again.ok and (cp_sat_failed or len(search_moves) < len(moves))
+        leaves_fewer_faults = not again.ok and (
+            recheck is None or len(again.violations) < len(recheck.violations)
+        )
+        if mends_with_fewer or leaves_fewer_faults:
+            repaired = mended
+            moves = search_moves
+            part = RepairPart(
+                method="redraw search (not proven fewest moves)",
+                # a solve word: valid, proven impossible, or neither
+                status="feasible" if again.ok else ("infeasible" if res.status == "infeasible" else "undecided"),
+                proven_fewest=False,
+                moves=int(len(moves)),
+                repaired_lookup_passes=bool(again.ok),
+                extra={"mends_every_break": bool(again.ok), "cp_sat_status": res.status},
+            )
+    if repaired is not None:
+        part.moved_per_tier = {
+            t.name: int(moved_areas(codes_of(labels[t.name]), repaired[t.name]).sum()) for t in tiers
+        }
+        part.folder = "repaired"
+    return part, repaired, moves
+
+
+@dataclass
+class AuditOutput:
+    """What an audit writes besides its summary."""
+
+    checked: Any  # the checker's report
+    labels: Mapping[str, np.ndarray]
+    repaired: Mapping[str, np.ndarray] | None
+    moves: pd.DataFrame | None
+    tables: dict
+    id_column: str
+
+
+def write_audit(out: Path, prep: Prepared, summary: Any, written: AuditOutput, seconds: dict, t_start: float,
+                *, overwrite: bool, certify: bool, report: bool, progress: Progress | None) -> None:
+    """The audit's folder, written whole or not at all: audit.json, violations.csv, the
+    certificate, the repair (repair.csv and a full output in repaired/), the audited zones'
+    layers, the report and summary.json."""
+    from zonedesign.io.output import atomic_output, write_json
+
+    with atomic_output(out, overwrite=overwrite, inputs=prep.inputs) as tmp:
+        say(progress, f"writing {out}")
+        write_json(tmp / "audit.json", summary.audit)
+        written.checked.violations_frame().to_csv(tmp / "violations.csv", index=False, lineterminator="\n")
+        if certify:
+            write_json(tmp / "certificate.json", summary.certificate)
+        if written.moves is not None:
+            written.moves.to_csv(tmp / "repair.csv", index=False, lineterminator="\n")
+            if written.repaired is not None:
+                write_repaired(tmp / "repaired", prep, written.labels, written.repaired, summary,
+                               id_column=written.id_column, report=report)
+        layers = {}
+        if written.tables:
+            from zonedesign.dissolve import zone_layers
+            from zonedesign.io.output import write_layers_gpkg
+
+            layers = zone_layers(prep.geometry, written.labels, written.tables)
+            write_layers_gpkg(tmp / "zones.gpkg", layers)
+        seconds["total"] = time.perf_counter() - t_start
+        summary.seconds = {k: round(v, 3) for k, v in seconds.items()}
+        if report:
+            from zonedesign.report.html import write_report
+
+            write_report(tmp / "report.html", summary=summary, tables=written.tables, layers=layers)
+        write_json(tmp / "summary.json", summary)
 
 
 def breaks_left(prep: Prepared, repaired: Mapping[str, np.ndarray], tiers: list,
