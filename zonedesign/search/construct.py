@@ -65,6 +65,9 @@ def grow_region(st, alpha, beta, labels, perm, m_units, k0, aim_lo, aim_hi, fr, 
     can grow again and again over the same scratch at a cost proportional to the region.
     Units of zones that missed a floor are set back to -1 when they are in perm[:m_units]
     (left at -2 otherwise), so every unit labelled -1 should be there.
+
+    One kernel on purpose: numba compiles each callee again inside its caller, so cutting this
+    into helpers adds compile time and calls in the hot loop without making it clearer.
     """
     indptr = st.indptr
     indices = st.indices

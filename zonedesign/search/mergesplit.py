@@ -393,6 +393,9 @@ def try_split(st, zone, ntrees, loc, force):
 
     Makes the cut when it improves (breaks, objective), or always when force is set.
     Returns the new zone's slot, or -1. loc: (n,) int64 scratch.
+
+    One kernel on purpose: numba compiles each callee again inside its caller, so cutting this
+    into helpers adds compile time and calls in the hot loop without making it clearer.
     """
     m = st.size[zone]
     if m < 2:

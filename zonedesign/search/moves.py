@@ -245,7 +245,10 @@ def move_values(st, i, a, b, la, lb):
 
 @inner
 def apply_move(st, i, b, la, lb):
-    """Move unit i to zone b (i may be unassigned); la, lb: i's shared length with each."""
+    """Move unit i to zone b (i may be unassigned); la, lb: i's shared length with each.
+
+    One kernel on purpose: numba compiles each callee again inside its caller, so cutting this
+    into helpers adds compile time and calls in the hot loop without making it clearer."""
     labels = st.labels
     counts = st.counts
     x = st.x

@@ -112,6 +112,9 @@ def best_pair_split(st, za, zb, loc, units, adj, eu, ev, el, tc, sv):
 
     loc: (n,) int64 all -1 (left so); units, adj: (MAX_PAIR_UNITS,) int64 scratch; eu, ev,
     el: scratch for the edges inside the pair; tc, sv: (c,) and (a,) float scratch.
+
+    One kernel on purpose: numba compiles each callee again inside its caller, so cutting this
+    into helpers adds compile time and calls in the hot loop without making it clearer.
     """
     m = np.int64(0)
     for z in (za, zb):

@@ -47,6 +47,9 @@ def tabu_block(
     Stops (returns -1) when no admissible move remains or after max_no_improve iterations
     without a new best. tabu_zone / tabu_until: (n,) the zone each unit may not re-enter
     and the iteration that ban ends. best_labels, log, ctl, cti as for anneal_block.
+
+    One kernel on purpose: numba compiles each callee again inside its caller, so cutting this
+    into helpers adds compile time and calls in the hot loop without making it clearer.
     """
     labels = st.labels
     size = st.size
