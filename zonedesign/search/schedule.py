@@ -14,7 +14,7 @@ The presets (`effort` in the rules' [search] table):
 | effort | moves_per_unit | cooling | moves of a 2,000-unit fence |
 |---|---|---|---|
 | quick | 150 | 0.94 | 0.3 million |
-| default | 600 | 0.97 | 1.2 million |
+| default | 350 | 0.97 | 0.7 million |
 | thorough | 12,000 | 0.99 | 24 million |
 
 `thorough` is what the `quality-scale` benchmark runs for its best-known references.
@@ -30,7 +30,7 @@ from zonedesign.rules import SearchRules
 
 PRESETS: dict[str, tuple[int, float]] = {
     "quick": (150, 0.94),
-    "default": (600, 0.97),
+    "default": (350, 0.97),
     "thorough": (12_000, 0.99),
 }
 FLOOR_UNITS = 1500  # a fence smaller than this gets about the moves of one this size
