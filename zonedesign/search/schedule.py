@@ -37,7 +37,7 @@ FLOOR_UNITS = 1500  # a fence smaller than this gets about the moves of one this
 MAX_RUNS = 16
 MIN_RUN_MOVES = 20_000  # fewer moves than this make too short a schedule to be worth a run
 # a schedule ends at this share of its start temperature (with the default's cooling, 53
-# steps of about 11 x units); with the start at 1 % acceptance of the average uphill move
+# steps of about 6.6 x units); with the start at 1 % acceptance of the average uphill move
 # (engine.ANNEAL_START_ACCEPT) it spans the range where the best zonings of the
 # quality-scale fences form; colder ends measured no better there
 FINAL_TEMPERATURE = 0.2
