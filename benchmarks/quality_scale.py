@@ -113,23 +113,30 @@ def previous_default(n: int) -> SearchRules:
 
 
 # what the engine did before the quality-scale work besides its schedule: the first
-# temperature took 10 % of the average uphill move, and no pair of zones was repartitioned
-PREVIOUS_ENGINE = {"ANNEAL_START_ACCEPT": 0.1, "PAIR_UNITS": 0}
+# temperature took 10 % of the average uphill move, no pair of zones was repartitioned,
+# and the reshape phase made 0.2 x units tries (module, name, value)
+PREVIOUS_ENGINE = (
+    ("zonedesign.search.engine", "ANNEAL_START_ACCEPT", 0.1),
+    ("zonedesign.search.engine", "PAIR_UNITS", 0),
+    ("zonedesign.search.reshape", "RESHAPE_TRIES", 0.2),
+)
 
 
 @contextmanager
 def previous_engine():
     """The engine's settings as they were before (PREVIOUS_ENGINE), for the previous default."""
-    from zonedesign.search import engine
+    import importlib
 
-    kept = {k: getattr(engine, k) for k in PREVIOUS_ENGINE}
-    for k, v in PREVIOUS_ENGINE.items():
-        setattr(engine, k, v)
+    kept = []
+    for module, name, value in PREVIOUS_ENGINE:
+        mod = importlib.import_module(module)
+        kept.append((mod, name, getattr(mod, name)))
+        setattr(mod, name, value)
     try:
         yield
     finally:
-        for k, v in kept.items():
-            setattr(engine, k, v)
+        for mod, name, value in kept:
+            setattr(mod, name, value)
 
 
 def run(problem, rules: SearchRules, seed: int, multilevel: bool | None = None, previous: bool = False) -> dict:
