@@ -68,7 +68,9 @@ def finish(
     breaks = bound_breaks(tiers, tables)
     mark_locked_breaks(prep, breaks)
     summary.bound_breaks = breaks
-    stage(f"seeking proofs for {len({(b.tier, b.fence) for b in breaks})} fence(s) with bound breaks")
+    broken = len({(b.tier, b.fence) for b in breaks})
+    stage(f"seeking proofs for {broken} fence(s) with bound breaks" if broken
+          else "every zone within its bounds: no proof to seek")
     summary.proofs = explain_breaks(prep, lookup, breaks)
     stage.close()
     summary.seconds = {k: round(v, 3) for k, v in seconds.items()}
