@@ -104,7 +104,7 @@ def audit(
     moves = None
     if repair and not checked.ok:
         t0 = time.perf_counter()
-        summary.repair, repaired, moves = repair_policy(prep, labels, stage)
+        summary.repair, repaired, moves, after = repair_policy(prep, labels, stage)
         seconds["repair"] = time.perf_counter() - t0
     stage.close()
     tables = {}
@@ -122,7 +122,7 @@ def audit(
     rc = 0 if summary.audit.ok and not overlay_flags and all(c.ok for c in certs) else 1
     if repaired is not None:
         summary.repair.breaks_left, summary.repair.breaks_left_forced = breaks_left(
-            prep, repaired, tiers, summary.proofs or [])
+            prep, after, summary.proofs or [])
     summary.exit_code = rc
     summary.settle()
     if out is not None:
@@ -133,11 +133,11 @@ def audit(
 
 
 def repair_policy(prep: Prepared, labels: Mapping[str, np.ndarray], stage: Stages
-                  ) -> tuple[RepairPart, dict[str, np.ndarray] | None, pd.DataFrame]:
+                  ) -> tuple[RepairPart, dict[str, np.ndarray] | None, pd.DataFrame, Any]:
     """The repair of a broken hierarchy: CP-SAT's fewest moves first; when that is not
     proven (or mends nothing), the redraw search too, keeping whichever mends with fewer
     moves or leaves fewer faults. Returns the summary part, the repaired labels (None when
-    none) and the moves."""
+    none), the moves and the checker's report on the repaired labels (None when none)."""
     from zonedesign.tiers.naming import moved_areas
     from zonedesign.verify.checks import audit as run_audit
     from zonedesign.verify.repair import minimal_repair
@@ -152,6 +152,7 @@ def repair_policy(prep: Prepared, labels: Mapping[str, np.ndarray], stage: Stage
     moves = res.repair_frame()
     repaired = res.labels
     recheck = run_audit(prep.areas, prep.graph, repaired, tiers) if repaired is not None else None
+    after = recheck
     if recheck is not None and prep.locks:
         from zonedesign.locks import lock_breaks
 
@@ -179,6 +180,7 @@ def repair_policy(prep: Prepared, labels: Mapping[str, np.ndarray], stage: Stage
         if mends_with_fewer or leaves_fewer_faults:
             repaired = mended
             moves = search_moves
+            after = again
             part = RepairPart(
                 method="redraw search (not proven fewest moves)",
                 # a solve word: valid, proven impossible, or neither
@@ -193,7 +195,7 @@ def repair_policy(prep: Prepared, labels: Mapping[str, np.ndarray], stage: Stage
             t.name: int(moved_areas(codes_of(labels[t.name]), repaired[t.name]).sum()) for t in tiers
         }
         part.folder = "repaired"
-    return part, repaired, moves
+    return part, repaired, moves, after
 
 
 @dataclass
@@ -242,13 +244,10 @@ def write_audit(out: Path, prep: Prepared, summary: Any, written: AuditOutput, s
         write_json(tmp / "summary.json", summary)
 
 
-def breaks_left(prep: Prepared, repaired: Mapping[str, np.ndarray], tiers: list,
-                proofs: list[ProofEntry]) -> tuple[int, int]:
-    """What the repaired hierarchy still breaks, and how much of it is proven forced: a
-    bound break in a fence-tier the proofs show no zoning can mend, or a locked zone's."""
-    from zonedesign.verify.checks import audit as run_audit
-
-    after = run_audit(prep.areas, prep.graph, repaired, tiers)
+def breaks_left(prep: Prepared, after: Any, proofs: list[ProofEntry]) -> tuple[int, int]:
+    """What the repaired hierarchy still breaks (`after`, the checker's report on it), and
+    how much of it is proven forced: a bound break in a fence-tier the proofs show no
+    zoning can mend, or a locked zone's."""
     locked = {name: set(prep.locks.zones(name)) for name in prep.locks.codes} if prep.locks else {}
     proven = {(p.tier, p.fence) for p in proofs if p.status == "INFEASIBLE"}
     forced = [
