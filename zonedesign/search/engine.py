@@ -79,6 +79,7 @@ from zonedesign.search.reshape import growth_weights, reshape
 from zonedesign.search.schedule import fence_schedule
 from zonedesign.search.state import ZoneState, check_problem, full_score, search_normalisers
 from zonedesign.search.tabu import tabu_block
+from zonedesign.search.triples import TripleWork, triple_pass
 from zonedesign.search.warm import warm_up
 
 # budgets (the primary stop criteria; see the module docstring)
@@ -99,6 +100,8 @@ TABU_MAX_ITER = 5  # x max_no_improve
 TABU_SAMPLE = 48  # boundary units priced per iteration once there are more
 BLOCK = 256  # tabu iterations per compiled call (time checks between calls)
 PAIR_UNITS = 12  # pairs of zones with at most this many units are repartitioned exactly
+TRIPLE_UNITS = 15  # and three zones of at most this many units, once no pair changes
+AGREE_RUNS = 3  # independent runs that end on the same best zoning end a fence's search
 MIN_WORK = 200  # floor of the per-unit budgets, for tiny problems
 
 
@@ -135,6 +138,7 @@ class _Run:
             "rounds": 0,
             "stopped_by_time": False,
         }
+        self.triples: _Triples | None = None
 
     def seed(self) -> int:
         return int(self.rng.integers(0, 2**31 - 1))
@@ -208,6 +212,7 @@ def _solve_restarts(
     runs = 1 if start is not None else fence_schedule(rules, problem.n).runs
     t0 = time.perf_counter()
     best: Solution | None = None
+    keys: list[tuple[float, float]] = []
     for r in range(runs):
         left = time_limit - (time.perf_counter() - t0)
         if r > 0 and left <= 0:
@@ -218,9 +223,18 @@ def _solve_restarts(
         )
         if best is None or sol.score.key() < best.score.key():
             best = sol
+        keys.append(sol.score.key())
+        if AGREE_RUNS and start is None and _agreed(keys, best.score.key()) >= AGREE_RUNS:
+            break
     assert best is not None
     best.info["restarts"] = runs
+    best.info["runs_done"] = len(keys)
     return best
+
+
+def _agreed(keys: list[tuple[float, float]], best: tuple[float, float]) -> int:
+    """Runs whose (breaks, total) equals the best one's (to rounding)."""
+    return sum(1 for b, t in keys if abs(b - best[0]) <= 1e-9 and abs(t - best[1]) <= 1e-9 * max(1.0, abs(best[1])))
 
 
 def _solve_multilevel(
@@ -320,7 +334,7 @@ def solve_once(
         _improve(run)
     if method != "descent" and not run.out_of_time():
         reshape(run)
-        _improve(run, pairs=True)
+        _improve(run, pairs=True, triples=True)
 
     labels, zone_anchors = state.compact()
     if norm is None:
@@ -411,13 +425,19 @@ def _descent(run: _Run) -> None:
     run.info["moves_accepted"] += int(stats[1])
 
 
-def _improve(run: _Run, pairs: bool = False) -> None:
-    """Descent, merges and splits (and with `pairs`, pair repartitions) until none of them
-    changes anything."""
+def _improve(run: _Run, pairs: bool = False, triples: bool = False) -> None:
+    """Descent, merges and splits (and with `pairs`, pair repartitions; with `triples`
+    too, triple repartitions once no pair changes) until none of them changes anything."""
     st = run.state.st
     changed = 1
     stats = np.zeros(2, dtype=np.int64)
     active = last = None
+    tri = None
+    if pairs and triples and TRIPLE_UNITS > 0:
+        # one per run: a later improvement prices only the triples changed since
+        if run.triples is None:
+            run.triples = _Triples.of(run.state)
+        tri = run.triples
     for _ in range(MAX_ROUNDS):
         run.state.resync()
         _descent(run)
@@ -445,11 +465,47 @@ def _improve(run: _Run, pairs: bool = False) -> None:
             last = labels.copy()
             run.info["pair_splits"] = run.info.get("pair_splits", 0) + p
             changed += p
+            if changed == 0 and tri is not None:
+                changed += tri.step(run)
         if changed == 0:
             break
     if changed:
         run.state.resync()
         _descent(run)
+
+
+class _Triples:
+    """Triple repartition rounds of one `_improve`: each prices the triples with a zone
+    changed since the last round."""
+
+    def __init__(self, state: ZoneState):
+        d = state.data
+        self.work = TripleWork(state.problem.n, d.counts.shape[1], d.x.shape[1])
+        self.active = np.ones(state.zones.size.size, dtype=np.int64)
+        self.last: np.ndarray | None = None
+        self.stats = np.zeros(2, dtype=np.int64)
+
+    @classmethod
+    def of(cls, state: ZoneState) -> _Triples | None:
+        """None where the pass does not apply: stability counts, or a count is negative
+        (a part over an upper bound could shrink again by growing)."""
+        d = state.data
+        if d.kind[2] == 1 or (d.counts.size and float(d.counts.min()) < 0.0):
+            return None
+        return cls(state)
+
+    def step(self, run: _Run) -> int:
+        labels = run.state.zones.labels
+        if self.last is not None:
+            moved = np.flatnonzero(labels != self.last)
+            self.active[labels[moved]] = 1
+            self.active[self.last[moved]] = 1
+        t = int(triple_pass(run.state.st, run.seed(), TRIPLE_UNITS, self.active, self.stats, *self.work.arrays()))
+        self.last = labels.copy()
+        run.info["triple_splits"] = run.info.get("triple_splits", 0) + t
+        run.info["triples_priced"] = run.info.get("triples_priced", 0) + int(self.stats[0])
+        self.stats[0] = 0
+        return t
 
 
 def _search_control(state: ZoneState) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:

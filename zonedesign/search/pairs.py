@@ -178,22 +178,34 @@ def best_pair_split(st, za, zb, loc, units, adj, eu, ev, el, tc, sv):
         return 0
     first = zb if best_swap else za
     second = za if best_swap else zb
+    want = np.empty(m, dtype=np.int64)
+    for j in range(m):
+        want[j] = first if (best_mask >> j) & 1 else second
+    zones = np.empty(2, dtype=np.int64)
+    zones[0] = za
+    zones[1] = zb
+    relabel_parts(st, units, m, want, zones)
+    return 1
+
+
+@njit(cache=True)
+def relabel_parts(st, units, m, want, zones):
+    """Move each local unit units[j] (j < m) to zone want[j], then recompute `zones` (the
+    zones the units were and are in) and the boundary counts around the units."""
     for j in range(m):
         u = units[j]
-        want = first if (best_mask >> j) & 1 else second
         old = st.labels[u]
-        if old != want:
+        if old != want[j]:
             unlink(st, u, old)
-            link(st, u, want)
-            st.labels[u] = want
-    recompute_zone(st, za)
-    recompute_zone(st, zb)
+            link(st, u, want[j])
+            st.labels[u] = want[j]
+    for z in zones:
+        recompute_zone(st, z)
     for j in range(m):
         u = units[j]
         recount(st, u)
-        for p in range(indptr[u], indptr[u + 1]):
-            recount(st, indices[p])
-    return 1
+        for p in range(st.indptr[u], st.indptr[u + 1]):
+            recount(st, st.indices[p])
 
 
 @njit(cache=True)

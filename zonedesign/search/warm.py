@@ -29,6 +29,7 @@ from zonedesign.search.reshape import MOVES
 from zonedesign.search.reshape import warm as warm_move
 from zonedesign.search.state import ZoneState
 from zonedesign.search.tabu import tabu_block
+from zonedesign.search.triples import TripleWork, triple_pass
 
 _WARM: set[str] = set()  # groups run in this process
 TWO_ZONES = np.array([0, 0, 1, 1])
@@ -114,6 +115,9 @@ def _warm_reshape() -> None:
 def _warm_pairs() -> None:
     state = tiny_state()
     pair_pass(state.st, 1, 4, np.ones(4, dtype=np.int64), np.zeros(2, dtype=np.int64))
+    d = state.data
+    work = TripleWork(d.counts.shape[0], d.counts.shape[1], d.x.shape[1])
+    triple_pass(state.st, 1, 6, np.ones(state.zones.size.size, dtype=np.int64), np.zeros(2, dtype=np.int64), *work.arrays())
 
 
 # the background process takes them in this order, a run from the last to the first:
@@ -130,7 +134,8 @@ GROUPS: dict[str, Callable[[], None]] = {
     "search-tabu": _warm_tabu,
 }
 # the groups each method's search runs (engine.solve_once: descent merges and splits,
-# annealing and tabu add their blocks, the reshape moves and the exact pair repartition)
+# annealing and tabu add their blocks, the reshape moves and the exact pair and triple
+# repartitions)
 _COMMON = ("search-state", "search-construct", "search-descent", "search-reshape")
 NEEDS: dict[str, tuple[str, ...]] = {
     "descent": _COMMON,
