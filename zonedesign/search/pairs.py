@@ -219,17 +219,7 @@ def pair_pass(st, seed, max_units, active, stats):
     n = st.labels.shape[0]
     K = st.size.shape[0]
     max_units = min(max_units, MAX_PAIR_UNITS)
-    order = np.empty(K, dtype=np.int64)
-    nz = 0
-    for z in range(K):
-        if st.size[z] > 0:
-            order[nz] = z
-            nz += 1
-    for t in range(nz - 1, 0, -1):
-        r = np.random.randint(t + 1)
-        tmp = order[t]
-        order[t] = order[r]
-        order[r] = tmp
+    order, nz = shuffled_zones(st)
     loc = np.full(n, -1, dtype=np.int64)
     units = np.empty(MAX_PAIR_UNITS, dtype=np.int64)
     adj = np.empty(MAX_PAIR_UNITS, dtype=np.int64)
@@ -246,18 +236,7 @@ def pair_pass(st, seed, max_units, active, stats):
         za = order[t]
         if st.size[za] == 0 or st.size[za] >= max_units:
             continue
-        st.iv[IV_ZSTAMP] += 1
-        stamp = st.iv[IV_ZSTAMP]
-        nn = 0
-        u = st.head[za]
-        while u >= 0:
-            for p in range(st.indptr[u], st.indptr[u + 1]):
-                zb = st.labels[st.indices[p]]
-                if zb != za and zb >= 0 and st.zmark[zb] != stamp:
-                    st.zmark[zb] = stamp
-                    near[nn] = zb
-                    nn += 1
-            u = st.nxt[u]
+        nn = neighbour_zones(st, za, near)
         for q in range(nn):
             zb = near[q]
             if active[za] == 0 and active[zb] == 0 and seen[za] != 2 and seen[zb] != 2:
@@ -280,6 +259,43 @@ def pair_pass(st, seed, max_units, active, stats):
     for z in range(K):
         active[z] = 1 if seen[z] == 2 else 0
     return changed
+
+
+@njit(cache=True)
+def shuffled_zones(st):
+    """(order, nz): the zones with members, order[:nz], in a random order of numba's
+    generator as seeded."""
+    K = st.size.shape[0]
+    order = np.empty(K, dtype=np.int64)
+    nz = 0
+    for z in range(K):
+        if st.size[z] > 0:
+            order[nz] = z
+            nz += 1
+    for t in range(nz - 1, 0, -1):
+        r = np.random.randint(t + 1)
+        tmp = order[t]
+        order[t] = order[r]
+        order[r] = tmp
+    return order, nz
+
+
+@njit(cache=True)
+def neighbour_zones(st, za, near):
+    """Writes the zones that share a boundary with za into near[:nn]; returns nn."""
+    st.iv[IV_ZSTAMP] += 1
+    stamp = st.iv[IV_ZSTAMP]
+    nn = 0
+    u = st.head[za]
+    while u >= 0:
+        for p in range(st.indptr[u], st.indptr[u + 1]):
+            zb = st.labels[st.indices[p]]
+            if zb != za and zb >= 0 and st.zmark[zb] != stamp:
+                st.zmark[zb] = stamp
+                near[nn] = zb
+                nn += 1
+        u = st.nxt[u]
+    return nn
 
 
 @njit(cache=True)

@@ -21,8 +21,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from zonedesign.search.kernels import EPS_OBJ, IV_ZSTAMP, dist
-from zonedesign.search.pairs import relabel_parts
+from zonedesign.search.kernels import EPS_OBJ, dist
+from zonedesign.search.pairs import neighbour_zones, relabel_parts, shuffled_zones
 from zonedesign.search.valuation import zone_value
 
 MAX_TRIPLE_UNITS = 15  # 2^15 part masks in the stamp tables; larger triples are left alone
@@ -291,17 +291,7 @@ def triple_pass(st, seed, max_units, active, stats, loc, seen, good, val, queue,
     np.random.seed(seed)
     K = st.size.shape[0]
     max_units = min(max_units, MAX_TRIPLE_UNITS)
-    order = np.empty(K, dtype=np.int64)
-    nz = 0
-    for z in range(K):
-        if st.size[z] > 0:
-            order[nz] = z
-            nz += 1
-    for t in range(nz - 1, 0, -1):
-        r = np.random.randint(t + 1)
-        tmp = order[t]
-        order[t] = order[r]
-        order[r] = tmp
+    order, nz = shuffled_zones(st)
     units = np.empty(MAX_TRIPLE_UNITS, dtype=np.int64)
     adj = np.empty(MAX_TRIPLE_UNITS, dtype=np.int64)
     eu = np.empty(MAX_EDGES, dtype=np.int64)
@@ -315,18 +305,7 @@ def triple_pass(st, seed, max_units, active, stats, loc, seen, good, val, queue,
         za = order[t]
         if st.size[za] == 0 or st.brk[za] > 0.0:
             continue
-        st.iv[IV_ZSTAMP] += 1
-        zstamp = st.iv[IV_ZSTAMP]
-        nn = 0
-        u = st.head[za]
-        while u >= 0:
-            for p in range(st.indptr[u], st.indptr[u + 1]):
-                zb = st.labels[st.indices[p]]
-                if zb != za and zb >= 0 and st.zmark[zb] != zstamp:
-                    st.zmark[zb] = zstamp
-                    near[nn] = zb
-                    nn += 1
-            u = st.nxt[u]
+        nn = neighbour_zones(st, za, near)
         done = False
         for q in range(nn):
             zb = near[q]
