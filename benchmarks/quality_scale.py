@@ -113,11 +113,14 @@ def previous_default(n: int) -> SearchRules:
 
 
 # what the engine did before the quality-scale work besides its schedule: the first
-# temperature took 10 % of the average uphill move, no pair of zones was repartitioned,
-# and the reshape phase made 0.2 x units tries (module, name, value)
+# temperature took 10 % of the average uphill move, no pair or triple of zones was
+# repartitioned, trials were not focused, and the reshape phase made 0.2 x units tries
+# (module, name, value)
 PREVIOUS_ENGINE = (
     ("zonedesign.search.engine", "ANNEAL_START_ACCEPT", 0.1),
     ("zonedesign.search.engine", "PAIR_UNITS", 0),
+    ("zonedesign.search.engine", "TRIPLE_UNITS", 0),
+    ("zonedesign.search.engine", "FOCUS_SHARE", 1.0),
     ("zonedesign.search.reshape", "RESHAPE_TRIES", 0.2),
 )
 

@@ -16,6 +16,7 @@ from zonedesign.rules import SearchRules, parse_rules, rules_to_toml
 from zonedesign.search.schedule import (
     FINAL_TEMPERATURE,
     FLOOR_UNITS,
+    ONE_RUN_FACTOR,
     PRESETS,
     effort_settings,
     fence_schedule,
@@ -66,11 +67,19 @@ def test_a_fences_moves_are_proportional_to_its_units_above_the_floor(effort: st
     per_unit = PRESETS[effort][0]
     for n in (FLOOR_UNITS, 2 * FLOOR_UNITS, 5 * FLOOR_UNITS, 20 * FLOOR_UNITS):
         s = fence_schedule(rules, n)
-        assert s.runs * s.moves == per_unit * n
+        # one run there, focused, with ONE_RUN_FACTOR x the moves
+        assert s.runs == 1 and s.focused and s.moves == int(ONE_RUN_FACTOR * per_unit * n)
     # below the floor a fence costs about what one of FLOOR_UNITS costs, in several runs
     for n in (FLOOR_UNITS // 10, FLOOR_UNITS // 4, FLOOR_UNITS // 2):
         small = fence_schedule(rules, n)
         assert small.runs == min(16, round(FLOOR_UNITS / n)) and small.moves == max(20_000, per_unit * n)
+        assert not small.focused
+
+
+def test_only_a_fence_left_to_one_run_by_the_schedule_is_focused() -> None:
+    # stated restarts keep the stated schedule as it is, even at one run
+    s = fence_schedule(SearchRules(restarts=1), 3 * FLOOR_UNITS)
+    assert s.runs == 1 and not s.focused and s.moves == PRESETS["default"][0] * 3 * FLOOR_UNITS
 
 
 def test_a_schedule_cools_over_its_whole_range() -> None:

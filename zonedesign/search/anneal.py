@@ -1,5 +1,10 @@
 """Simulated annealing over single-unit moves (Openshaw & Rao 1995).
 
+Focused proposals: most of a cooled zoning is already as good as single moves make it,
+and a trial there is almost always refused, so a share of the trials is drawn from the
+units of the costliest zones and their neighbours (`hot_units`, refreshed at every
+temperature), the rest from all boundary units as usual.
+
 A move that raises the bound breaks is never taken; one that lowers them always is; any
 other is taken by the Metropolis rule on the objective change at the current temperature.
 The temperature falls geometrically, one block of moves per temperature. The best
@@ -108,12 +113,52 @@ def log_move(st, i, b, newbest, best_labels, log, ctl, cti):
         cti[CT_CUR_BEST] = 0
 
 
+def hot_zones(size: np.ndarray, cost: np.ndarray, share: float) -> np.ndarray:
+    """(K,) True for the costliest `share` of the live zones (size > 0; ties kept)."""
+    live = size > 0
+    costs = cost[live]
+    hot = np.zeros(live.size, dtype=np.bool_)
+    if costs.size:
+        idx = min(costs.size - 1, int((1.0 - share) * costs.size))
+        hot[live] = costs >= np.partition(costs, idx)[idx]
+    return hot
+
+
 @njit(cache=True)
-def anneal_block(st, seed, temp, nmoves, best_labels, log, ctl, cti):
+def hot_units(st, hot, cand):
+    """Write to cand the boundary units in a hot zone or beside one; returns how many.
+
+    hot: (K,) True for the zones the trials focus on.
+    """
+    labels = st.labels
+    indptr = st.indptr
+    indices = st.indices
+    bpos = st.bpos
+    m = 0
+    for i in range(labels.shape[0]):
+        if bpos[i] < 0:
+            continue
+        h = hot[labels[i]]
+        if not h:
+            for p in range(indptr[i], indptr[i + 1]):
+                if hot[labels[indices[p]]]:
+                    h = True
+                    break
+        if h:
+            cand[m] = i
+            m += 1
+    return m
+
+
+@njit(cache=True)
+def anneal_block(st, seed, temp, nmoves, best_labels, log, ctl, cti, cand, ncand, uniform):
     """nmoves Metropolis trials at temperature temp.
 
     ctl: [best breaks, best total]; cti: control counters (CT_*); best_labels: (n,) the
-    best labelling seen, as of the last new best; log: (n, 2) moves since.
+    best labelling seen, as of the last new best; log: (n, 2) moves since. With
+    ncand > 0, a trial's unit comes from cand[:ncand] (see `hot_units`) except for a
+    share `uniform` of the trials, drawn from all boundary units; a drawn unit no longer
+    on a boundary is a trial lost.
     """
     labels = st.labels
     size = st.size
@@ -122,13 +167,19 @@ def anneal_block(st, seed, temp, nmoves, best_labels, log, ctl, cti):
     ztouch = st.ztouch
     zacc = st.zacc
     blist = st.blist
+    bpos = st.bpos
     iv = st.iv
     np.random.seed(seed)
     for _ in range(nmoves):
         nb = iv[IV_NB]
         if nb == 0:
             break
-        i = blist[np.random.randint(nb)]
+        if ncand > 0 and np.random.random() >= uniform:
+            i = cand[np.random.randint(ncand)]
+            if bpos[i] < 0:
+                continue
+        else:
+            i = blist[np.random.randint(nb)]
         a = labels[i]
         if size[a] <= 1:
             continue

@@ -24,12 +24,12 @@ cap, checked between compiled blocks; a run that reaches it says so in
 starts after the kernels are compiled (or loaded from numba's cache, once per process),
 so a first compile never eats into the search.
 
-info: method, constructions (tried), construction_seconds, moves_tried,
-moves_accepted, merges, splits, pair_splits (pairs of zones resplit), rounds (descent /
-merge / split rounds), reshapes (kept),
-temperatures (annealing), tabu_iterations, start_key ((breaks, total) the improvement
-started from), zones, bounds_met, stopped_by_time, seconds, compile_seconds (when this
-call compiled or loaded the kernels).
+info: method, constructions (tried), construction_seconds, moves_tried, moves_accepted,
+merges, splits, pair_splits (pairs of zones resplit), rounds (descent / merge / split
+rounds), reshapes (kept), temperatures (annealing), tabu_iterations, start_key ((breaks,
+total) the improvement started from), zones, bounds_met, stopped_by_time, seconds,
+compile_seconds (when this call compiled or loaded the kernels); from `solve` also path
+and focused (trials focused).
 
 Stability: zones carry an anchor, the previous zone id they stand for. With `start` and
 `anchors` the anchors are those given; with `start` but no `anchors`, zone j of `start`
@@ -63,6 +63,8 @@ from zonedesign.search.anneal import (
     CT_SIZE,
     CT_TRIED,
     anneal_block,
+    hot_units,
+    hot_zones,
     sample_uphill,
 )
 from zonedesign.search.azp import descent_sweep
@@ -94,6 +96,10 @@ ANNEAL_START_ACCEPT = 0.01
 ANNEAL_START_ACCEPT_RUNS = 0.1  # the same when the fence's schedule has several runs
 REFINE_START_ACCEPT = 0.01  # a refinement starts cold: it keeps the coarse zoning's shape
 REFINE_SHARE = 0.5  # of a run's moves, spent refining each finer level
+# focused trials of a fence searched by one run (search.anneal, schedule.Schedule.focused):
+# the costliest FOCUS_SHARE of zones and their neighbours, FOCUS_UNIFORM from everywhere
+FOCUS_SHARE = 0.3
+FOCUS_UNIFORM = 0.1
 ANNEAL_FROZEN = 3  # temperatures without a new best and with (almost) no change
 TABU_NO_IMPROVE = 1  # x n, when search_rules.max_no_improve is 0
 TABU_MAX_ITER = 5  # x max_no_improve
@@ -130,14 +136,8 @@ class _Run:
         self.rng = np.random.default_rng(seed)
         self.t0 = time.perf_counter()
         self.deadline = self.t0 + float(time_limit)
-        self.info = {
-            "moves_tried": 0,
-            "moves_accepted": 0,
-            "merges": 0,
-            "splits": 0,
-            "rounds": 0,
-            "stopped_by_time": False,
-        }
+        self.info = {"moves_tried": 0, "moves_accepted": 0, "merges": 0, "splits": 0, "rounds": 0}
+        self.info["stopped_by_time"] = False
         self.triples: _Triples | None = None
 
     def seed(self) -> int:
@@ -194,6 +194,7 @@ def solve(
     best.info["levels"] = [problem.n, *(lv.problem.n for lv in levels)]
     best.info["effort"] = rules.effort
     best.info["moves_per_run"] = plan.moves
+    best.info["focused"] = bool(plan.focused and FOCUS_SHARE < 1.0 and (rules.method if method is None else method) == "annealing")
     best.info["seconds_all_restarts"] = time.perf_counter() - t0
     return best
 
@@ -551,13 +552,16 @@ def _anneal(run: _Run, start_accept: float | None = None, share: float = 1.0) ->
     cooling = plan.cooling
     per_temp = max(1, int(plan.per_temperature * share))
     budget = max(1, int(plan.moves * share))
+    focused = plan.focused and FOCUS_SHARE < 1.0
+    cand = np.empty(n, dtype=np.int64)
     done = 0
     frozen = 0
     temps = 0
     while done < budget and not run.out_of_time():
         block = min(per_temp, budget - done)
         changed0, improved0 = cti[CT_CHANGED], cti[CT_IMPROVED]
-        anneal_block(st, run.seed(), temp, block, best, log, ctl, cti)
+        ncand = int(hot_units(st, hot_zones(state.zones.size, state.zones.cost, FOCUS_SHARE), cand)) if focused else 0
+        anneal_block(st, run.seed(), temp, block, best, log, ctl, cti, cand, ncand, FOCUS_UNIFORM)
         done += block
         temps += 1
         quiet = cti[CT_CHANGED] - changed0 <= block // 500 and cti[CT_IMPROVED] == improved0

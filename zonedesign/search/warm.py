@@ -21,7 +21,7 @@ from zonedesign import compilelock
 from zonedesign.records import Bounds, Graph, Problem
 from zonedesign.search import kernels as K
 from zonedesign.search import moves as KM
-from zonedesign.search.anneal import CT_CUR_BEST, CT_SIZE, anneal_block, sample_uphill
+from zonedesign.search.anneal import CT_CUR_BEST, CT_SIZE, anneal_block, hot_units, sample_uphill
 from zonedesign.search.azp import descent_sweep, local_descent
 from zonedesign.search.construct import absorb_enclaves, grow_zones
 from zonedesign.search.pairs import pair_pass
@@ -95,7 +95,9 @@ def _warm_anneal() -> None:
     st = state.st
     best, log, ctl, cti = _control(state)
     sample_uphill(st, 1, 1)
-    anneal_block(st, 1, 1.0, 1, best, log, ctl, cti)
+    cand = np.zeros(4, dtype=np.int64)
+    ncand = hot_units(st, np.ones(state.zones.size.size, dtype=np.bool_), cand)
+    anneal_block(st, 1, 1.0, 1, best, log, ctl, cti, cand, ncand, 0.1)
 
 
 def _warm_tabu() -> None:
