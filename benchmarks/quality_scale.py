@@ -6,7 +6,7 @@ objective of a long run, made once and committed with the command that made it
 
     python -m benchmarks.quality_scale --reference
 
-which runs `effort = "thorough"` (20 times the default's moves per unit, slower cooling)
+which runs `effort = "thorough"` (34 times the default's moves per unit, slower cooling)
 from seeds 1 and 2 and keeps the better. Any run of this benchmark that finds a lower
 objective than the reference is used as the best known instead, and the table says so.
 

@@ -128,6 +128,19 @@ def voronoi_problem(n: int, seed: int, **kw) -> Problem:
     )
 
 
+def feasible_voronoi_problem(n: int, seed: int, lo: float) -> Problem:
+    """A Voronoi problem with floor lo and a ceiling every connected fence can meet.
+
+    By the spanning-tree argument of test_search_properties (common practice): with
+    hi >= (f + 1) * lo + the largest unit, f the fan-out of a depth-first spanning tree,
+    every connected fence whose total reaches the floor can meet both bounds.
+    """
+    p = voronoi_problem(n, seed=seed, lo=lo, hi=np.inf)
+    hi = (tree_fan_out(p.graph) + 1) * lo + float(p.counts.max())
+    assert p.counts.sum() >= lo
+    return voronoi_problem(n, seed=seed, lo=lo, hi=hi, target=0.5 * (lo + hi))
+
+
 # ---------------------------------------------------------------- reference checks
 
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 import networkx as nx
 import numpy as np
 import pytest
-from search_support import nx_graph, regionalization_faults, tree_fan_out, voronoi_problem
+from search_support import feasible_voronoi_problem, nx_graph, regionalization_faults
 
 from zonedesign.rules import SearchRules
 from zonedesign.search import engine as E
@@ -25,10 +25,7 @@ LO = 40.0
 
 @pytest.fixture(scope="module")
 def problem():
-    p = voronoi_problem(N, seed=5, lo=LO, hi=np.inf)
-    # feasible by the spanning-tree argument of test_search_properties (common practice)
-    hi = (tree_fan_out(p.graph) + 1) * LO + float(p.counts.max())
-    return voronoi_problem(N, seed=5, lo=LO, hi=hi, target=0.5 * (LO + hi))
+    return feasible_voronoi_problem(N, seed=5, lo=LO)
 
 
 @pytest.fixture(scope="module")

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from hierarchy_support import nx_graph as area_nx_graph
 from hierarchy_support import two_tier_rules, voronoi_instance, zone_members
-from search_support import nx_graph, regionalization_faults, tree_fan_out, voronoi_problem
+from search_support import feasible_voronoi_problem, nx_graph, regionalization_faults
 
 from zonedesign.search import multilevel
 from zonedesign.search.engine import solve
@@ -29,13 +29,7 @@ LO = 40.0
 
 @pytest.fixture(scope="module")
 def problem():
-    p = voronoi_problem(N, seed=21, lo=LO, hi=np.inf)
-    # feasible by the spanning-tree argument of test_search_properties (common practice):
-    # with hi >= (f + 1) * lo + the largest unit, f the fan-out of a depth-first spanning
-    # tree, every connected fence whose total reaches the floor can meet both bounds
-    hi = (tree_fan_out(p.graph) + 1) * LO + float(p.counts.max())
-    assert p.counts.sum() >= LO
-    return voronoi_problem(N, seed=21, lo=LO, hi=hi, target=0.5 * (LO + hi))
+    return feasible_voronoi_problem(N, seed=21, lo=LO)
 
 
 def test_coarse_units_are_adjacent_pairs_within_the_ceiling_and_keep_the_sums(problem) -> None:
