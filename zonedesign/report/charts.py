@@ -1,8 +1,9 @@
-"""Small static charts for the report (matplotlib, Agg), returned as data URIs.
+"""Small static charts for the report, returned as data URIs.
 
 Charts are SVG documents wrapped in `data:` URIs and shown through <img>: they stay
 sharp in print, need no fetch, and their internal ids cannot clash with the page's.
-Text is kept as text (not outlines), which keeps each chart to a few tens of kilobytes.
+The report's own charts are drawn as plain SVG (`svgdraw`); the sweep report's charts
+use matplotlib (Agg, `_pyplot`), text kept as text.
 """
 
 from __future__ import annotations
@@ -12,6 +13,8 @@ import io
 from collections.abc import Mapping, Sequence
 
 import numpy as np
+
+from zonedesign.report.svgdraw import Axes, Canvas, nice_ticks
 
 INK = "#1f2328"
 BARS = "#8fb3d9"
@@ -72,6 +75,17 @@ def png_uri(data: bytes) -> str:
     return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
 
 
+def svg_text_uri(svg: str) -> str:
+    """An SVG document's text as a data URI."""
+    return "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
+
+
+# floor, target and ceiling marks: colour and dash pattern, so they read without colour too
+MARKS = (("floor", "min", FLOOR, "4 2"), ("target", "target", TARGET, None), ("ceiling", "max", CEILING, "1 1.5"))
+PANEL_W = 300.0  # pixels per chart panel
+PANEL_GAP = 70.0
+
+
 def count_histograms(
     values: Mapping[str, np.ndarray], limits: Mapping[str, Mapping[str, float]], tier: str
 ) -> str | None:
@@ -83,31 +97,51 @@ def count_histograms(
     names = [c for c, v in values.items() if np.asarray(v).size]
     if not names:
         return None
-    plt = _pyplot()
-    fig, axes = plt.subplots(1, len(names), figsize=(max(10.5, 3.1 * len(names) + 0.4), 2.6), squeeze=False)
-    for ax, name in zip(axes[0], names):
+    left, top, height = 60.0, 34.0, 170.0
+    width = max(1000.0, left + len(names) * (PANEL_W + PANEL_GAP))
+    c = Canvas(width, top + height + 50.0)
+    c.text(width / 2, 16, f"tier {tier}: zone sizes", size=12, anchor="middle")
+    for k, name in enumerate(names):
         x = np.asarray(values[name], dtype=float)
         x = x[np.isfinite(x)]
         lim = limits.get(name, {})
-        marks = [
-            ("floor", lim.get("min"), FLOOR, (0, (4, 2))),
-            ("target", lim.get("target"), TARGET, "solid"),
-            ("ceiling", lim.get("max"), CEILING, (0, (1, 1.5))),
-        ]
-        lo = min([x.min()] + [v for _, v, _, _ in marks if v is not None]) if x.size else 0
-        hi = max([x.max()] + [v for _, v, _, _ in marks if v is not None]) if x.size else 1
-        bins = np.linspace(lo, hi if hi > lo else lo + 1, 31)
-        ax.hist(x, bins=bins, color=BARS, edgecolor=EDGE, linewidth=0.4)
-        for label, v, colour, style in marks:
-            if v is not None and np.isfinite(v):
-                ax.axvline(v, color=colour, linestyle=style, linewidth=1.4, label=f"{label} {v:g}")
-        ax.set_xlabel(f"{name} per zone")
-        ax.set_ylabel("zones")
-        if ax.get_legend_handles_labels()[0]:
-            ax.legend(frameon=False, fontsize=7)
-    fig.suptitle(f"tier {tier}: zone sizes", fontsize=9, color=INK)
-    _margins(fig, wspace=0.45)
-    return svg_uri(fig)
+        marks = [(label, lim.get(key), colour, dash) for label, key, colour, dash in MARKS]
+        marks = [(label, float(v), colour, dash) for label, v, colour, dash in marks if v is not None and np.isfinite(v)]
+        lo = min([float(x.min())] + [v for _, v, _, _ in marks]) if x.size else 0.0
+        hi = max([float(x.max())] + [v for _, v, _, _ in marks]) if x.size else 1.0
+        edges = np.linspace(lo, hi if hi > lo else lo + 1, 31)
+        heights, _ = np.histogram(x, bins=edges)
+        ymax = max(1, int(heights.max()))
+        yticks = [t for t in nice_ticks(0, ymax, 5) if t == int(t)]
+        # headroom above the tallest bar for the legend of the marks
+        top_y = max(ymax * (1.0 + 0.1 * len(marks)), yticks[-1] if yticks else ymax)
+        ax = Axes(left + k * (PANEL_W + PANEL_GAP), top, PANEL_W, height, edges[0], edges[-1], 0.0, top_y)
+        for h, a, b in zip(heights, edges[:-1], edges[1:]):
+            if h:
+                c.rect(ax.px(a), ax.py(h), ax.px(b) - ax.px(a), ax.py(0) - ax.py(h), BARS, EDGE, 0.4)
+        for j, (label, v, colour, dash) in enumerate(marks):
+            c.line(ax.px(v), ax.top, ax.px(v), ax.top + ax.height, colour, 1.4, dash)
+            ly = ax.top + 10 + 13 * j
+            lx = ax.left + ax.width - 92
+            c.line(lx, ly - 3.5, lx + 18, ly - 3.5, colour, 1.4, dash)
+            c.text(lx + 22, ly, f"{label} {v:g}", size=10)
+        xticks = [t for t in nice_ticks(edges[0], edges[-1], 5) if edges[0] <= t <= edges[-1]]
+        ax.frame(c, xticks, yticks, f"{name} per zone", "zones")
+    return svg_text_uri(c.svg())
+
+
+def _box(values: np.ndarray) -> tuple[float, float, float, float, float, np.ndarray]:
+    """(low whisker, first quartile, median, third quartile, high whisker, outliers).
+
+    Whiskers reach the furthest values within 1.5 interquartile ranges of the box
+    (Tukey's box plot, common practice); values beyond are drawn one by one.
+    """
+    q1, med, q3 = (float(v) for v in np.percentile(values, [25, 50, 75]))
+    reach = 1.5 * (q3 - q1)
+    inside = values[(values >= q1 - reach) & (values <= q3 + reach)]
+    lo = float(inside.min()) if inside.size else q1
+    hi = float(inside.max()) if inside.size else q3
+    return lo, q1, med, q3, hi, values[(values < lo) | (values > hi)]
 
 
 def shape_boxplots(series: Mapping[str, Mapping[str, np.ndarray]]) -> str | None:
@@ -118,46 +152,59 @@ def shape_boxplots(series: Mapping[str, Mapping[str, np.ndarray]]) -> str | None
     measures = [m for m, per in series.items() if any(np.asarray(v).size for v in per.values())]
     if not measures:
         return None
-    plt = _pyplot()
-    fig, axes = plt.subplots(
-        1, len(measures), figsize=(max(10.5, 3.4 * len(measures) + 0.4), 2.8), squeeze=False
-    )
-    for ax, m in zip(axes[0], measures):
+    left, top, height, panel = 60.0, 30.0, 180.0, 360.0
+    width = max(1000.0, left + len(measures) * (panel + PANEL_GAP))
+    c = Canvas(width, top + height + 50.0)
+    for k, m in enumerate(measures):
         tiers = [t for t, v in series[m].items() if np.asarray(v).size]
         data = [np.asarray(series[m][t], dtype=float) for t in tiers]
         data = [d[np.isfinite(d)] for d in data]
-        ax.boxplot(
-            data,
-            tick_labels=tiers,
-            patch_artist=True,
-            boxprops={"facecolor": BARS, "edgecolor": EDGE},
-            medianprops={"color": INK},
-            flierprops={"markersize": 2, "markeredgecolor": EDGE},
-        )
-        ax.set_title(m, fontsize=8, color=INK)
-        ax.set_xlabel("tier")
-    _margins(fig, wspace=0.3)
-    return svg_uri(fig)
+        every = np.concatenate([d for d in data if d.size]) if any(d.size for d in data) else np.zeros(1)
+        lo, hi = float(every.min()), float(every.max())
+        pad = 0.05 * (hi - lo) if hi > lo else 0.5
+        yticks = nice_ticks(lo - pad, hi + pad, 5)
+        y0 = min(lo - pad, yticks[0]) if yticks else lo - pad
+        y1 = max(hi + pad, yticks[-1]) if yticks else hi + pad
+        ax = Axes(left + k * (panel + PANEL_GAP), top, panel, height, 0.5, len(tiers) + 0.5, y0, y1)
+        c.text(ax.left + panel / 2, top - 10, m, size=11, anchor="middle")
+        for j, d in enumerate(data, start=1):
+            if not d.size:
+                continue
+            wlo, q1, med, q3, whi, out = _box(d)
+            x, half = ax.px(j), 0.25 * panel / len(tiers)
+            c.line(x, ax.py(wlo), x, ax.py(q1), EDGE)
+            c.line(x, ax.py(q3), x, ax.py(whi), EDGE)
+            c.line(x - half / 2, ax.py(wlo), x + half / 2, ax.py(wlo), EDGE)
+            c.line(x - half / 2, ax.py(whi), x + half / 2, ax.py(whi), EDGE)
+            c.rect(x - half, ax.py(q3), 2 * half, ax.py(q1) - ax.py(q3), BARS, EDGE, 0.8)
+            c.line(x - half, ax.py(med), x + half, ax.py(med), INK, 1.4)
+            for v in out[:400]:  # enough to show where outliers lie
+                c.circle(x, ax.py(float(v)), 1.6, EDGE)
+        ax.frame(c, None, yticks, "tier", "")
+        bottom = ax.top + ax.height
+        for j, t in enumerate(tiers, start=1):
+            c.line(ax.px(j), bottom, ax.px(j), bottom + 4)
+            c.text(ax.px(j), bottom + 15, str(t), size=10, anchor="middle")
+    return svg_text_uri(c.svg())
 
 
 def share_bars(shares: Mapping[str, float], title: str) -> str | None:
     """Horizontal bars of a share (0..1) per tier, each labelled with its percentage."""
     if not shares:
         return None
-    plt = _pyplot()
     tiers = list(shares)
     vals = [float(shares[t]) for t in tiers]
-    fig, ax = plt.subplots(figsize=(8.0, 0.7 + 0.4 * len(tiers)))
-    y = np.arange(len(tiers))
-    ax.barh(y, vals, color=BARS, edgecolor=EDGE, linewidth=0.5)
-    for yi, v in zip(y, vals):
-        ax.text(min(v, 1.0) + 0.01, yi, f"{100 * v:.1f}%", va="center", fontsize=7, color=INK)
-    ax.set_yticks(y, tiers)
-    ax.set_xlim(0, 1.15)
-    ax.set_xlabel(title)
-    ax.invert_yaxis()
-    _margins(fig, left=0.25 + 0.065 * max(len(str(t)) for t in tiers), bottom=0.4, top=0.1)
-    return svg_uri(fig)
+    left = 20.0 + 7.0 * max(len(str(t)) for t in tiers)
+    row, top = 26.0, 10.0
+    c = Canvas(800.0, top + row * len(tiers) + 44.0)
+    ax = Axes(left, top, 800.0 - left - 20.0, row * len(tiers), 0.0, 1.15, len(tiers) - 0.5, -0.5)
+    for j, (t, v) in enumerate(zip(tiers, vals)):
+        y = ax.py(j)
+        c.rect(ax.px(0), y - 0.4 * row, ax.px(min(max(v, 0.0), 1.15)) - ax.px(0), 0.8 * row, BARS, EDGE, 0.5)
+        c.text(ax.px(min(v, 1.0) + 0.01), y + 3.5, f"{100 * v:.1f}%", size=10)
+        c.text(left - 6, y + 3.5, str(t), size=10, anchor="end")
+    ax.frame(c, [0.0, 0.2, 0.4, 0.6, 0.8, 1.0], None, title, "")
+    return svg_text_uri(c.svg())
 
 
 def limits_from_rules(
