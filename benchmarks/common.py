@@ -363,7 +363,9 @@ def refresh_readme(folder: Path | None = None, readme: Path = README) -> None:
             continue
         lines = md.read_text(encoding="utf-8").splitlines()
         title = lines[0].removeprefix("# Benchmark: ")
-        head = [ln for ln in lines[1:8] if ln.startswith(("- date", "- machine", "- Python"))]
+        # the whole header list: date, machine, code, command and any note on how it ran
+        end = next((k for k, ln in enumerate(lines) if ln.startswith("## ")), len(lines))
+        head = [ln for ln in lines[1:end] if ln.startswith("- ")]
         goals = _section(lines, "## Goals")
         parts.append(f"\n### {title}\n\n" + "\n".join(head) + "\n\n" + "\n".join(goals).strip() + "\n")
     readme.write_text("".join(parts), encoding="utf-8")
