@@ -49,7 +49,10 @@ def grow_zones(st, seed, alpha, beta, labels, units, k0, aim_lo, aim_hi):
     fmark = np.full(n, -1, dtype=np.int64)
     mem = np.empty(n, dtype=np.int64)
     perm = units.copy()
-    made, _ = grow_region(st, alpha, beta, labels, perm, perm.shape[0], k0, aim_lo, aim_hi, fr, flen, fmark, mem, 0)
+    # a typed stamp: the reshape passes an int64 one, and a literal 0 would compile it again
+    made, _ = grow_region(
+        st, alpha, beta, labels, perm, perm.shape[0], k0, aim_lo, aim_hi, fr, flen, fmark, mem, np.int64(0)
+    )
     # a zone may have grown into units labelled -1 outside `units`
     for i in range(n):
         if labels[i] == -2:

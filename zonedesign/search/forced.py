@@ -187,8 +187,9 @@ def undo(st, w):
     free stack and the boundary."""
     labels = st.labels
     cand = w.cand
-    nr = 0
-    nc = 0
+    # typed zeros: a literal 0 passed on would compile the callees once more for it
+    nr = np.int64(0)
+    nc = np.int64(0)
     for k in range(w.cnt[C_NU]):
         u = w.ulog[k]
         old = w.uold[k]
@@ -374,7 +375,7 @@ def regrow_change(st, w, a):
     for t in range(take):
         old[1 + t] = near[t]
     region = w.perm
-    m = 0
+    m = np.int64(0)  # typed: a literal 0 would compile every callee taking m twice
     for j in range(no):
         log_members(st, w, old[j])
         u = st.head[old[j]]
@@ -414,9 +415,8 @@ def regrow_change(st, w, a):
 
 @inner
 def split_change(st, w, a):
-    """Cut zone a at its best random-tree cut; a one-unit zone is regrown instead."""
-    if st.size[a] < 2:
-        return regrow_change(st, w, a)
+    """Cut zone a (of two units or more) at its best random-tree cut; the reshape block
+    regrows a one-unit zone instead."""
     log_members(st, w, a)
     log_zone(st, w, st.free[st.iv[IV_NFREE] - 1])
     nz = try_split(st, a, N_TREES, w.loc, 1)

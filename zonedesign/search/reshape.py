@@ -10,7 +10,7 @@ labelling before the change (breaks first); otherwise the change's undo log
 
 Each kind of change is one `Move` in `MOVES`: its name and the compiled kernel that makes
 it (`make(st, w, zone)`, see `search.forced`). The blocks call the kernels through one
-dispatcher built from the registry, and `warm` runs a block of each kind on a tiny state
+function over the registry's kernels, and `warm` runs a block of each kind on a tiny state
 (`warm.warm_up` calls it for every entry). A new move type is one entry here; the
 reshape phase draws among the entries evenly.
 """
@@ -70,28 +70,24 @@ MOVES: tuple[Move, ...] = (
 )
 
 
+# The block itself calls the kernels by index, through up to MAX_MOVES module globals
+# padded with a kernel that never applies. numba links a callee's whole compiled tree into
+# each caller and optimises and emits it there once more, so a chain of dispatchers (one
+# per move) or a kernel calling another kernel would compile everything below it again.
+MAX_MOVES = 6
+
+
 @inner
-def _no_move(k, st, w, a):
+def _no_move(st, w, a):
     return 0
 
 
-def _dispatcher(makes: tuple) -> Callable:
-    """A compiled call(k, st, w, zone) running makes[k]: a chain, one link per move (numba
-    cannot index a tuple of functions by a runtime value, and a chain still caches)."""
-    if not makes:
-        return _no_move
-    first, rest = makes[0], _dispatcher(makes[1:])
-
-    @inner
-    def call(k, st, w, a):
-        if k == 0:
-            return first(st, w, a)
-        return rest(k - 1, st, w, a)
-
-    return call
-
-
-_MAKE = _dispatcher(tuple(m.make for m in MOVES))
+if len(MOVES) > MAX_MOVES:
+    raise RuntimeError(f"reshape: {len(MOVES)} moves in MOVES, the block calls at most {MAX_MOVES}")
+_M0, _M1, _M2, _M3, _M4, _M5 = (*(m.make for m in MOVES), *(_no_move,) * (MAX_MOVES - len(MOVES)))
+# a one-unit zone cannot be split: the split try regrows it instead
+_SPLIT = next(i for i, m in enumerate(MOVES) if m.name == "split")
+_REGROW = next(i for i, m in enumerate(MOVES) if m.name == "regrow")
 N_MOVES = len(MOVES)
 
 
@@ -114,8 +110,22 @@ def reshape_block(st, w, seed, tries, kind, stats):
         k = np.random.randint(N_MOVES) if kind < 0 else kind
         b0 = fv[FV_BRK]
         t0 = fv[FV_TOTAL]
+        if k == _SPLIT and st.size[a] < 2:
+            k = _REGROW
         begin_try(st, w)
-        if _MAKE(k, st, w, a) == 0:
+        if k == 0:
+            made = _M0(st, w, a)
+        elif k == 1:
+            made = _M1(st, w, a)
+        elif k == 2:
+            made = _M2(st, w, a)
+        elif k == 3:
+            made = _M3(st, w, a)
+        elif k == 4:
+            made = _M4(st, w, a)
+        else:
+            made = _M5(st, w, a)
+        if made == 0:
             if w.cnt[C_NU] > 0 or w.cnt[C_NZ] > 0:
                 undo(st, w)
                 sync_live(st, w)
