@@ -163,3 +163,21 @@ def test_same_seed_same_result(name, problem):
     np.testing.assert_array_equal(l1, l2)
     np.testing.assert_array_equal(a1, a2)
     assert (k1, m1) == (k2, m2)
+
+
+def test_a_split_try_on_one_unit_zones_regrows_them():
+    """Every zone of one unit (far below the floor): split tries cannot cut them, so each
+    regrows its zone with neighbours; the tries are kept because breaks fall, and the state
+    stays sound."""
+    E.warm_up()
+    problem = _grid_problem(5)
+    state = ZoneState(problem)
+    state.load(np.arange(problem.n))
+    before = _score(problem, state)
+    split = next(i for i, m in enumerate(MOVES) if m.name == "split")
+    kept = reshape_block(state.st, work_for(state), 3, 100, split, np.zeros(2, dtype=np.int64))
+    after = _score(problem, state)
+    assert kept > 0
+    assert after.breaks < before.breaks
+    _assert_contiguous(problem, state.compact()[0])
+    _assert_state_consistent(problem, state)
