@@ -31,15 +31,16 @@ _proc: subprocess.Popen | None = None
 ENV_SWITCH = "ZONEDESIGN_PRECOMPILE"
 
 
-def _groups() -> list[tuple[str, Path | None, str, Callable[[bool], bool]]]:
-    """(name, cache folder, stamp, run) per group, in the order the background process takes them."""
+def _groups(names: tuple[str, ...] | None = None) -> list[tuple[str, Path | None, str, Callable[[bool], bool]]]:
+    """(name, cache folder, stamp, run) per group, in the order the background process
+    takes them: the search's groups `names` (the default method's when None)."""
     from zonedesign.search import warm
     from zonedesign.verify import feasible
 
     search_folder, search_stamp = warm.cache_folder(), warm.stamp()
     walk_folder, walk_stamp = feasible.walk_folder(), feasible.walk_stamp()
     out = [("walk-count", walk_folder, walk_stamp, lambda wait: feasible.warm_walk("count", wait=wait))]
-    for name in warm.BACKGROUND:
+    for name in warm.BACKGROUND if names is None else names:
         out.append((name, search_folder, search_stamp, lambda wait, name=name: warm.warm_group(name, wait=wait)))
     out.append(("walk-enumerate", walk_folder, walk_stamp, lambda wait: feasible.warm_walk("enumerate", wait=wait)))
     return out
@@ -118,6 +119,22 @@ def main(argv: list[str]) -> int:
             continue
         run(False)
     return 0
+
+
+def compile_all() -> list[str]:
+    """Compile every group (every search method's and both walks) into numba's cache, in
+    this process; the names of the groups that could not be cached. The wheel's build runs
+    this on the copy of the package it ships (see setup.py), so that an installed package's
+    first run loads its kernels instead of compiling them."""
+    from zonedesign import compilelock
+    from zonedesign.search import warm
+
+    missed = []
+    for name, folder, stamp, run in _groups(tuple(warm.GROUPS)):
+        run(True)
+        if folder is None or not compilelock.is_done(folder, name, stamp):
+            missed.append(name)
+    return missed
 
 
 if __name__ == "__main__":
