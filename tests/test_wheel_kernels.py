@@ -35,14 +35,18 @@ class Seen(event.Listener):
         compiled.append(ev.data["dispatcher"].py_func.__qualname__)
 event.register("numba:compile", Seen())
 import zonedesign
+from zonedesign.cli.commands import main
 from zonedesign.precompile import compile_all
 missed = compile_all()
-print(json.dumps({"compiled": compiled, "missed": missed, "package": zonedesign.__file__}))
+# a whole job too: a kernel the job calls with other argument types than the warm-up's
+# would compile here
+rc = main(["demo", "--areas", "1500", "--out", sys.argv[2], "--quiet"])
+print(json.dumps({"compiled": compiled, "missed": missed, "package": zonedesign.__file__, "rc": rc}))
 """
 
 
 @pytest.mark.slow
-def test_a_wheel_unpacked_elsewhere_runs_every_kernel_group_without_compiling(tmp_path: Path) -> None:
+def test_a_wheel_unpacked_elsewhere_runs_its_kernel_groups_and_a_demo_without_compiling(tmp_path: Path) -> None:
     project = tmp_path / "project"
     project.mkdir()
     for name in ("pyproject.toml", "setup.py", "README.md"):
@@ -62,9 +66,10 @@ def test_a_wheel_unpacked_elsewhere_runs_every_kernel_group_without_compiling(tm
         zf.extractall(tmp_path / "site")
     for folder in ("zonedesign/search/__pycache__/", "zonedesign/verify/__pycache__/"):
         assert any(n.startswith(folder) and n.endswith(".nbc") for n in names), f"no compiled kernels under {folder}"
-    loaded = subprocess.run([sys.executable, "-c", _LOAD, str(tmp_path / "site")], env=env, capture_output=True, text=True, cwd=tmp_path)
+    loaded = subprocess.run([sys.executable, "-c", _LOAD, str(tmp_path / "site"), str(tmp_path / "demo")], env=env, capture_output=True, text=True, cwd=tmp_path)
     assert loaded.returncode == 0, loaded.stderr[-3000:]
     info = json.loads(loaded.stdout.strip().splitlines()[-1])
     assert info["package"].startswith(str(tmp_path / "site"))
     assert info["missed"] == []
+    assert info["rc"] == 0
     assert info["compiled"] == [], f"compiled on the first run: {sorted(set(info['compiled']))}"

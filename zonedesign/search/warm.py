@@ -20,6 +20,7 @@ import numpy as np
 from zonedesign import compilelock
 from zonedesign.records import Bounds, Graph, Problem
 from zonedesign.search import kernels as K
+from zonedesign.search import mergesplit as MS
 from zonedesign.search import moves as KM
 from zonedesign.search.anneal import CT_CUR_BEST, CT_SIZE, anneal_block, hot_units, sample_uphill
 from zonedesign.search.azp import descent_sweep, local_descent
@@ -112,6 +113,11 @@ def _warm_reshape() -> None:
     # one compiled block runs every kind of move: one group
     for kind in range(len(MOVES)):
         warm_move(tiny_state(), kind)
+    # the merge and split passes called from Python (mergesplit.merge_pass, split_pass,
+    # ZoneState.try_split) pass Python ints: a signature of their own
+    st = tiny_state().st
+    MS.best_merge(st, 0, 1, 1)
+    MS.try_split(st, 0, 1, np.empty(4, dtype=np.int64), 0)
 
 
 def _warm_pairs() -> None:
