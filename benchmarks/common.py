@@ -322,6 +322,32 @@ def warm_engine() -> float:
     return c.seconds
 
 
+ROOT = Path(__file__).resolve().parent.parent
+# what `pip install DIR` needs of the project besides the package
+PROJECT_FILES = ("pyproject.toml", "setup.py", "README.md")
+
+
+def package_copy(target: Path, source: Path | None = None) -> None:
+    """Copy the zonedesign package (or the folder `source`) to `target`, without
+    bytecode or numba cache files, which belong to the copy's own runs."""
+    import shutil
+
+    shutil.copytree(source or ROOT / "zonedesign", target, ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
+
+
+def project_copy(folder: Path) -> Path:
+    """An installable copy of the project in `folder` (its package and PROJECT_FILES),
+    as a user's checkout has it; returns `folder`."""
+    import shutil
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    for name in PROJECT_FILES:
+        shutil.copy2(ROOT / name, folder / name)
+    package_copy(folder / "zonedesign")
+    return folder
+
+
 def code_snapshot(folder: Path) -> dict[str, str]:
     """Copy the zonedesign package into `folder` and return a child environment that
     imports that copy, with numba's cache beside it.
@@ -331,13 +357,12 @@ def code_snapshot(folder: Path) -> dict[str, str]:
     """
     import shutil
 
-    root = Path(__file__).resolve().parent.parent
     folder = Path(folder)
     target = folder / "zonedesign"
     if target.exists():
         shutil.rmtree(target)
-    shutil.copytree(root / "zonedesign", target, ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
-    shutil.copytree(root / "benchmarks", folder / "benchmarks", ignore=shutil.ignore_patterns("__pycache__", "*.pyc", "results"), dirs_exist_ok=True)
+    package_copy(target)
+    shutil.copytree(ROOT / "benchmarks", folder / "benchmarks", ignore=shutil.ignore_patterns("__pycache__", "*.pyc", "results"), dirs_exist_ok=True)
     cache = folder / "numba-cache"
     cache.mkdir(exist_ok=True)
     env = dict(os.environ)

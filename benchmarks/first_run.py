@@ -34,7 +34,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from benchmarks.common import md_table, write_results
+from benchmarks.common import md_table, project_copy, write_results
 
 NAME = "first-run"
 TITLE = "first-run (first demo on an empty numba cache vs the second)"
@@ -109,14 +109,7 @@ def fresh_install(folder: Path) -> tuple[str, dict[str, str], dict]:
     """A fresh venv in `folder` with a copy of this project installed by `pip install`:
     the venv's Python, an environment for its runs (no NUMBA_CACHE_DIR, no PYTHONPATH)
     and the install's wall and CPU seconds."""
-    import shutil
-
-    root = Path(__file__).resolve().parent.parent
-    project = folder / "project"
-    project.mkdir(parents=True)
-    for name in ("pyproject.toml", "setup.py", "README.md"):
-        shutil.copy2(root / name, project / name)
-    shutil.copytree(root / "zonedesign", project / "zonedesign", ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
+    project = project_copy(folder / "project")
     env = {k: v for k, v in os.environ.items() if k not in ("NUMBA_CACHE_DIR", "PYTHONPATH", "VIRTUAL_ENV")}
     venv = folder / "venv"
     subprocess.run([sys.executable, "-m", "venv", str(venv)], check=True, env=env)

@@ -100,3 +100,14 @@ def test_the_benchmarks_previous_default_is_the_schedule_the_engine_ran_before()
 
     s = fence_schedule(previous_default(2000), 2000)
     assert (s.runs, s.moves, s.per_temperature, s.cooling) == (1, 1_200_000, 16_000, 0.97)
+
+
+def test_the_readme_states_the_moves_per_unit_each_preset_runs() -> None:
+    import re
+    from pathlib import Path
+
+    readme = " ".join((Path(__file__).resolve().parent.parent / "README.md").read_text().split())
+    m = re.search(r"quick ([\d,]+), default ([\d,]+), thorough ([\d,]+)\)", readme)
+    assert m, "README no longer states the presets' moves per unit"
+    stated = [int(g.replace(",", "")) for g in m.groups()]
+    assert stated == [PRESETS[e][0] for e in ("quick", "default", "thorough")]

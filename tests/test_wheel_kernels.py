@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import json
 import os
-import shutil
 import subprocess
 import sys
 import zipfile
@@ -20,7 +19,7 @@ from pathlib import Path
 
 import pytest
 
-ROOT = Path(__file__).resolve().parent.parent
+from benchmarks.common import project_copy
 
 # runs every kernel group from the unpacked wheel and lists what numba had to compile
 _LOAD = """
@@ -47,11 +46,7 @@ print(json.dumps({"compiled": compiled, "missed": missed, "package": zonedesign.
 
 @pytest.mark.slow
 def test_a_wheel_unpacked_elsewhere_runs_its_kernel_groups_and_a_demo_without_compiling(tmp_path: Path) -> None:
-    project = tmp_path / "project"
-    project.mkdir()
-    for name in ("pyproject.toml", "setup.py", "README.md"):
-        shutil.copy2(ROOT / name, project / name)
-    shutil.copytree(ROOT / "zonedesign", project / "zonedesign", ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
+    project = project_copy(tmp_path / "project")
     env = {k: v for k, v in os.environ.items() if k not in ("NUMBA_CACHE_DIR", "PYTHONPATH")}
     env["ZONEDESIGN_PRECOMPILE"] = "0"
     built = subprocess.run(

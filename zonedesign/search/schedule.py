@@ -36,7 +36,7 @@ from dataclasses import dataclass
 from zonedesign.rules import SearchRules
 
 PRESETS: dict[str, tuple[int, float]] = {
-    "quick": (300, 0.94),
+    "quick": (150, 0.94),
     "default": (350, 0.97),
     "thorough": (12_000, 0.99),
 }
